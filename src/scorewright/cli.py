@@ -1,0 +1,143 @@
+"""The scorewright command line.
+
+Every user error is one line on stderr and exit status 2; `verify` exits 1 when
+artifacts disagree. Files are written atomically and never overwritten without
+--force.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import click
+
+from . import __version__
+from .errors import ScorewrightError
+
+
+class _Group(click.Group):
+    def main(self, args=None, prog_name=None, **extra):
+        try:
+            rv = super().main(args=args, prog_name=prog_name, standalone_mode=False, **extra)
+        except click.exceptions.Exit as exc:
+            sys.exit(exc.exit_code)
+        except click.exceptions.Abort:
+            click.echo("error: interrupted", err=True)
+            sys.exit(130)
+        except click.UsageError as exc:
+            where = f" ({exc.ctx.command_path})" if exc.ctx is not None else ""
+            click.echo(f"error{where}: {_one_line(exc.format_message())}", err=True)
+            sys.exit(2)
+        except click.ClickException as exc:
+            click.echo(f"error: {_one_line(exc.format_message())}", err=True)
+            sys.exit(2)
+        except ScorewrightError as exc:
+            click.echo(f"error: {_one_line(str(exc))}", err=True)
+            sys.exit(2)
+        except KeyboardInterrupt:
+            click.echo("error: interrupted", err=True)
+            sys.exit(130)
+        sys.exit(rv if isinstance(rv, int) else 0)
+
+
+def _one_line(text: str) -> str:
+    return " ".join(text.split())
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="scorewright")
+def cli():
+    """Compile fitted generalized linear models into exact, verified scoring code."""
+
+
+def _load(path: str):
+    from .model import load_model
+
+    return load_model(path)
+
+
+def _split_names(text: str | None) -> list[str] | None:
+    if text is None:
+        return None
+    names = [n.strip() for n in text.split(",")]
+    if any(n == "" for n in names):
+        raise ScorewrightError("--feature-names: empty name in the list")
+    return names
+
+
+@cli.command()
+@click.argument("pickle_file", type=click.Path(dir_okay=False))
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+              help="Where to write the frozen model (JSON).")
+@click.option("--name", help="Model name (default: the estimator's class).")
+@click.option("--feature-names", help="Comma-separated input names, when the model has none.")
+@click.option("--force", is_flag=True, help="Overwrite an existing output file.")
+def freeze(pickle_file, output, name, feature_names, force):
+    """Freeze a fitted scikit-learn model from a pickle or joblib file.
+
+    Unpickling runs code stored in the file: use only files you trust. The
+    in-process API, scorewright.freeze(estimator), avoids this.
+    """
+    from .files import check_writable
+    from .freeze import PICKLE_WARNING, freeze as freeze_estimator, load_pickled_estimator
+
+    src, out = Path(pickle_file), Path(output)
+    if not src.is_file():
+        raise ScorewrightError(f"{src}: no such file")
+    check_writable(out, force)
+    click.echo(PICKLE_WARNING.format(path=src), err=True)
+    estimator = load_pickled_estimator(src)
+    model = freeze_estimator(estimator, feature_names=_split_names(feature_names), name=name)
+    model.write(out, force=force)
+    click.echo(f"froze {model.name} ({len(model.features)} features, {model.head.task}) "
+               f"to {out}\nsha256 {model.sha256}")
+
+
+@cli.command()
+@click.argument("model_file", type=click.Path(dir_okay=False))
+def show(model_file):
+    """Describe a frozen model: features, scaling, coefficients, classes, cut, provenance."""
+    from .describe import describe_model
+
+    click.echo(describe_model(_load(model_file)), nl=False)
+
+
+@cli.command()
+@click.argument("model_file", type=click.Path(dir_okay=False))
+@click.option("--target", "target", required=True, help="Target to emit: " + "python.")
+@click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
+              help="Directory to write the artifact(s) into.")
+@click.option("--force", is_flag=True, help="Overwrite existing artifacts.")
+def emit(model_file, target, outdir, force):
+    """Emit the scoring code for one target."""
+    from .emit import emitter
+    from .files import check_writable, write_atomic
+
+    model = _load(model_file)
+    artifacts = emitter(target)(model, {})
+    out = Path(outdir)
+    for art in artifacts:
+        check_writable(out / art.name, force)
+    for art in artifacts:
+        write_atomic(out / art.name, art.content, force=force)
+        click.echo(f"wrote {out / art.name}")
+
+
+@cli.command()
+@click.option("-o", "--output", "outdir", default="scorewright-demo", show_default=True,
+              type=click.Path(file_okay=False), help="Directory for everything the demo writes.")
+@click.option("--force", is_flag=True, help="Overwrite an earlier demo's files.")
+def demo(outdir, force):
+    """Fit, freeze, emit and check the invented compressor-fault model end to end."""
+    from .demo import run_demo
+
+    run_demo(Path(outdir), force=force)
+
+
+def main():
+    cli.main(prog_name="scorewright")
+
+
+if __name__ == "__main__":
+    main()

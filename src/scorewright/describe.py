@@ -1,0 +1,87 @@
+"""`scorewright show`: a frozen model described for a person to read."""
+
+from __future__ import annotations
+
+import json
+import math
+
+from .model import FrozenModel, NumericFeature
+from .plan import build_plan
+
+
+def unit_slope(feat: NumericFeature) -> float:
+    """d(design value)/d(raw value) of a numeric feature's scaling steps."""
+    slope = 1.0
+    for step in feat.scaling:
+        if step.op == "multiply":
+            slope *= step.value
+        elif step.op == "divide":
+            slope /= step.value
+    return slope
+
+
+def _odds(x: float) -> str:
+    try:
+        return f"{math.exp(x):.6g}"
+    except OverflowError:
+        return "inf"
+
+
+def describe_model(model: FrozenModel) -> str:
+    head = model.head
+    plan = build_plan(model)
+    out = [f"model     {model.name}", f"sha256    {model.sha256}",
+           f"task      {head.task} (link {head.link})"]
+    if head.classes is not None:
+        out.append("classes   " + ", ".join(repr(c) for c in head.classes))
+    if head.task == "binary":
+        p = 1.0 / (1.0 + math.exp(-head.cut)) if abs(head.cut) < 700 else float(head.cut > 0)
+        out.append(f"cut       margin > {head.cut!r} predicts {head.classes[1]!r} "
+                   f"(probability > {p:.6g})")
+    out.append("")
+    out.append("features")
+    for feat, inp in zip(model.features, plan.inputs):
+        if isinstance(feat, NumericFeature):
+            missing = ("missing -> design value 0.0" if feat.fill is None
+                       else f"missing -> {feat.fill!r}")
+            steps = " ".join(f"{s.op} {s.value!r}" for s in feat.scaling) or "none"
+            clip = "" if feat.clip is None else f", clip to [{feat.clip[0]!r}, {feat.clip[1]!r}]"
+            out.append(f"  {feat.name!r}  numeric; {missing}; scaling: {steps}{clip}; "
+                       f"input guard |x| <= {inp.bound:g}")
+        else:
+            missing = ("missing -> as unseen" if feat.fill is None
+                       else f"missing -> {feat.fill!r}")
+            unknown = ("unseen -> no level (all indicators 0)" if feat.unknown_level is None
+                       else f"unseen -> {feat.unknown_level!r}")
+            out.append(f"  {feat.name!r}  categorical, {len(feat.levels)} levels; {missing}; "
+                       f"{unknown}")
+            out.append("      levels: " + ", ".join(repr(v) for v in feat.levels))
+    out.append("")
+    labels = ([repr(c) for c in head.classes] if head.task == "multiclass" else [None])
+    logit = head.link == "logit"
+    for k, label in enumerate(labels):
+        title = "coefficients" if label is None else f"coefficients for class {label}"
+        out.append(title)
+        cols = "  {:<40} {:>24} {:>24}".format("design column", "per design unit",
+                                               "per original unit")
+        if logit:
+            cols += " {:>14} {:>14}".format("odds ratio", "OR per unit")
+        out.append(cols)
+        out.append(f"  {'(intercept)':<40} {head.intercepts[k]!r:>24}")
+        for j, col in enumerate(model.design):
+            c = head.coefficients[k][j]
+            feat = model.feature(col.feature)
+            if col.levels is None:
+                name = repr(col.feature)
+                per_unit = c * unit_slope(feat)
+            else:
+                name = f"{col.feature!r} in {{{', '.join(repr(v) for v in col.levels)}}}"
+                per_unit = c
+            line = f"  {name[:40]:<40} {c!r:>24} {per_unit!r:>24}"
+            if logit:
+                line += f" {_odds(c):>14} {_odds(per_unit):>14}"
+            out.append(line)
+        out.append("")
+    out.append("provenance")
+    out.append("  " + json.dumps(model.provenance, indent=2, sort_keys=True).replace("\n", "\n  "))
+    return "\n".join(out) + "\n"

@@ -1,0 +1,31 @@
+"""Emitters: each lowers the scoring plan into one target's syntax.
+
+An emitter is a function `emit(model, options) -> list[Artifact]`; it builds the
+plan it needs (`build_plan(model, precision)`) and renders it through a Jinja2
+template under templates/. Emitters never import each other or the freezer.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from importlib import import_module
+
+
+@dataclass(frozen=True)
+class Artifact:
+    name: str      # file name inside the output directory
+    content: bytes
+
+
+# target name -> module implementing emit(model, options)
+EMITTERS = {
+    "python": "scorewright.emit.python",
+}
+
+
+def emitter(target: str):
+    from ..errors import ScorewrightError
+
+    if target not in EMITTERS:
+        raise ScorewrightError(f"unknown target {target!r}; known: {', '.join(sorted(EMITTERS))}")
+    return import_module(EMITTERS[target]).emit

@@ -1,0 +1,382 @@
+"""Freezing a fitted scikit-learn estimator or pipeline into a frozen model.
+
+The walk keeps scikit-learn's own operation order for every transform
+(StandardScaler subtracts then divides, MinMaxScaler multiplies, adds, then
+clips, ...), so the frozen scaling reproduces the source model's transformed
+values bit for bit.
+
+Each current column of the data flowing through the pipeline is tracked as a
+chain: the raw feature it came from, the imputation fill, the scaling steps,
+and, once one-hot encoded, the levels of each indicator column.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import ScorewrightError
+from ..model import (CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
+                     ScalingStep)
+from .provenance import provenance
+
+
+@dataclass
+class Chain:
+    """One current column: a raw feature on its way to the design matrix."""
+
+    feature: int
+    fill: object = None
+    steps: list = field(default_factory=list)
+    clip: tuple | None = None
+    levels: tuple | None = None          # set once one-hot encoded: this indicator's levels
+    categories: tuple | None = None      # all levels the encoder knew (for indicators)
+    unknown_level: object = None
+    encoded: bool = False
+
+
+class Unsupported(ScorewrightError):
+    pass
+
+
+def freeze_estimator(estimator, feature_names=None, name=None) -> FrozenModel:
+    head_est, transforms = _split(estimator)
+    raw_names = _input_names(estimator, feature_names)
+    chains = [Chain(i) for i in range(len(raw_names))]
+    for path, step in transforms:
+        chains = _apply(step, chains, path)
+    head = _head(head_est, _describe_path(estimator, head_est))
+    n_cols = len(head.coefficients[0])
+    if n_cols != len(chains):
+        raise ScorewrightError(f"the estimator has {n_cols} coefficients per output but the "
+                               f"pipeline produces {len(chains)} columns")
+    features, design = _features_and_design(chains, raw_names)
+    model = FrozenModel(
+        name=name or _default_name(estimator),
+        features=features,
+        design=design,
+        head=head,
+        provenance=provenance(estimator, raw_names),
+    )
+    return model.sealed()
+
+
+# ---------------------------------------------------------------- structure
+
+def _split(estimator):
+    from sklearn.pipeline import Pipeline
+
+    if isinstance(estimator, Pipeline):
+        steps = [(n, s) for n, s in estimator.steps if s not in (None, "passthrough")]
+        if not steps:
+            raise ScorewrightError("the pipeline has no estimator")
+        head_name, head = steps[-1]
+        transforms = [(f"pipeline step {n!r} (position {i})", s)
+                      for i, (n, s) in enumerate(steps[:-1])]
+        return head, transforms
+    return estimator, []
+
+
+def _describe_path(estimator, head) -> str:
+    from sklearn.pipeline import Pipeline
+
+    if isinstance(estimator, Pipeline):
+        return f"pipeline step {estimator.steps[-1][0]!r} (position {len(estimator.steps) - 1})"
+    return "the estimator"
+
+
+def _input_names(estimator, feature_names) -> list[str]:
+    n = getattr(estimator, "n_features_in_", None)
+    if n is None:
+        raise ScorewrightError("the estimator is not fitted (no n_features_in_)")
+    fitted = getattr(estimator, "feature_names_in_", None)
+    if feature_names is not None:
+        names = [str(x) for x in feature_names]
+        if len(names) != n:
+            raise ScorewrightError(f"{len(names)} feature names given but the model takes {n} "
+                                   "inputs")
+        if fitted is not None and list(map(str, fitted)) != names:
+            raise ScorewrightError("the given feature names differ from the names the model "
+                                   "was fitted with")
+    elif fitted is not None:
+        names = [str(x) for x in fitted]
+    else:
+        names = [f"x{i}" for i in range(n)]
+    if len(set(names)) != len(names):
+        raise ScorewrightError("feature names are not unique")
+    if any(x == "" for x in names):
+        raise ScorewrightError("a feature name is empty")
+    return names
+
+
+def _default_name(estimator) -> str:
+    head, _ = _split(estimator)
+    return type(head).__name__.lower()
+
+
+# ---------------------------------------------------------------- transforms
+
+def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
+    from sklearn.compose import ColumnTransformer
+    from sklearn.impute import SimpleImputer
+    from sklearn.pipeline import Pipeline
+    from sklearn.preprocessing import (FunctionTransformer, MaxAbsScaler, MinMaxScaler,
+                                       OneHotEncoder, RobustScaler, StandardScaler)
+
+    if step in (None, "passthrough"):
+        return chains
+    kind = type(step)
+    if kind is Pipeline:
+        for i, (n, sub) in enumerate(step.steps):
+            chains = _apply(sub, chains, f"{path} > step {n!r} (position {i})")
+        return chains
+    if kind is ColumnTransformer:
+        return _column_transformer(step, chains, path)
+    if kind is SimpleImputer:
+        return _imputer(step, chains, path)
+    if kind is StandardScaler:
+        return _scale(chains, path, "StandardScaler",
+                      ("subtract", getattr(step, "mean_", None) if step.with_mean else None),
+                      ("divide", step.scale_ if step.with_std else None))
+    if kind is RobustScaler:
+        return _scale(chains, path, "RobustScaler",
+                      ("subtract", step.center_ if step.with_centering else None),
+                      ("divide", step.scale_ if step.with_scaling else None))
+    if kind is MaxAbsScaler:
+        return _scale(chains, path, "MaxAbsScaler", ("divide", step.scale_))
+    if kind is MinMaxScaler:
+        out = _scale(chains, path, "MinMaxScaler", ("multiply", step.scale_), ("add", step.min_))
+        if step.clip:
+            lo, hi = (float(v) for v in step.feature_range)
+            for c in out:
+                c.clip = (lo, hi)
+        return out
+    if kind is OneHotEncoder:
+        return _one_hot(step, chains, path)
+    if kind is FunctionTransformer and step.func is None and step.inverse_func is None:
+        return chains  # how a fitted ColumnTransformer spells remainder="passthrough"
+    raise Unsupported(f"unsupported component {kind.__name__} at {path}")
+
+
+def _column_transformer(ct, chains, path):
+    selected = ct._transformer_to_input_indices  # fitted: name -> input column indices
+    used: dict[int, str] = {}
+    out: list[Chain] = []
+    for name, trans, _cols in ct.transformers_:
+        indices = list(selected.get(name, []))
+        if trans == "drop" or not indices:
+            continue
+        for i in indices:
+            if i in used:
+                raise Unsupported(f"input column {i} is used by both {used[i]!r} and {name!r} "
+                                  f"at {path}; each input may feed one transformer")
+            used[i] = name
+        sub = [chains[i] for i in indices]
+        out.extend(_apply(trans, sub, f"{path} > transformer {name!r}"))
+    return out
+
+
+def _imputer(imp, chains, path):
+    if imp.add_indicator:
+        raise Unsupported(f"SimpleImputer(add_indicator=True) at {path}")
+    mv = imp.missing_values
+    if not (isinstance(mv, float) and math.isnan(mv)) and mv is not None:
+        raise Unsupported(f"SimpleImputer(missing_values={mv!r}) at {path}: only NaN/None "
+                          "missing values map to the frozen missing policy")
+    stats = imp.statistics_
+    if len(stats) != len(chains):
+        raise Unsupported(f"SimpleImputer at {path} dropped all-missing columns; refit with "
+                          "keep_empty_features=True or remove those columns")
+    for chain, value in zip(chains, stats):
+        _require_raw(chain, path, "SimpleImputer")
+        if chain.fill is not None:
+            continue  # an earlier imputer already filled every missing value
+        if isinstance(value, (float, np.floating)) and math.isnan(value):
+            raise Unsupported(f"SimpleImputer at {path} has no fill value for an all-missing "
+                              "column")
+        chain.fill = _plain(value)
+    return chains
+
+
+def _require_raw(chain, path, what):
+    if chain.encoded:
+        raise Unsupported(f"{what} at {path} comes after OneHotEncoder; put it before")
+    if chain.steps and what == "SimpleImputer":
+        raise Unsupported(f"SimpleImputer at {path} comes after scaling; put it first")
+
+
+def _scale(chains, path, what, *ops):
+    for chain_index, chain in enumerate(chains):
+        _require_raw(chain, path, what)
+        if chain.clip is not None:
+            raise Unsupported(f"{what} at {path} follows a clipping MinMaxScaler")
+        for op, values in ops:
+            if values is None:
+                continue
+            value = float(np.asarray(values, dtype=np.float64)[chain_index])
+            chain.steps.append(ScalingStep(op, value))
+        if isinstance(chain.fill, str):
+            raise Unsupported(f"{what} at {path} scales a column imputed with text")
+    return chains
+
+
+def _one_hot(enc, chains, path):
+    drop_idx = getattr(enc, "drop_idx_", None)
+    infrequent = getattr(enc, "infrequent_categories_", None) if getattr(
+        enc, "_infrequent_enabled", False) else None
+    out: list[Chain] = []
+    for i, chain in enumerate(chains):
+        _require_raw(chain, path, "OneHotEncoder")
+        if chain.steps:
+            raise Unsupported(f"OneHotEncoder at {path} encodes a scaled column")
+        cats = [_level(v, path) for v in enc.categories_[i]]
+        if any(c is None for c in cats):
+            raise Unsupported(f"OneHotEncoder at {path} learned a missing value as a category of "
+                              "its column; put a SimpleImputer before it")
+        if len({type(c) for c in cats}) > 1:
+            raise Unsupported(f"OneHotEncoder at {path}: a column mixes text and number "
+                              "categories")
+        fill = None if chain.fill is None else _level(chain.fill, path)
+        if fill is not None and fill not in cats:
+            raise Unsupported(f"imputed value {fill!r} is not a category of the OneHotEncoder "
+                              f"at {path}")
+        dropped = None if drop_idx is None or drop_idx[i] is None else int(drop_idx[i])
+        rare = None if infrequent is None or infrequent[i] is None else [
+            _level(v, path) for v in infrequent[i]]
+        if rare and dropped is not None:
+            raise Unsupported(f"OneHotEncoder at {path} drops a category and groups infrequent "
+                              "ones; use one of the two")
+        groups: list[tuple] = []
+        if rare:
+            groups = [(c,) for c in cats if c not in rare] + [tuple(rare)]
+        else:
+            groups = [(c,) for j, c in enumerate(cats) if j != dropped]
+        unknown = None
+        if enc.handle_unknown == "infrequent_if_exist" and rare:
+            unknown = rare[0]
+        # A feature whose only category was dropped yields no column: it is left out.
+        for group in groups:
+            out.append(Chain(chain.feature, fill=fill, levels=group, categories=tuple(cats),
+                             unknown_level=unknown, encoded=True))
+    return out
+
+
+def _plain(value):
+    if isinstance(value, np.generic):
+        value = value.item()
+    return value
+
+
+def _level(value, path):
+    value = _plain(value)
+    if value is None:
+        return None
+    if isinstance(value, bool):
+        return int(value)
+    if isinstance(value, float):
+        if math.isnan(value):
+            return None
+        if value != math.floor(value) or not math.isfinite(value):
+            raise Unsupported(f"category {value!r} at {path} is not an integer or text")
+        return int(value)
+    if isinstance(value, (int, str)):
+        if value == "":
+            raise Unsupported(f"the empty string is a category at {path}; it cannot be told "
+                              "apart from a missing value")
+        return value
+    raise Unsupported(f"category {value!r} at {path} is not an integer or text")
+
+
+# ---------------------------------------------------------------- features and design
+
+def _features_and_design(chains, raw_names):
+    design: list[DesignColumn] = []
+    numeric: dict[int, Chain] = {}
+    categorical: dict[int, list[Chain]] = {}
+    for chain in chains:
+        name = raw_names[chain.feature]
+        if chain.encoded:
+            if chain.feature in numeric:
+                raise Unsupported(f"feature {name!r} is used both as a number and as a category")
+            categorical.setdefault(chain.feature, []).append(chain)
+            design.append(DesignColumn(name, tuple(chain.levels)))
+        else:
+            if chain.feature in numeric or chain.feature in categorical:
+                raise Unsupported(f"feature {name!r} reaches the estimator twice")
+            if isinstance(chain.fill, str):
+                raise Unsupported(f"feature {name!r} is imputed with text but not encoded")
+            numeric[chain.feature] = chain
+            design.append(DesignColumn(name))
+    features = []
+    for i, name in enumerate(raw_names):
+        if i in numeric:
+            c = numeric[i]
+            fill = None if c.fill is None else float(c.fill)
+            features.append(NumericFeature(name, fill, tuple(c.steps), c.clip))
+        elif i in categorical:
+            c = categorical[i][0]
+            features.append(CategoricalFeature(name, c.categories, c.fill, c.unknown_level))
+    return tuple(features), tuple(design)
+
+
+# ---------------------------------------------------------------- heads
+
+def _head(est, path) -> Head:
+    from sklearn.linear_model import (ElasticNet, GammaRegressor, Lasso, LinearRegression,
+                                      LogisticRegression, PoissonRegressor, Ridge,
+                                      SGDClassifier, TweedieRegressor)
+
+    kind = type(est)
+    if kind in (LogisticRegression, SGDClassifier):
+        if kind is SGDClassifier and est.loss != "log_loss":
+            raise Unsupported(f"SGDClassifier(loss={est.loss!r}) at {path}: only loss='log_loss' "
+                              "gives probabilities")
+        classes = tuple(_class_label(c, path) for c in est.classes_)
+        coef = np.asarray(est.coef_, dtype=np.float64)
+        intercept = np.atleast_1d(np.asarray(est.intercept_, dtype=np.float64))
+        if len(classes) == 2:
+            return Head("binary", "logit", classes, (float(intercept[0]),),
+                        (tuple(map(float, coef[0])),), 0.0)
+        if kind is SGDClassifier or _one_vs_rest(est):
+            raise Unsupported(f"{kind.__name__} at {path} is one-vs-rest; only multinomial "
+                              "(softmax) multiclass models are supported")
+        return Head("multiclass", "softmax", classes, tuple(map(float, intercept)),
+                    tuple(tuple(map(float, row)) for row in coef), None)
+    if kind in (LinearRegression, Ridge, Lasso, ElasticNet, PoissonRegressor, GammaRegressor,
+                TweedieRegressor):
+        coef = np.asarray(est.coef_, dtype=np.float64)
+        if coef.ndim == 2:
+            if coef.shape[0] != 1:
+                raise Unsupported(f"{kind.__name__} at {path} has several outputs; freeze one "
+                                  "output per model")
+            coef = coef[0]
+        intercept = float(np.ravel(np.asarray(est.intercept_, dtype=np.float64))[0]) \
+            if np.ndim(est.intercept_) else float(est.intercept_)
+        link = "identity"
+        if kind in (PoissonRegressor, GammaRegressor):
+            link = "log"
+        elif kind is TweedieRegressor:
+            link = "identity" if (est.link == "identity" or
+                                  (est.link == "auto" and est.power <= 0)) else "log"
+        return Head("regression", link, None, (intercept,), (tuple(map(float, coef)),), None)
+    raise Unsupported(f"unsupported estimator {kind.__name__} at {path}")
+
+
+def _one_vs_rest(est) -> bool:
+    multi = getattr(est, "multi_class", "auto")
+    if multi == "ovr":
+        return True
+    return multi in ("auto", "deprecated") and est.solver == "liblinear"
+
+
+def _class_label(value, path):
+    value = _plain(value)
+    if isinstance(value, bool):
+        return int(value)
+    if isinstance(value, float) and math.isfinite(value) and value == math.floor(value):
+        return int(value)
+    if isinstance(value, (int, str)):
+        return value
+    raise Unsupported(f"class label {value!r} at {path} is not an integer or text")

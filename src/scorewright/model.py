@@ -1,0 +1,512 @@
+"""The frozen model: the one exact, versioned file everything downstream reads.
+
+A frozen model holds the feature schema (how each raw input becomes design
+columns), the head (task, link, classes, intercepts, coefficient matrix, decision
+cut), provenance, and the SHA-256 of its canonical JSON form. Loading is strict:
+every defect is a `ModelFileError` whose message names the field.
+
+Floats are written with Python's shortest round-trip repr, so coefficients
+survive a write/read cycle bit for bit.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Union
+
+from .errors import ModelFileError
+from .files import write_atomic
+
+FORMAT = "scorewright-frozen-model"
+FORMAT_VERSION = 1
+
+SCALING_OPS = ("subtract", "divide", "multiply", "add")
+TASK_LINKS = {"binary": ("logit",), "multiclass": ("softmax",), "regression": ("identity", "log")}
+
+Level = Union[str, int]
+
+
+@dataclass(frozen=True)
+class ScalingStep:
+    op: str
+    value: float
+
+
+@dataclass(frozen=True)
+class NumericFeature:
+    """A numeric input. `fill` replaces a missing value before scaling; with no
+    fill a missing value makes the feature's design column exactly 0.0."""
+
+    name: str
+    fill: float | None
+    scaling: tuple[ScalingStep, ...] = ()
+    clip: tuple[float, float] | None = None
+    kind: str = field(default="numeric", init=False)
+
+
+@dataclass(frozen=True)
+class CategoricalFeature:
+    """A categorical input. `fill` is the level a missing value takes (None:
+    missing is treated as an unseen level); `unknown_level` is the level an
+    unseen value takes (None: all of the feature's indicators are 0)."""
+
+    name: str
+    levels: tuple[Level, ...]
+    fill: Level | None = None
+    unknown_level: Level | None = None
+    kind: str = field(default="categorical", init=False)
+
+    @property
+    def level_type(self) -> type:
+        return int if self.levels and isinstance(self.levels[0], int) else str
+
+
+Feature = Union[NumericFeature, CategoricalFeature]
+
+
+@dataclass(frozen=True)
+class DesignColumn:
+    """One column of the design matrix: a numeric feature's scaled value, or the
+    indicator that a categorical feature's value is one of `levels`."""
+
+    feature: str
+    levels: tuple[Level, ...] | None = None
+
+
+@dataclass(frozen=True)
+class Head:
+    task: str
+    link: str
+    classes: tuple[Level, ...] | None
+    intercepts: tuple[float, ...]
+    coefficients: tuple[tuple[float, ...], ...]
+    cut: float | None  # binary only: predict the positive class when margin > cut
+
+
+@dataclass(frozen=True)
+class FrozenModel:
+    name: str
+    features: tuple[Feature, ...]
+    design: tuple[DesignColumn, ...]
+    head: Head
+    provenance: dict
+    sha256: str = ""
+
+    @property
+    def n_outputs(self) -> int:
+        return len(self.head.classes) if self.head.task == "multiclass" else 1
+
+    def feature(self, name: str) -> Feature:
+        for feat in self.features:
+            if feat.name == name:
+                return feat
+        raise KeyError(name)
+
+    def to_document(self) -> dict:
+        """The JSON document, sha256 included."""
+        doc = _document_body(self)
+        doc["sha256"] = canonical_sha256(doc)
+        return doc
+
+    def sealed(self) -> "FrozenModel":
+        """This model with its sha256 filled in from its canonical form."""
+        return FrozenModel(self.name, self.features, self.design, self.head,
+                           self.provenance, canonical_sha256(_document_body(self)))
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_document(), indent=2, ensure_ascii=True, allow_nan=False) + "\n"
+
+    def write(self, path: str | Path, force: bool = False) -> None:
+        write_atomic(Path(path), self.to_json().encode("ascii"), force=force)
+
+
+# ---------------------------------------------------------------- writing
+
+def _document_body(model: FrozenModel) -> dict:
+    feats = []
+    for feat in model.features:
+        if isinstance(feat, NumericFeature):
+            feats.append({
+                "name": feat.name,
+                "kind": "numeric",
+                "missing": ({"policy": "zero"} if feat.fill is None
+                            else {"policy": "impute", "value": feat.fill}),
+                "scaling": [{"op": s.op, "value": s.value} for s in feat.scaling],
+                "clip": None if feat.clip is None else list(feat.clip),
+            })
+        else:
+            feats.append({
+                "name": feat.name,
+                "kind": "categorical",
+                "levels": list(feat.levels),
+                "missing": ({"policy": "unknown"} if feat.fill is None
+                            else {"policy": "impute", "value": feat.fill}),
+                "unknown": ({"policy": "zeros"} if feat.unknown_level is None
+                            else {"policy": "level", "level": feat.unknown_level}),
+            })
+    design = []
+    for col in model.design:
+        entry: dict[str, Any] = {"feature": col.feature}
+        if col.levels is not None:
+            entry["levels"] = list(col.levels)
+        design.append(entry)
+    head = model.head
+    return {
+        "format": FORMAT,
+        "format_version": FORMAT_VERSION,
+        "name": model.name,
+        "features": feats,
+        "design": design,
+        "head": {
+            "task": head.task,
+            "link": head.link,
+            "classes": None if head.classes is None else list(head.classes),
+            "intercepts": list(head.intercepts),
+            "coefficients": [list(row) for row in head.coefficients],
+            "cut": head.cut,
+        },
+        "provenance": model.provenance,
+    }
+
+
+def canonical_bytes(doc: dict) -> bytes:
+    body = {k: v for k, v in doc.items() if k != "sha256"}
+    return json.dumps(body, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
+                      allow_nan=False).encode("ascii")
+
+
+def canonical_sha256(doc: dict) -> str:
+    return hashlib.sha256(canonical_bytes(doc)).hexdigest()
+
+
+# ---------------------------------------------------------------- reading
+
+def _reject_duplicates(pairs):
+    out = {}
+    for key, value in pairs:
+        if key in out:
+            raise ModelFileError(f"duplicate key {key!r} in a JSON object")
+        out[key] = value
+    return out
+
+
+def _reject_constant(name):
+    raise ModelFileError(f"{name} is not a number; model files hold finite numbers only")
+
+
+def load_model(path: str | Path) -> FrozenModel:
+    """Read and strictly validate a frozen model file."""
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise ModelFileError(f"{path}: no such file") from None
+    except IsADirectoryError:
+        raise ModelFileError(f"{path}: is a directory, not a model file") from None
+    except OSError as exc:
+        raise ModelFileError(f"{path}: cannot read ({exc.strerror})") from None
+    try:
+        return parse_model(raw)
+    except ModelFileError as exc:
+        raise ModelFileError(f"{path}: {exc}") from None
+
+
+def parse_model(raw: bytes | str) -> FrozenModel:
+    if isinstance(raw, bytes):
+        try:
+            raw = raw.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            raise ModelFileError(f"not UTF-8 text (byte {exc.start})") from None
+    try:
+        doc = json.loads(raw, object_pairs_hook=_reject_duplicates, parse_constant=_reject_constant)
+    except json.JSONDecodeError as exc:
+        raise ModelFileError(f"not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}"
+                             ) from None
+    except RecursionError:
+        raise ModelFileError("not valid JSON: nested too deeply") from None
+    return model_from_document(doc)
+
+
+class _Reader:
+    """Type checks that name the JSON path of the offending field."""
+
+    @staticmethod
+    def obj(value, path, keys, optional=()):
+        if not isinstance(value, dict):
+            raise ModelFileError(f"{path}: expected an object, got {_kind(value)}")
+        missing = [k for k in keys if k not in value]
+        if missing:
+            raise ModelFileError(f"{path}: missing key {missing[0]!r}")
+        extra = [k for k in value if k not in keys and k not in optional]
+        if extra:
+            raise ModelFileError(f"{path}: unexpected key {extra[0]!r}")
+        return value
+
+    @staticmethod
+    def string(value, path, nonempty=True):
+        if not isinstance(value, str):
+            raise ModelFileError(f"{path}: expected a string, got {_kind(value)}")
+        if nonempty and value == "":
+            raise ModelFileError(f"{path}: must not be empty")
+        return value
+
+    @staticmethod
+    def number(value, path):
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise ModelFileError(f"{path}: expected a number, got {_kind(value)}")
+        try:
+            out = float(value)
+        except OverflowError:
+            raise ModelFileError(f"{path}: number out of double range") from None
+        if not math.isfinite(out):
+            raise ModelFileError(f"{path}: expected a finite number, got {value!r}")
+        return out
+
+    @staticmethod
+    def array(value, path, max_len=None):
+        if not isinstance(value, list):
+            raise ModelFileError(f"{path}: expected an array, got {_kind(value)}")
+        return value
+
+    @staticmethod
+    def level(value, path):
+        if isinstance(value, bool) or not isinstance(value, (str, int)):
+            raise ModelFileError(f"{path}: expected a string or integer level, got {_kind(value)}")
+        if value == "":
+            raise ModelFileError(f"{path}: the empty string cannot be a level "
+                                 "(it is read as a missing value)")
+        return value
+
+
+def _kind(value) -> str:
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "a boolean"
+    if isinstance(value, (int, float)):
+        return f"the number {value!r}"
+    if isinstance(value, str):
+        return "a string"
+    if isinstance(value, list):
+        return "an array"
+    if isinstance(value, dict):
+        return "an object"
+    return type(value).__name__
+
+
+def model_from_document(doc) -> FrozenModel:
+    r = _Reader
+    if not isinstance(doc, dict):
+        raise ModelFileError(f"expected a JSON object at the top level, got {_kind(doc)}")
+    fmt = doc.get("format")
+    if fmt != FORMAT:
+        raise ModelFileError(f"format: expected {FORMAT!r}, got {fmt!r}")
+    version = doc.get("format_version")
+    if version != FORMAT_VERSION or isinstance(version, bool):
+        raise ModelFileError(f"format_version: this scorewright reads version {FORMAT_VERSION}, "
+                             f"the file says {version!r}")
+    r.obj(doc, "model", ("format", "format_version", "name", "features", "design", "head",
+                         "provenance", "sha256"))
+    name = r.string(doc["name"], "name")
+    features = tuple(_read_feature(f, f"features[{i}]")
+                     for i, f in enumerate(r.array(doc["features"], "features")))
+    if not features:
+        raise ModelFileError("features: a model needs at least one feature")
+    seen: set[str] = set()
+    for i, feat in enumerate(features):
+        if feat.name in seen:
+            raise ModelFileError(f"features[{i}].name: duplicate feature name {feat.name!r}")
+        seen.add(feat.name)
+    by_name = {f.name: f for f in features}
+    design = tuple(_read_design(c, f"design[{i}]", by_name)
+                   for i, c in enumerate(r.array(doc["design"], "design")))
+    _check_design(design, features)
+    head = _read_head(doc["head"], len(design))
+    prov = r.obj(doc["provenance"], "provenance", ("scorewright_version", "source"),
+                 optional=("libraries", "inputs", "created", "metrics", "notes"))
+    r.string(prov["scorewright_version"], "provenance.scorewright_version")
+    r.string(prov["source"], "provenance.source")
+    sha = r.string(doc["sha256"], "sha256")
+    expected = canonical_sha256(doc)
+    if sha != expected:
+        raise ModelFileError("sha256: does not match the file's contents (the file was edited "
+                             "after it was frozen, or is damaged)")
+    return FrozenModel(name, features, design, head, prov, sha)
+
+
+def _read_feature(value, path) -> Feature:
+    r = _Reader
+    if not isinstance(value, dict):
+        raise ModelFileError(f"{path}: expected an object, got {_kind(value)}")
+    kind = value.get("kind")
+    if kind == "numeric":
+        r.obj(value, path, ("name", "kind", "missing", "scaling", "clip"))
+        name = r.string(value["name"], f"{path}.name")
+        missing = r.obj(value["missing"], f"{path}.missing", ("policy",), optional=("value",))
+        policy = missing["policy"]
+        if policy == "impute":
+            r.obj(missing, f"{path}.missing", ("policy", "value"))
+            fill = r.number(missing["value"], f"{path}.missing.value")
+        elif policy == "zero":
+            r.obj(missing, f"{path}.missing", ("policy",))
+            fill = None
+        else:
+            raise ModelFileError(f"{path}.missing.policy: expected 'impute' or 'zero', got {policy!r}")
+        steps = []
+        for j, step in enumerate(r.array(value["scaling"], f"{path}.scaling")):
+            spath = f"{path}.scaling[{j}]"
+            r.obj(step, spath, ("op", "value"))
+            if step["op"] not in SCALING_OPS:
+                raise ModelFileError(f"{spath}.op: expected one of {', '.join(SCALING_OPS)}, "
+                                     f"got {step['op']!r}")
+            number = r.number(step["value"], f"{spath}.value")
+            if step["op"] == "divide" and number == 0.0:
+                raise ModelFileError(f"{spath}.value: division by zero")
+            steps.append(ScalingStep(step["op"], number))
+        clip = value["clip"]
+        if clip is not None:
+            r.array(clip, f"{path}.clip")
+            if len(clip) != 2:
+                raise ModelFileError(f"{path}.clip: expected [low, high]")
+            lo = r.number(clip[0], f"{path}.clip[0]")
+            hi = r.number(clip[1], f"{path}.clip[1]")
+            if not lo <= hi:
+                raise ModelFileError(f"{path}.clip: low {lo!r} is above high {hi!r}")
+            clip = (lo, hi)
+        return NumericFeature(name, fill, tuple(steps), clip)
+    if kind == "categorical":
+        r.obj(value, path, ("name", "kind", "levels", "missing", "unknown"))
+        name = r.string(value["name"], f"{path}.name")
+        levels = tuple(r.level(v, f"{path}.levels[{j}]")
+                       for j, v in enumerate(r.array(value["levels"], f"{path}.levels")))
+        if not levels:
+            raise ModelFileError(f"{path}.levels: a categorical feature needs at least one level")
+        types = {type(v) for v in levels}
+        if len(types) > 1:
+            raise ModelFileError(f"{path}.levels: levels mix strings and integers")
+        if len(set(levels)) != len(levels):
+            dup = next(v for v in levels if levels.count(v) > 1)
+            raise ModelFileError(f"{path}.levels: duplicate level {dup!r}")
+        missing = r.obj(value["missing"], f"{path}.missing", ("policy",), optional=("value",))
+        if missing["policy"] == "impute":
+            r.obj(missing, f"{path}.missing", ("policy", "value"))
+            fill = _known_level(missing["value"], levels, f"{path}.missing.value")
+        elif missing["policy"] == "unknown":
+            r.obj(missing, f"{path}.missing", ("policy",))
+            fill = None
+        else:
+            raise ModelFileError(f"{path}.missing.policy: expected 'impute' or 'unknown', "
+                                 f"got {missing['policy']!r}")
+        unknown = r.obj(value["unknown"], f"{path}.unknown", ("policy",), optional=("level",))
+        if unknown["policy"] == "zeros":
+            r.obj(unknown, f"{path}.unknown", ("policy",))
+            unknown_level = None
+        elif unknown["policy"] == "level":
+            r.obj(unknown, f"{path}.unknown", ("policy", "level"))
+            unknown_level = _known_level(unknown["level"], levels, f"{path}.unknown.level")
+        else:
+            raise ModelFileError(f"{path}.unknown.policy: expected 'zeros' or 'level', "
+                                 f"got {unknown['policy']!r}")
+        return CategoricalFeature(name, levels, fill, unknown_level)
+    raise ModelFileError(f"{path}.kind: expected 'numeric' or 'categorical', got {kind!r}")
+
+
+def _known_level(value, levels, path):
+    value = _Reader.level(value, path)
+    if value not in levels or type(value) is not type(levels[0]):
+        raise ModelFileError(f"{path}: {value!r} is not one of the feature's levels")
+    return value
+
+
+def _read_design(value, path, by_name) -> DesignColumn:
+    r = _Reader
+    r.obj(value, path, ("feature",), optional=("levels",))
+    name = r.string(value["feature"], f"{path}.feature")
+    if name not in by_name:
+        raise ModelFileError(f"{path}.feature: no feature named {name!r}")
+    feat = by_name[name]
+    if isinstance(feat, NumericFeature):
+        if "levels" in value:
+            raise ModelFileError(f"{path}.levels: numeric feature {name!r} has no levels")
+        return DesignColumn(name)
+    if "levels" not in value:
+        raise ModelFileError(f"{path}: missing key 'levels' for categorical feature {name!r}")
+    levels = tuple(_known_level(v, feat.levels, f"{path}.levels[{j}]")
+                   for j, v in enumerate(r.array(value["levels"], f"{path}.levels")))
+    if not levels:
+        raise ModelFileError(f"{path}.levels: an indicator column needs at least one level")
+    return DesignColumn(name, levels)
+
+
+def _check_design(design, features) -> None:
+    numeric_seen: set[str] = set()
+    level_seen: dict[str, set] = {}
+    for i, col in enumerate(design):
+        if col.levels is None:
+            if col.feature in numeric_seen:
+                raise ModelFileError(f"design[{i}]: feature {col.feature!r} has two columns")
+            numeric_seen.add(col.feature)
+        else:
+            seen = level_seen.setdefault(col.feature, set())
+            for level in col.levels:
+                if level in seen:
+                    raise ModelFileError(f"design[{i}].levels: level {level!r} of "
+                                         f"{col.feature!r} is in two columns")
+                seen.add(level)
+    for j, feat in enumerate(features):
+        if feat.name not in numeric_seen and feat.name not in level_seen:
+            raise ModelFileError(f"features[{j}]: feature {feat.name!r} has no design column")
+
+
+def _read_head(value, n_design) -> Head:
+    r = _Reader
+    r.obj(value, "head", ("task", "link", "classes", "intercepts", "coefficients", "cut"))
+    task = value["task"]
+    if task not in TASK_LINKS:
+        raise ModelFileError(f"head.task: expected binary, multiclass or regression, got {task!r}")
+    link = value["link"]
+    if link not in TASK_LINKS[task]:
+        raise ModelFileError(f"head.link: a {task} head takes link {' or '.join(TASK_LINKS[task])},"
+                             f" got {link!r}")
+    classes = value["classes"]
+    if task == "regression":
+        if classes is not None:
+            raise ModelFileError("head.classes: a regression head has no classes (null)")
+        n_rows = 1
+    else:
+        classes = tuple(r.level(c, f"head.classes[{i}]")
+                        for i, c in enumerate(r.array(classes, "head.classes")))
+        if len({type(c) for c in classes}) > 1:
+            raise ModelFileError("head.classes: labels mix strings and integers")
+        if len(set(classes)) != len(classes):
+            raise ModelFileError("head.classes: duplicate class label")
+        want = 2 if task == "binary" else None
+        if want is not None and len(classes) != want:
+            raise ModelFileError(f"head.classes: a binary head has 2 classes, got {len(classes)}")
+        if task == "multiclass" and len(classes) < 3:
+            raise ModelFileError("head.classes: a multiclass head has at least 3 classes")
+        n_rows = 1 if task == "binary" else len(classes)
+    intercepts = tuple(r.number(v, f"head.intercepts[{i}]")
+                       for i, v in enumerate(r.array(value["intercepts"], "head.intercepts")))
+    if len(intercepts) != n_rows:
+        raise ModelFileError(f"head.intercepts: expected {n_rows} value(s), got {len(intercepts)}")
+    rows = r.array(value["coefficients"], "head.coefficients")
+    if len(rows) != n_rows:
+        raise ModelFileError(f"head.coefficients: expected {n_rows} row(s), got {len(rows)}")
+    coefs = []
+    for k, row in enumerate(rows):
+        r.array(row, f"head.coefficients[{k}]")
+        if len(row) != n_design:
+            raise ModelFileError(f"head.coefficients[{k}]: expected {n_design} values (one per "
+                                 f"design column), got {len(row)}")
+        coefs.append(tuple(r.number(v, f"head.coefficients[{k}][{j}]") for j, v in enumerate(row)))
+    cut = value["cut"]
+    if task == "binary":
+        cut = r.number(cut, "head.cut")
+    elif cut is not None:
+        raise ModelFileError(f"head.cut: only a binary head has a decision cut (null for {task})")
+    return Head(task, link, classes, intercepts, tuple(coefs), cut)

@@ -1,0 +1,241 @@
+"""The scoring plan: a frozen model lowered to an ordered list of arithmetic steps.
+
+The plan *is* the semantics every target implements. Evaluation, in order:
+
+1. Inputs, in feature order.
+   Numeric: a value that is absent, null, NaN, +-inf or not a number is
+   *missing*. A missing value takes `fill` (raw units) when there is one;
+   without a fill the feature's design value is exactly 0.0 and steps 2-4 are
+   skipped. The value is then clamped to [-bound, bound] (the guard that keeps
+   every later intermediate finite), the scaling steps are applied one by one
+   (`v = v - c`, `v = v / c`, `v = v * c`, `v = v + c`), then the optional clip
+   (`v = min(max(v, lo), hi)`).
+   Categorical: the value's level code (its index in `levels`); a missing value
+   takes `fill_code` (or, without one, is treated as unseen); an unseen value
+   takes `unknown_code` (or, without one, no level: every indicator is 0).
+2. Margins, one per output k: s = t_0; s = s + t_1; ...; s = s + intercept_k,
+   where a numeric term is `weight_k * v` and a categorical term is the looked-up
+   contribution `table_k[code]` (0.0 for no level). Terms whose weights are all
+   zero are left out.
+3. Link: binary, the stable sigmoid; multiclass, the max-shifted softmax;
+   regression, identity or the guarded exp. Every `exp` argument is clamped to
+   [-exp_guard, +exp_guard] so no runtime overflows, underflows to a subnormal or
+   raises (PostgreSQL raises on both).
+4. Decision: binary, the positive class iff margin > cut; multiclass, the class
+   of the largest margin, lowest index on ties.
+
+Precision "float" lowers the same plan with float32 guards and budget for
+targets that compute in single precision.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+
+from .errors import ScorewrightError
+from .model import CategoricalFeature, FrozenModel, NumericFeature, ScalingStep
+
+
+@dataclass(frozen=True)
+class Precision:
+    name: str
+    budget: float     # |margin| never exceeds this, so sums and differences stay finite
+    exp_guard: float  # exp() arguments are clamped to [-exp_guard, exp_guard]
+    log_link_max: float  # the log link clamps its exp argument to at most this
+    max_value: float  # cap for any intermediate
+
+
+# exp(-708) = 3.3e-308 is still a normal double; exp(709) = 8.2e307 is finite.
+DOUBLE = Precision("double", budget=1e300, exp_guard=708.0, log_link_max=709.0, max_value=1e300)
+# expf(-87) = 1.6e-38 is still a normal float; expf(88) = 1.65e38 is finite.
+FLOAT = Precision("float", budget=1e36, exp_guard=87.0, log_link_max=88.0, max_value=1e36)
+PRECISIONS = {"double": DOUBLE, "float": FLOAT}
+
+# A bound below this would clamp ordinary data; such a model is refused.
+MIN_USEFUL_BOUND = {"double": 1e15, "float": 1e6}
+
+
+@dataclass(frozen=True)
+class NumericInput:
+    index: int
+    name: str
+    fill: float | None
+    bound: float
+    steps: tuple[ScalingStep, ...]
+    clip: tuple[float, float] | None
+    kind: str = "numeric"
+
+
+@dataclass(frozen=True)
+class CategoricalInput:
+    index: int
+    name: str
+    levels: tuple
+    fill_code: int | None
+    unknown_code: int | None
+    kind: str = "categorical"
+
+    @property
+    def integer_levels(self) -> bool:
+        return isinstance(self.levels[0], int)
+
+
+@dataclass(frozen=True)
+class Term:
+    """One input's contribution to each margin."""
+
+    input: int                           # index into Plan.inputs
+    kind: str                            # "numeric" or "categorical"
+    weights: tuple[float, ...] = ()      # numeric: one weight per output
+    tables: tuple[tuple[float, ...], ...] = ()  # categorical: per output, one value per level code
+
+
+@dataclass(frozen=True)
+class Plan:
+    name: str
+    stem: str            # file-name-safe form of the model name
+    sha256: str
+    task: str            # binary | multiclass | regression
+    link: str            # logit | softmax | identity | log
+    classes: tuple | None
+    precision: Precision
+    inputs: tuple
+    terms: tuple[Term, ...]
+    intercepts: tuple[float, ...]
+    cut: float | None
+
+    @property
+    def n_outputs(self) -> int:
+        return len(self.intercepts)
+
+    @property
+    def feature_names(self) -> tuple[str, ...]:
+        return tuple(i.name for i in self.inputs)
+
+    @property
+    def n_probabilities(self) -> int:
+        return 0 if self.task == "regression" else len(self.classes)
+
+
+def file_stem(name: str) -> str:
+    """A model name turned into a safe file name (no path separators, no dots first)."""
+    stem = re.sub(r"[^A-Za-z0-9_-]+", "_", name).strip("_")[:64]
+    return stem or "model"
+
+
+def build_plan(model: FrozenModel, precision: str = "double") -> Plan:
+    prec = PRECISIONS[precision]
+    inputs = []
+    for index, feat in enumerate(model.features):
+        if isinstance(feat, NumericFeature):
+            inputs.append(("numeric", feat))
+        else:
+            inputs.append(("categorical", feat))
+    head = model.head
+    n_out = len(head.intercepts)
+    # Terms in the order of each input's first design column.
+    order: list[int] = []
+    names = [f.name for f in model.features]
+    for col in model.design:
+        i = names.index(col.feature)
+        if i not in order:
+            order.append(i)
+    terms: list[Term] = []
+    for i in order:
+        feat = model.features[i]
+        cols = [j for j, c in enumerate(model.design) if c.feature == feat.name]
+        if isinstance(feat, NumericFeature):
+            weights = tuple(head.coefficients[k][cols[0]] for k in range(n_out))
+            if any(w != 0.0 for w in weights):
+                terms.append(Term(i, "numeric", weights=weights))
+        else:
+            tables = []
+            for k in range(n_out):
+                row = [0.0] * len(feat.levels)
+                for j in cols:
+                    for level in model.design[j].levels:
+                        row[feat.levels.index(level)] = head.coefficients[k][j]
+                tables.append(tuple(row))
+            if any(v != 0.0 for t in tables for v in t):
+                terms.append(Term(i, "categorical", tables=tuple(tables)))
+    term_of = {t.input: t for t in terms}
+    built = []
+    for i, feat in enumerate(model.features):
+        if isinstance(feat, NumericFeature):
+            bound = _numeric_bound(feat, term_of.get(i), terms, head.intercepts, prec)
+            built.append(NumericInput(i, feat.name, feat.fill, bound, feat.scaling, feat.clip))
+        else:
+            built.append(_categorical_input(i, feat))
+    return Plan(
+        name=model.name,
+        stem=file_stem(model.name),
+        sha256=model.sha256,
+        task=head.task,
+        link=head.link,
+        classes=head.classes,
+        precision=prec,
+        inputs=tuple(built),
+        terms=tuple(terms),
+        intercepts=head.intercepts,
+        cut=head.cut,
+    )
+
+
+def _categorical_input(index: int, feat: CategoricalFeature) -> CategoricalInput:
+    fill = None if feat.fill is None else feat.levels.index(feat.fill)
+    unknown = None if feat.unknown_level is None else feat.levels.index(feat.unknown_level)
+    return CategoricalInput(index, feat.name, feat.levels, fill, unknown)
+
+
+def _numeric_bound(feat, term, terms, intercepts, prec: Precision) -> float:
+    """The largest power of ten B such that clamping the raw value to [-B, B]
+    keeps every scaling intermediate, every term and every margin finite (the
+    margin stays within the precision's budget)."""
+    if term is None:
+        allowed = prec.max_value
+    else:
+        n_numeric = sum(1 for t in terms if t.kind == "numeric")
+        allowed = prec.max_value
+        for k, weight in enumerate(term.weights):
+            fixed = abs(intercepts[k]) + sum(max(abs(v) for v in t.tables[k])
+                                             for t in terms if t.kind == "categorical")
+            if fixed >= prec.budget / 2:
+                raise ScorewrightError(
+                    f"model coefficients are too large to score safely in {prec.name} "
+                    f"(intercept plus category contributions reach {fixed:.3g})")
+            if weight != 0.0:
+                allowed = min(allowed, (prec.budget - fixed) / n_numeric / abs(weight))
+    for step in reversed(feat.scaling):
+        c = abs(step.value)
+        if step.op in ("subtract", "add"):
+            allowed -= c
+        elif step.op == "multiply":
+            allowed = prec.max_value if c == 0.0 else allowed / c
+        else:
+            allowed *= c
+        allowed = min(allowed, prec.max_value)
+        if not allowed > 0:
+            break
+    limit = allowed / 2  # slack for rounding in the forward direction
+    if not limit >= MIN_USEFUL_BOUND[prec.name]:
+        raise ScorewrightError(
+            f"feature {feat.name!r}: its scaling constants and coefficient are too large to "
+            f"guard in {prec.name} (inputs would have to be clamped to {limit:.3g})")
+    exponent = math.floor(math.log10(limit))
+    bound = float(f"1e{exponent}")
+    if bound > limit:
+        bound = float(f"1e{exponent - 1}")
+    return bound
+
+
+def output_columns(plan: Plan) -> tuple[str, ...]:
+    """The output columns every tabular target appends, in order."""
+    if plan.task == "binary":
+        return ("margin", "probability", "predicted_class")
+    if plan.task == "multiclass":
+        k = plan.n_outputs
+        return (tuple(f"margin_{j}" for j in range(k)) + tuple(f"probability_{j}" for j in range(k))
+                + ("predicted_class",))
+    return ("margin", "predicted_value")

@@ -1,0 +1,82 @@
+"""How a raw input value is read: the one definition of "missing" and "unseen".
+
+The emitted Python scorer carries a copy of these rules (it may import nothing
+but the standard library); tests hold the two to the same cases.
+
+Numeric: int (not bool) and float values are used as they are; a string is
+parsed with a strict decimal grammar (surrounding blanks allowed); anything else
+(None, absent, bool, NaN, +-inf, an unparseable string, an int beyond double
+range) is missing.
+Categorical, string levels: a str equal to a level; an int (not bool) is
+compared by its decimal text. Integer levels: an int, an integral float, or a
+string holding an integral number. None, NaN and "" are missing; any other value
+is unseen.
+"""
+
+from __future__ import annotations
+
+import math
+import numbers
+import re
+
+NUMBER = re.compile(r"\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*\Z")
+MISSING_CODE = -1
+UNSEEN_CODE = -2
+
+
+def numeric_value(value) -> float | None:
+    """The finite double a raw value stands for, or None when it is missing."""
+    if value is None or isinstance(value, bool):
+        return None
+    if isinstance(value, str):
+        match = NUMBER.match(value)
+        if match is None:
+            return None
+        value = float(match.group(1))
+    elif isinstance(value, numbers.Integral):
+        try:
+            value = float(int(value))
+        except OverflowError:
+            return None
+    elif isinstance(value, numbers.Real):
+        value = float(value)
+    else:
+        return None
+    return value if math.isfinite(value) else None
+
+
+def category_code(levels: tuple, value) -> int:
+    """The level code of a raw value: 0..L-1, MISSING_CODE or UNSEEN_CODE."""
+    if value is None or value == "" or (isinstance(value, float) and math.isnan(value)):
+        return MISSING_CODE
+    if isinstance(value, bool):
+        return UNSEEN_CODE
+    if isinstance(levels[0], int):
+        key = _integral(value)
+    elif isinstance(value, str):
+        key = value
+    elif isinstance(value, numbers.Integral):
+        key = str(int(value))
+    else:
+        key = None
+    if key is None:
+        return UNSEEN_CODE
+    try:
+        return levels.index(key)
+    except ValueError:
+        return UNSEEN_CODE
+
+
+def _integral(value) -> int | None:
+    if isinstance(value, str):
+        number = numeric_value(value)
+        if number is None:
+            return None
+        value = number
+    if isinstance(value, numbers.Integral):
+        return int(value)
+    if isinstance(value, numbers.Real):
+        value = float(value)
+        if math.isfinite(value) and value == math.floor(value):
+            return int(value)
+    return None

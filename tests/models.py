@@ -1,0 +1,191 @@
+"""The test models every target is checked with, fitted on data from outside the project.
+
+Sources: iris, wine and diabetes ship with scikit-learn (`sklearn.datasets`);
+the Spector and Mazzeo program-effectiveness data ships with statsmodels
+(`statsmodels.api.datasets.spector`); the compressor readings are the project's
+own invented demo data (fixed seed, known true coefficients).
+
+Each entry gives the fitted scikit-learn estimator, the frame it was fitted on,
+and the frozen model. `build(name)` is cached per process.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+import pandas as pd
+
+import scorewright
+from scorewright.demo_data import compressor_readings
+from scorewright.model import FrozenModel
+
+NUMERIC = ["discharge_temp_c", "suction_pressure_kpa", "motor_current_a", "vibration_mm_s",
+           "hours_since_service", "ambient_temp_c", "door_open_min_per_h"]
+CATEGORICAL = ["refrigerant", "site_zone"]
+
+
+@dataclass(frozen=True)
+class TestModel:
+    name: str
+    estimator: object
+    frame: pd.DataFrame       # the inputs it was fitted on (feature columns only)
+    target: pd.Series
+    model: FrozenModel
+
+
+def _sk():
+    from sklearn import compose, impute, linear_model, pipeline, preprocessing
+    return compose, impute, linear_model, pipeline, preprocessing
+
+
+def _readings(n=1500):
+    return compressor_readings(n=n, seed=20261201)
+
+
+def fault_binary() -> TestModel:
+    """Imputation, standardization and one-hot categories, binary logistic (the demo's shape)."""
+    compose, impute, lm, pl, pp = _sk()
+    df = _readings()
+    X, y = df[NUMERIC + CATEGORICAL], df["fault_30d"]
+    prep = compose.ColumnTransformer([
+        ("num", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
+                                 pp.StandardScaler()), NUMERIC),
+        ("cat", pl.make_pipeline(impute.SimpleImputer(strategy="most_frequent"),
+                                 pp.OneHotEncoder(handle_unknown="ignore")), CATEGORICAL),
+    ])
+    est = pl.make_pipeline(prep, lm.LogisticRegression(max_iter=5000)).fit(X, y)
+    return TestModel("fault_binary", est, X, y, scorewright.freeze(est, name="fault_binary"))
+
+
+def fault_type_multinomial() -> TestModel:
+    """Multinomial logistic over four fault types, with categorical inputs."""
+    compose, impute, lm, pl, pp = _sk()
+    df = _readings()
+    X, y = df[NUMERIC + CATEGORICAL], df["fault_type"]
+    prep = compose.ColumnTransformer([
+        ("num", pl.make_pipeline(impute.SimpleImputer(strategy="mean"),
+                                 pp.StandardScaler()), NUMERIC),
+        ("cat", pl.make_pipeline(impute.SimpleImputer(strategy="constant", fill_value="R404A"),
+                                 pp.OneHotEncoder(handle_unknown="ignore", drop="first")),
+         ["refrigerant"]),
+    ], remainder="drop")
+    est = pl.make_pipeline(prep, lm.LogisticRegression(max_iter=5000, C=0.5)).fit(X, y)
+    return TestModel("fault_type", est, X, y, scorewright.freeze(est, name="fault_type"))
+
+
+def iris_multinomial() -> TestModel:
+    from sklearn.datasets import load_iris
+    _, _, lm, pl, pp = _sk()
+    X, y = load_iris(return_X_y=True, as_frame=True)
+    est = pl.make_pipeline(pp.StandardScaler(), lm.LogisticRegression(max_iter=5000)).fit(X, y)
+    return TestModel("iris", est, X, y, scorewright.freeze(est, name="iris"))
+
+
+def wine_multinomial() -> TestModel:
+    from sklearn.datasets import load_wine
+    _, _, lm, pl, pp = _sk()
+    X, y = load_wine(return_X_y=True, as_frame=True)
+    est = pl.make_pipeline(pp.RobustScaler(), lm.LogisticRegression(max_iter=5000, C=0.3)).fit(X, y)
+    return TestModel("wine", est, X, y, scorewright.freeze(est, name="wine"))
+
+
+def alarms_poisson() -> TestModel:
+    """Log-link count model: alarms per week."""
+    compose, impute, lm, pl, pp = _sk()
+    df = _readings()
+    X, y = df[NUMERIC + ["site_zone"]], df["alarms_per_week"]
+    prep = compose.ColumnTransformer([
+        ("num", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
+                                 pp.StandardScaler()), NUMERIC),
+        ("cat", pp.OneHotEncoder(handle_unknown="ignore"), ["site_zone"]),
+    ])
+    est = pl.make_pipeline(prep, lm.PoissonRegressor(alpha=1e-4, max_iter=1000)).fit(X, y)
+    return TestModel("alarms_poisson", est, X, y, scorewright.freeze(est, name="alarms_poisson"))
+
+
+def diabetes_ridge() -> TestModel:
+    from sklearn.datasets import load_diabetes
+    _, _, lm, pl, pp = _sk()
+    X, y = load_diabetes(return_X_y=True, as_frame=True)
+    est = pl.make_pipeline(pp.MinMaxScaler(clip=True), lm.Ridge(alpha=0.5)).fit(X, y)
+    return TestModel("diabetes_ridge", est, X, y, scorewright.freeze(est, name="diabetes_ridge"))
+
+
+def spector_logit() -> TestModel:
+    """Unpenalized logit on the Spector and Mazzeo data shipped with statsmodels."""
+    import statsmodels.api as sm
+    _, _, lm, _, _ = _sk()
+    data = sm.datasets.spector.load_pandas()
+    X, y = data.exog[["GPA", "TUCE", "PSI"]], data.endog
+    est = lm.LogisticRegression(C=np.inf, tol=1e-12, max_iter=100000).fit(X, y)
+    return TestModel("spector", est, X, y, scorewright.freeze(est, name="spector"))
+
+
+def mixed_scalers() -> TestModel:
+    """No imputer (missing numeric -> design value 0), MaxAbs and Robust scaling, integer
+    categories with drop='first', an infrequent-category group, and a passthrough column."""
+    compose, _, lm, pl, pp = _sk()
+    rng = np.random.default_rng(5)
+    n = 800
+    X = pd.DataFrame({
+        "load_pct": rng.uniform(10, 100, n),
+        "defrost_cycles": rng.poisson(3, n).astype(float),
+        "shift_code": rng.choice([1, 2, 3], n),
+        "fan_model": rng.choice(["FA", "FB", "FC", "FD", "FE"], n, p=(0.5, 0.3, 0.15, 0.03, 0.02)),
+        "age_years": rng.uniform(0, 15, n),
+    })
+    logit = 0.03 * (X.load_pct - 50) + 0.2 * X.defrost_cycles - 0.5 * (X.shift_code == 3) \
+        + 0.8 * (X.fan_model == "FC") + 0.1 * X.age_years - 1.0
+    y = (rng.uniform(size=n) < 1 / (1 + np.exp(-logit))).astype(int)
+    prep = compose.ColumnTransformer([
+        ("mx", pp.MaxAbsScaler(), ["load_pct"]),
+        ("rb", pp.RobustScaler(), ["defrost_cycles"]),
+        ("shift", pp.OneHotEncoder(drop="first", handle_unknown="ignore"), ["shift_code"]),
+        ("fan", pp.OneHotEncoder(min_frequency=30, handle_unknown="infrequent_if_exist"),
+         ["fan_model"]),
+    ], remainder="passthrough")
+    est = pl.make_pipeline(prep, lm.LogisticRegression(max_iter=5000)).fit(X, y)
+    return TestModel("mixed_scalers", est, X, y, scorewright.freeze(est, name="mixed_scalers"))
+
+
+def hostile_names() -> TestModel:
+    """Feature names, levels, labels and a model name that try to break out of every target's
+    syntax: quotes, comment markers, semicolons, backslashes, newlines, keywords, unicode."""
+    compose, impute, lm, pl, pp = _sk()
+    rng = np.random.default_rng(11)
+    n = 400
+    names = ['a"b', "it's; DROP TABLE t; --", "*/ #define x", "x\\y\nz", "SELECT", "select",
+             "Ümlaut ñ 温度"]
+    X = pd.DataFrame({names[0]: rng.normal(size=n), names[1]: rng.normal(size=n),
+                      names[2]: rng.normal(size=n), names[3]: rng.normal(size=n),
+                      names[4]: rng.normal(size=n), names[5]: rng.normal(size=n),
+                      names[6]: rng.choice(["o'k", 'q"t', "*/", "--", "\\", "é\n"], n)})
+    X.iloc[::9, 0] = np.nan
+    y = np.where(X[names[0]].fillna(0) + X[names[4]] - X[names[5]] > 0, "yes'\"", "no */ --")
+    prep = compose.ColumnTransformer([
+        ("num", pl.make_pipeline(impute.SimpleImputer(), pp.StandardScaler()), names[:6]),
+        ("cat", pp.OneHotEncoder(handle_unknown="ignore"), [names[6]]),
+    ])
+    est = pl.make_pipeline(prep, lm.LogisticRegression(max_iter=5000)).fit(X, y)
+    return TestModel("hostile", est, X, pd.Series(y),
+                     scorewright.freeze(est, name="hostile'; DROP TABLE x; --*/"))
+
+
+BUILDERS = {
+    "fault_binary": fault_binary,
+    "fault_type": fault_type_multinomial,
+    "iris": iris_multinomial,
+    "wine": wine_multinomial,
+    "alarms_poisson": alarms_poisson,
+    "diabetes_ridge": diabetes_ridge,
+    "spector": spector_logit,
+    "mixed_scalers": mixed_scalers,
+    "hostile": hostile_names,
+}
+
+
+@lru_cache(maxsize=None)
+def build(name: str) -> TestModel:
+    return BUILDERS[name]()
