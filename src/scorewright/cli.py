@@ -103,19 +103,52 @@ def show(model_file):
     click.echo(describe_model(_load(model_file)), nl=False)
 
 
+def _parse_columns(pairs) -> dict[str, str]:
+    out = {}
+    for pair in pairs:
+        feature, sep, column = pair.partition("=")
+        if not sep or not feature or not column:
+            raise ScorewrightError(f"--column {pair!r}: expected FEATURE=COLUMN")
+        out[feature] = column
+    return out
+
+
 @cli.command()
 @click.argument("model_file", type=click.Path(dir_okay=False))
-@click.option("--target", "target", required=True, help="Target to emit: " + "python.")
+@click.option("--target", "target", required=True,
+              help="Target family: python, sql, c or onnx.")
 @click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
               help="Directory to write the artifact(s) into.")
+@click.option("--dialect", help="sql: sqlite, postgres, duckdb (or spark).")
+@click.option("--table", help="sql: input table name (default: input).")
+@click.option("--keep", help="sql: comma-separated input columns to return (default: all).")
+@click.option("--column", "columns", multiple=True, metavar="FEATURE=COLUMN",
+              help="sql: read FEATURE from COLUMN (repeatable).")
+@click.option("--form", help="sql: select, view or function.")
+@click.option("--prefix", help="c: symbol and file prefix (default: from the model name).")
+@click.option("--precision", type=click.Choice(["double", "float"]),
+              help="c, onnx: arithmetic precision (default double).")
+@click.option("--inputs", "input_layout", type=click.Choice(["per-feature", "matrix"]),
+              help="onnx: one input per feature, or one [N, F] matrix.")
+@click.option("--decision-only", is_flag=True, help="c: emit only the class decision (no exp).")
+@click.option("--portable-exp", is_flag=True, help="c: carry an exp of its own (no libm).")
+@click.option("--report", is_flag=True, help="c: print flash, RAM and stack of the scorer.")
 @click.option("--force", is_flag=True, help="Overwrite existing artifacts.")
-def emit(model_file, target, outdir, force):
-    """Emit the scoring code for one target."""
+def emit(model_file, target, outdir, dialect, table, keep, columns, form, prefix, precision,
+         input_layout, decision_only, portable_exp, report, force):
+    """Emit the scoring code for one target family into OUTDIR."""
     from .emit import emitter
     from .files import check_writable, write_atomic
 
+    options = {
+        "dialect": dialect, "table": table, "form": form, "prefix": prefix,
+        "keep": None if keep is None else [c.strip() for c in keep.split(",")],
+        "columns": _parse_columns(columns), "precision": precision, "inputs": input_layout,
+        "decision_only": decision_only, "portable_exp": portable_exp, "report": report,
+    }
+    options = {k: v for k, v in options.items() if v not in (None, False, {})}
     model = _load(model_file)
-    artifacts = emitter(target)(model, {})
+    artifacts = emitter(target)(model, options)
     out = Path(outdir)
     for art in artifacts:
         check_writable(out / art.name, force)

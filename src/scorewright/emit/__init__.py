@@ -29,3 +29,13 @@ def emitter(target: str):
     if target not in EMITTERS:
         raise ScorewrightError(f"unknown target {target!r}; known: {', '.join(sorted(EMITTERS))}")
     return import_module(EMITTERS[target]).emit
+
+
+def reject_options(target: str, options: dict, allowed: tuple[str, ...]) -> None:
+    """Refuse options that mean nothing for this target, naming the first one."""
+    from ..errors import ScorewrightError
+
+    for key in options:
+        if key not in allowed:
+            flag = "--" + key.replace("_", "-")
+            raise ScorewrightError(f"{flag} does not apply to --target {target}")

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from ..model import FrozenModel
 from ..plan import Plan, build_plan, output_columns
-from . import Artifact
+from . import Artifact, reject_options
 from .templating import render
 
 # plan scaling op -> Python statement
@@ -27,6 +27,7 @@ def literal(x: float) -> str:
 
 
 def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
+    reject_options("python", options or {}, ())
     plan = build_plan(model)
     text = render("python/scorer.py.j2", **context(plan))
     return [Artifact(f"{plan.stem}.py", text.encode("utf-8"))]

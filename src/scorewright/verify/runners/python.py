@@ -1,0 +1,76 @@
+"""Python artifacts run in a separate `python -I -S` process (no site-packages), fed a CSV."""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+import platform
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+
+from ...errors import ScorewrightError
+from ...model import FrozenModel
+from ...plan import build_plan, output_columns
+from . import RunOutput
+
+
+def csv_cell(value) -> str:
+    """A raw value as CSV text that the scorer reads back to the same value."""
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return repr(value) if math.isfinite(value) else {"nan": "nan", "inf": "inf",
+                                                         "-inf": "-inf"}[repr(value)]
+    return str(value)
+
+
+def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict) -> RunOutput:
+    plan = build_plan(model)
+    script = Path(artifact_dir) / f"{plan.stem}.py"
+    if not script.is_file():
+        raise ScorewrightError(f"python: artifact {script} is missing")
+    names = list(plan.feature_names)
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(names)
+    for row in rows:
+        writer.writerow([csv_cell(row.get(n)) for n in names])
+    interpreter = options.get("interpreter") or sys.executable
+    proc = subprocess.run([interpreter, "-I", "-S", str(script)], input=buf.getvalue(),
+                          capture_output=True, text=True, encoding="utf-8")
+    if proc.returncode != 0:
+        raise ScorewrightError(f"python: the artifact failed: {proc.stderr.strip()[-300:]}")
+    reader = csv.reader(io.StringIO(proc.stdout))
+    header = next(reader)
+    cols = output_columns(plan)
+    index = {c: header.index(c) for c in cols}
+    out_rows = list(reader)
+    return outputs_from_table(plan, [[r[index[c]] for c in cols] for r in out_rows],
+                              runtime=f"CPython {platform.python_version()} -I -S")
+
+
+def outputs_from_table(plan, table, runtime: str) -> RunOutput:
+    """RunOutput from rows of output-column values (text or numbers) in output_columns order."""
+    n = len(table)
+    k = plan.n_outputs
+    if plan.task == "binary":
+        m = np.array([float(r[0]) for r in table]).reshape(n, 1)
+        p1 = np.array([float(r[1]) for r in table])
+        labels = [str(c) for c in plan.classes]
+        cls = np.array([labels.index(str(r[2])) if str(r[2]) in labels else -1 for r in table])
+        return RunOutput(runtime, m, np.stack([1.0 - p1, p1], axis=1) if n else np.empty((0, 2)),
+                         cls)
+    if plan.task == "multiclass":
+        m = np.array([[float(x) for x in r[:k]] for r in table]).reshape(n, k)
+        p = np.array([[float(x) for x in r[k:2 * k]] for r in table]).reshape(n, k)
+        labels = [str(c) for c in plan.classes]
+        cls = np.array([labels.index(str(r[2 * k])) if str(r[2 * k]) in labels else -1
+                        for r in table])
+        return RunOutput(runtime, m, p, cls)
+    m = np.array([float(r[0]) for r in table]).reshape(n, 1)
+    v = np.array([float(r[1]) for r in table])
+    return RunOutput(runtime, m, value=v)
