@@ -157,6 +157,94 @@ def emit(model_file, target, outdir, dialect, table, keep, columns, form, prefix
         click.echo(f"wrote {out / art.name}")
 
 
+def _harness_options(postgres_dsn):
+    return {"sql": {"dsn": postgres_dsn}} if postgres_dsn else {}
+
+
+def _print_summary(report, outdir: Path | None = None):
+    from .verify.harness import summary_lines
+
+    for line in summary_lines(report):
+        click.echo(line)
+    if outdir is not None:
+        click.echo(f"agreement report: {outdir / 'agreement.html'} (and agreement.json)")
+    click.echo("all targets agree" if report.ok else "DISAGREEMENT: see the agreement report")
+
+
+def _check_requested(profiles):
+    for profile in profiles:
+        lacks = profile.missing_requirements()
+        if lacks:
+            raise ScorewrightError(f"target {profile.name!r} cannot run here: this machine "
+                                   f"lacks {', '.join(lacks)}")
+
+
+_target_help = "Target profile name or .toml file (repeatable; default: all available)."
+
+
+@cli.command()
+@click.argument("model_file", type=click.Path(dir_okay=False))
+@click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
+              help="Directory for the artifacts (one sub-directory per target) and reports.")
+@click.option("--target", "targets", multiple=True, help=_target_help)
+@click.option("--data", type=click.Path(dir_okay=False), help="Your own rows to check (CSV).")
+@click.option("--random", "n_random", default=1000, show_default=True, type=click.IntRange(0),
+              help="Random rows drawn from the frozen schema.")
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed for random rows.")
+@click.option("--postgres-dsn", help="Use this PostgreSQL server instead of starting one.")
+@click.option("--force", is_flag=True, help="Overwrite existing artifacts.")
+def build(model_file, outdir, targets, data, n_random, seed, postgres_dsn, force):
+    """Emit every target and verify that each agrees with the frozen model."""
+    from .verify.harness import build_targets, select_profiles
+
+    model = _load(model_file)
+    if targets:
+        _check_requested(select_profiles(targets, only_available=False))
+    report = build_targets(model, Path(outdir), targets=list(targets) or None, force=force,
+                           data=Path(data) if data else None, n_random=n_random, seed=seed,
+                           options=_harness_options(postgres_dsn))
+    _print_summary(report, Path(outdir))
+    return 0 if report.ok else 1
+
+
+@cli.command()
+@click.argument("model_file", type=click.Path(dir_okay=False))
+@click.argument("artifact_dir", type=click.Path(file_okay=False))
+@click.option("--target", "targets", multiple=True,
+              help="Target profile name or .toml file (repeatable; default: every target "
+                   "found in ARTIFACT_DIR).")
+@click.option("--data", type=click.Path(dir_okay=False), help="Your own rows to check (CSV).")
+@click.option("--random", "n_random", default=1000, show_default=True, type=click.IntRange(0),
+              help="Random rows drawn from the frozen schema.")
+@click.option("--seed", default=0, show_default=True, type=int, help="Seed for random rows.")
+@click.option("--postgres-dsn", help="Use this PostgreSQL server instead of starting one.")
+@click.option("--report/--no-report", default=True, show_default=True,
+              help="Write agreement.json and agreement.html into ARTIFACT_DIR.")
+def verify(model_file, artifact_dir, targets, data, n_random, seed, postgres_dsn, report):
+    """Check artifacts already on disk against the frozen model (exit 1 on disagreement)."""
+    from .verify.harness import select_profiles, verify_targets, write_reports
+
+    model = _load(model_file)
+    root = Path(artifact_dir)
+    if not root.is_dir():
+        raise ScorewrightError(f"{root}: no such directory")
+    if targets:
+        profiles = select_profiles(targets, only_available=False)
+    else:
+        profiles = [p for p in select_profiles(None, only_available=False)
+                    if (root / p.name).is_dir()]
+        if not profiles:
+            raise ScorewrightError(f"{root}: no target sub-directories found (expected "
+                                   "the layout `scorewright build` writes)")
+    _check_requested(profiles)
+    result = verify_targets(model, root, profiles, data=Path(data) if data else None,
+                            n_random=n_random, seed=seed, options=_harness_options(postgres_dsn))
+    if report:
+        write_reports(result, root)
+    _print_summary(result, root if report else None)
+    return 0 if result.ok else 1
+
+
 @cli.command()
 @click.option("-o", "--output", "outdir", default="scorewright-demo", show_default=True,
               type=click.Path(file_okay=False), help="Directory for everything the demo writes.")

@@ -1,0 +1,235 @@
+"""The rows verify checks: edge cases derived from the model, random rows from its schema,
+and the user's own rows, all as typed raw values every runtime can hold.
+
+A typed row maps each feature name to: numeric, a float (NaN and +-inf
+included) or None; categorical with text levels, a str or None; with integer
+levels, an int or None.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import random
+import struct
+from pathlib import Path
+
+from ..errors import ScorewrightError
+from ..plan import Plan
+from ..reference import score_row
+from ..values import MISSING_CODE, category_code, numeric_value
+
+UNSEEN_TEXT = "<unseen level>"
+
+# Raw numeric values every numeric feature is tried with (one feature at a time).
+SPECIAL_NUMBERS = (
+    None, math.nan, math.inf, -math.inf, 0.0, -0.0,
+    5e-324, -5e-324, 2.2250738585072014e-308, -2.2250738585072014e-308,
+    1e308, -1e308, 1.7976931348623157e308, -1.7976931348623157e308, 1e15, -1e15,
+)
+# Margins the plan treats specially: the exp guards and far beyond.
+MARGIN_TARGETS = (0.0, 1.0, -1.0, 36.0, -36.0, 87.0, -87.0, 88.0, -88.0, 708.0, -708.0,
+                  709.0, -709.0, 745.0, -745.0, 1000.0, -1000.0, 1e6, -1e6)
+
+
+def inverse_affine(inp, z: float) -> float | None:
+    """The raw value whose scaling steps give design value z (None if not invertible)."""
+    x = z
+    for step in reversed(inp.steps):
+        if step.op == "subtract":
+            x = x + step.value
+        elif step.op == "add":
+            x = x - step.value
+        elif step.op == "multiply":
+            if step.value == 0.0:
+                return None
+            x = x / step.value
+        else:
+            x = x * step.value
+        if not math.isfinite(x):
+            return None
+    return x
+
+
+def typical_value(inp) -> float:
+    x = inverse_affine(inp, 0.0)
+    if x is None:
+        x = inp.fill if inp.fill is not None else 0.0
+    return x
+
+
+def unseen_value(inp):
+    if inp.integer_levels:
+        return max(inp.levels) + 1
+    return UNSEEN_TEXT if UNSEEN_TEXT not in inp.levels else UNSEEN_TEXT + "!"
+
+
+def base_row(plan: Plan) -> dict:
+    row = {}
+    for inp in plan.inputs:
+        if inp.kind == "numeric":
+            row[inp.name] = typical_value(inp)
+        else:
+            row[inp.name] = inp.levels[inp.fill_code if inp.fill_code is not None else 0]
+    return row
+
+
+def edge_rows(plan: Plan) -> list[tuple[str, dict]]:
+    """Named edge cases: every special value of every input, and margins at the cut,
+    at the exp guards and far beyond."""
+    base = base_row(plan)
+    out = [("base row", dict(base))]
+    all_missing = {inp.name: None for inp in plan.inputs}
+    out.append(("every input missing", all_missing))
+    for inp in plan.inputs:
+        values = []
+        if inp.kind == "numeric":
+            values = list(SPECIAL_NUMBERS) + [inp.bound, -inp.bound,
+                                              math.nextafter(inp.bound, math.inf),
+                                              math.nextafter(-inp.bound, -math.inf)]
+            if inp.fill is not None:
+                values.append(inp.fill)
+            if inp.clip is not None:
+                for edge in inp.clip:
+                    x = inverse_affine(inp, edge)
+                    if x is not None:
+                        values += [x, math.nextafter(x, math.inf), math.nextafter(x, -math.inf)]
+        else:
+            values = list(inp.levels) + [None, unseen_value(inp)]
+            if not inp.integer_levels:
+                values.append("")
+        for value in values:
+            row = dict(base)
+            row[inp.name] = value
+            out.append((f"{inp.name!r} = {value!r}", row))
+    out.extend(_margin_rows(plan, base))
+    return out
+
+
+def _lever(plan: Plan):
+    """The numeric input that moves margin 0 the most per design unit (no clip)."""
+    best, best_w = None, 0.0
+    for term in plan.terms:
+        inp = plan.inputs[term.input]
+        if term.kind == "numeric" and inp.clip is None and abs(term.weights[0]) > best_w:
+            best, best_w = inp, abs(term.weights[0])
+    return best
+
+
+def _ordered(x: float) -> int:
+    i = struct.unpack("<q", struct.pack("<d", x))[0]
+    return i if i >= 0 else -(1 << 63) - i
+
+
+def _from_ordered(i: int) -> float:
+    if i < 0:
+        i = -(1 << 63) - i
+    return struct.unpack("<d", struct.pack("<q", i))[0]
+
+
+def _margin_rows(plan: Plan, base: dict) -> list[tuple[str, dict]]:
+    lever = _lever(plan)
+    if lever is None:
+        return []
+
+    def margin_at(x: float) -> float:
+        row = dict(base)
+        row[lever.name] = x
+        return score_row(plan, row).margins[0]
+
+    lo, hi = -lever.bound, lever.bound
+    increasing = margin_at(hi) >= margin_at(lo)
+    targets = list(MARGIN_TARGETS)
+    if plan.cut is not None and plan.cut not in targets:
+        targets.insert(0, plan.cut)
+    out = []
+    for target in targets:
+        # Bisect in the ordering of doubles for the last x whose margin is <= target.
+        a, b = _ordered(lo), _ordered(hi)
+        fa = margin_at(lo) if increasing else -margin_at(lo)
+        goal = target if increasing else -target
+        if not fa <= goal:
+            continue
+        while b - a > 1:
+            mid = (a + b) // 2
+            fm = margin_at(_from_ordered(mid))
+            if (fm if increasing else -fm) <= goal:
+                a = mid
+            else:
+                b = mid
+        for i in (a - 1, a, b, b + 1):
+            x = _from_ordered(i)
+            if not -lever.bound <= x <= lever.bound:
+                continue
+            row = dict(base)
+            row[lever.name] = x
+            out.append((f"margin near {target!r} ({lever.name!r} = {x!r})", row))
+    return out
+
+
+def random_rows(plan: Plan, n: int, seed: int = 0) -> list[dict]:
+    """Rows drawn from the frozen schema: design values about N(0, 1.5^2) where scaling
+    can be inverted, some missing values and unseen levels."""
+    rng = random.Random(seed)
+    rows = []
+    for _ in range(n):
+        row = {}
+        for inp in plan.inputs:
+            u = rng.random()
+            if inp.kind == "numeric":
+                if u < 0.04:
+                    row[inp.name] = None
+                elif u < 0.05:
+                    row[inp.name] = math.nan
+                else:
+                    x = inverse_affine(inp, rng.gauss(0.0, 1.5))
+                    if x is None:
+                        x = typical_value(inp) + rng.gauss(0.0, 1.0)
+                    row[inp.name] = x
+            else:
+                if u < 0.04:
+                    row[inp.name] = None
+                elif u < 0.07:
+                    row[inp.name] = unseen_value(inp)
+                else:
+                    row[inp.name] = rng.choice(inp.levels)
+        rows.append(row)
+    return rows
+
+
+def typed_row(plan: Plan, raw: dict) -> dict:
+    """A row of raw values (e.g. CSV text) as the typed values every runtime can hold,
+    without changing what the plan makes of it."""
+    out = {}
+    for inp in plan.inputs:
+        value = raw.get(inp.name)
+        if inp.kind == "numeric":
+            out[inp.name] = value if isinstance(value, float) else numeric_value(value)
+            continue
+        code = category_code(inp.levels, value)
+        if code == MISSING_CODE:
+            out[inp.name] = None
+        elif code >= 0:
+            out[inp.name] = inp.levels[code]
+        else:
+            out[inp.name] = unseen_value(inp)
+    return out
+
+
+def read_csv_rows(plan: Plan, path: Path) -> list[dict]:
+    try:
+        with open(path, newline="", encoding="utf-8") as handle:
+            reader = csv.DictReader(handle)
+            if reader.fieldnames is None:
+                raise ScorewrightError(f"{path}: empty file (no header line)")
+            absent = [n for n in plan.feature_names if n not in reader.fieldnames]
+            if len(absent) == len(plan.feature_names):
+                raise ScorewrightError(f"{path}: none of the model's features is a column "
+                                       f"(first feature: {plan.feature_names[0]!r})")
+            return [typed_row(plan, r) for r in reader]
+    except FileNotFoundError:
+        raise ScorewrightError(f"{path}: no such file") from None
+    except UnicodeDecodeError:
+        raise ScorewrightError(f"{path}: not UTF-8 text") from None
+    except csv.Error as exc:
+        raise ScorewrightError(f"{path}: not a readable CSV ({exc})") from None
