@@ -19,12 +19,12 @@ from . import RunOutput
 
 
 def csv_cell(value) -> str:
-    """A raw value as CSV text that the scorer reads back to the same value."""
-    if value is None:
+    """A raw value as CSV text that the scorer reads the same way. NaN becomes the empty
+    field: the text "nan" would be an unseen level in a categorical column."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
         return ""
     if isinstance(value, float):
-        return repr(value) if math.isfinite(value) else {"nan": "nan", "inf": "inf",
-                                                         "-inf": "-inf"}[repr(value)]
+        return repr(value)
     return str(value)
 
 
