@@ -94,6 +94,77 @@ def freeze(pickle_file, output, name, feature_names, force):
                f"to {out}\nsha256 {model.sha256}")
 
 
+def _name_list(option: str, text: str | None) -> list[str] | None:
+    if text is None:
+        return None
+    names = [n.strip() for n in text.split(",")]
+    if any(n == "" for n in names):
+        raise ScorewrightError(f"{option}: empty name in the list")
+    return names
+
+
+@cli.command()
+@click.argument("data", type=click.Path(dir_okay=False))
+@click.option("-o", "--output", required=True, type=click.Path(dir_okay=False),
+              help="Where to write the frozen model (JSON).")
+@click.option("--label", required=True, help="The column to predict.")
+@click.option("--positive", help="The positive class of a binary label.")
+@click.option("--features", help="Comma-separated feature columns (default: all others).")
+@click.option("--drop", help="Comma-separated columns to leave out.")
+@click.option("--categorical", help="Comma-separated columns to treat as categories.")
+@click.option("--numeric", help="Comma-separated columns to treat as numbers.")
+@click.option("--max-levels", default=30, show_default=True,
+              help="Most levels a categorical column may have.")
+@click.option("--model", "model_kind",
+              type=click.Choice(["logistic", "multinomial", "linear", "poisson"]),
+              help="Model family (default: from the label).")
+@click.option("--penalty", default="l2", show_default=True,
+              type=click.Choice(["l2", "l1", "elasticnet", "none"]))
+@click.option("--cv", default=5, show_default=True, help="Cross-validation folds.")
+@click.option("--class-weight", type=click.Choice(["balanced"]),
+              help="Weight classes inversely to their frequency.")
+@click.option("--cut", help="Binary decision cut: youden, f1, cost:FP/FN or a probability.")
+@click.option("--test-fraction", default=0.25, show_default=True,
+              help="Share of rows held out as the test part (0: none).")
+@click.option("--seed", default=0, show_default=True, help="Seed for the splits.")
+@click.option("--name", help="Model name (default: the label column).")
+@click.option("--report", "report_dir", type=click.Path(file_okay=False),
+              help="Write report.html into this directory.")
+@click.option("--force", is_flag=True, help="Overwrite existing output files.")
+def fit(data, output, label, positive, features, drop, categorical, numeric, max_levels,
+        model_kind, penalty, cv, class_weight, cut, test_fraction, seed, name, report_dir,
+        force):
+    """Fit and validate a model from a CSV or Parquet file, and freeze it."""
+    from .files import check_writable, write_atomic
+    from .fit import FitOptions, fit_file
+    from .fit.console import result_lines
+
+    out = Path(output)
+    check_writable(out, force)
+    report_path = None if report_dir is None else Path(report_dir) / "report.html"
+    if report_path is not None:
+        check_writable(report_path, force)
+    opts = FitOptions(
+        label=label, positive=positive, features=_name_list("--features", features),
+        drop=_name_list("--drop", drop), categorical=_name_list("--categorical", categorical),
+        numeric=_name_list("--numeric", numeric), max_levels=max_levels, model=model_kind,
+        penalty=penalty, cv=cv, class_weight=class_weight, cut=cut, seed=seed,
+        test_fraction=test_fraction, name=name)
+    result = fit_file(data, opts, echo=click.echo)
+    for line in result_lines(result):
+        click.echo(line)
+    report = None
+    if report_path is not None:
+        from .fit.report import render_report
+
+        report = render_report(result)
+    result.model.write(out, force=force)
+    click.echo(f"froze {result.model.name} to {out}\nsha256 {result.model.sha256}")
+    if report is not None:
+        write_atomic(report_path, report, force=force)
+        click.echo(f"report: {report_path}")
+
+
 @cli.command()
 @click.argument("model_file", type=click.Path(dir_okay=False))
 def show(model_file):

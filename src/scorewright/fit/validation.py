@@ -1,0 +1,200 @@
+"""Fit and validate honestly: held-out test part, cross-validation on the rest.
+
+1. A test part (stratified by label for classifiers) is set aside and touched once.
+2. On the training part, K-fold cross-validation (stratified for classifiers)
+   scores every penalty strength of the grid by out-of-fold log loss (squared
+   error for linear, Poisson deviance for poisson); the best is chosen.
+3. The decision cut is chosen from the pooled out-of-fold predictions.
+4. The chosen model is refitted on the whole training part and frozen; the
+   test part is scored once by the frozen model's reference evaluator, so the
+   test metrics describe exactly what will be deployed.
+"""
+
+from __future__ import annotations
+
+import sys
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import ScorewrightError
+from . import diagnostics, metrics
+from .cut import CutRule, choose_threshold
+from .labels import Label
+from .pipeline import Spec, design_names, make_pipeline, reference_levels, standardization
+from .pipeline import strength_grid
+
+
+@dataclass
+class Validation:
+    """Everything the summary, the report and the provenance need."""
+
+    pipeline: object = None
+    grid: list = field(default_factory=list)
+    cv_loss: list = field(default_factory=list)      # (mean, sd) per grid strength
+    loss_name: str = ""
+    chosen: float | None = None
+    threshold: float | None = None                   # binary: p*
+    cv: dict = field(default_factory=dict)           # metric -> {mean, sd}
+    cv_confusion: list | None = None                 # pooled out-of-fold, at the cut
+    oof_y: np.ndarray | None = None
+    oof_pred: np.ndarray | None = None
+    n_train: int = 0
+    n_test: int = 0
+    train_index: np.ndarray | None = None
+    test_index: np.ndarray | None = None
+    notes: list = field(default_factory=list)
+    cv_fits: int = 0
+    cv_unconverged: int = 0
+
+
+def _loss(spec: Spec, y, pred) -> float:
+    if spec.classifier:
+        return metrics.log_loss(y, pred)
+    if spec.model == "poisson":
+        return float(np.mean(metrics.poisson_deviance(y, pred)))
+    return float(np.mean((np.asarray(y) - pred) ** 2))
+
+
+def _fit(pipe, x, y) -> bool:
+    """Fit; False when the solver warned that it did not converge."""
+    from sklearn.exceptions import ConvergenceWarning
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        pipe.fit(x, y)
+    return not any(issubclass(w.category, ConvergenceWarning) for w in caught)
+
+
+def predict(pipe, spec: Spec, x) -> np.ndarray:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # unseen levels in a fold: encoded as zeros, by design
+        if spec.classifier:
+            return pipe.predict_proba(x)
+        return pipe.predict(x)
+
+
+def _splits(spec: Spec, y, folds: int, test_fraction: float, seed: int):
+    from sklearn.model_selection import KFold, StratifiedKFold, train_test_split
+
+    index = np.arange(len(y))
+    strat = y if spec.classifier else None
+    if test_fraction > 0:
+        train, test = train_test_split(index, test_size=test_fraction, random_state=seed,
+                                       stratify=strat)
+        train, test = np.sort(train), np.sort(test)
+    else:
+        train, test = index, index[:0]
+    if spec.classifier:
+        counts = np.bincount(y[train], minlength=int(y.max()) + 1)
+        if counts.min() < folds:
+            raise ScorewrightError(
+                f"a class has only {counts.min()} rows in the training part; {folds}-fold "
+                "cross-validation needs at least one per fold (lower --cv or use more data)")
+        splitter = StratifiedKFold(n_splits=folds, shuffle=True, random_state=seed)
+        return train, test, list(splitter.split(train, y[train]))
+    if len(train) < 2 * folds:
+        raise ScorewrightError(f"{len(train)} training rows are too few for {folds}-fold "
+                               "cross-validation")
+    splitter = KFold(n_splits=folds, shuffle=True, random_state=seed)
+    return train, test, list(splitter.split(train))
+
+
+def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: int,
+             test_fraction: float, progress: bool = True) -> Validation:
+    import click
+
+    y = label.y
+    v = Validation(loss_name="log loss" if spec.classifier else
+                   "Poisson deviance" if spec.model == "poisson" else "squared error")
+    train, test, splits = _splits(spec, y, folds, test_fraction, spec.seed)
+    v.train_index, v.test_index = train, test
+    v.n_train, v.n_test = len(train), len(test)
+    x_train, y_train = x.iloc[train], y[train]
+    refs = reference_levels(schema, x_train)
+    v.grid = strength_grid(spec)
+    oof = {}
+    total = len(v.grid) * len(splits) + 1
+    bar = click.progressbar(length=total, label="cross-validation", file=sys.stderr,
+                            show_pos=True) if progress else None
+    try:
+        if bar is not None:
+            bar.__enter__()
+        for s, strength in enumerate(v.grid):
+            pred = None
+            losses = []
+            for tr, va in splits:
+                pipe = make_pipeline(schema, spec, strength, refs)
+                v.cv_fits += 1
+                v.cv_unconverged += not _fit(pipe, x_train.iloc[tr], y_train[tr])
+                p = predict(pipe, spec, x_train.iloc[va])
+                if pred is None:
+                    pred = np.zeros((len(train),) + p.shape[1:])
+                pred[va] = p
+                losses.append(_loss(spec, y_train[va], p))
+                if bar is not None:
+                    bar.update(1)
+            oof[s] = pred
+            v.cv_loss.append((float(np.mean(losses)), float(np.std(losses, ddof=1))))
+        best = int(np.argmin([m for m, _ in v.cv_loss]))
+        v.chosen = v.grid[best]
+        v.oof_y, v.oof_pred = y_train, oof[best]
+        v.pipeline = make_pipeline(schema, spec, v.chosen, refs)
+        converged = _fit(v.pipeline, x_train, y_train)
+        if bar is not None:
+            bar.update(1)
+    finally:
+        if bar is not None:
+            bar.__exit__(None, None, None)
+    if not converged:
+        v.notes.append("the solver did not converge when refitting the chosen model on the "
+                       "training part; its coefficients may be off")
+    note = diagnostics.convergence_note("cross-validation fits", v.cv_unconverged, v.cv_fits)
+    if note:
+        v.notes.append(note)
+    if spec.penalty != "none" and best in (0, len(v.grid) - 1):
+        side = "strongest" if (best == 0) == spec.classifier else "weakest"
+        v.notes.append(f"the chosen penalty strength is the {side} in the grid; the best "
+                       "value may lie beyond it")
+    _fold_metrics(v, spec, label, rule, splits)
+    return v
+
+
+def _fold_metrics(v: Validation, spec: Spec, label: Label, rule, splits) -> None:
+    y, pred = v.oof_y, v.oof_pred
+    if spec.model == "logistic":
+        v.threshold = choose_threshold(rule, y, pred[:, 1])
+    per_fold = []
+    for _, va in splits:
+        if spec.classifier:
+            per_fold.append(metrics.classification_metrics(y[va], pred[va],
+                                                           _decide(pred[va], v.threshold)))
+        else:
+            per_fold.append(metrics.regression_metrics(y[va], pred[va], spec.model))
+    v.cv = metrics.spread(per_fold)
+    if spec.classifier:
+        v.cv_confusion = metrics.confusion(y, _decide(pred, v.threshold),
+                                           len(label.classes)).tolist()
+
+
+def _decide(proba: np.ndarray, threshold: float | None) -> np.ndarray:
+    if proba.shape[1] == 2:
+        return (proba[:, 1] > threshold).astype(np.int64)
+    return np.argmax(proba, axis=1)
+
+
+def fitted_inference(v: Validation, schema, x, label: Label):
+    """The inference table of the refitted unpenalized logistic model."""
+    from .inference import logistic_inference
+
+    pipe = v.pipeline
+    x_train = x.iloc[v.train_index]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        design = np.asarray(pipe.named_steps["prepare"].transform(x_train), dtype=np.float64)
+    est = pipe.named_steps["estimate"]
+    means, scales = standardization(pipe, schema)
+    return logistic_inference(design, label.y[v.train_index], float(est.intercept_[0]),
+                              np.asarray(est.coef_[0], dtype=np.float64),
+                              design_names(pipe, schema), means, scales)
