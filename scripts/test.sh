@@ -4,5 +4,21 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 
+need=()
+have() { command -v "$1" >/dev/null 2>&1; }
+ls /usr/lib/postgresql/*/bin/initdb >/dev/null 2>&1 || have initdb || need+=(postgresql)
+have gcc || need+=(gcc)
+have valgrind || need+=(valgrind)
+have chromium || need+=(chromium)
+have arm-none-eabi-gcc || need+=(gcc-arm-none-eabi)
+dpkg -s libnewlib-arm-none-eabi >/dev/null 2>&1 || need+=(libnewlib-arm-none-eabi)
+have qemu-system-arm || need+=(qemu-system-arm)
+if [ ${#need[@]} -gt 0 ]; then
+  echo "installing system packages: ${need[*]}"
+  export DEBIAN_FRONTEND=noninteractive
+  apt-get update -qq
+  apt-get install -y -qq --no-install-recommends "${need[@]}" >/dev/null
+fi
+
 python3 -m pip install --quiet --disable-pip-version-check -e '.[test]'
 python3 -m pytest -q "$@"
