@@ -32,3 +32,12 @@ def postgres_dsn(tmp_path_factory):
         yield server.dsn
     finally:
         server.stop()
+
+
+def pytest_terminal_summary(terminalreporter):
+    from tally import COUNTS
+
+    if COUNTS:
+        terminalreporter.section("what the fault suites tried")
+        for what, n in sorted(COUNTS.items()):
+            terminalreporter.write_line(f"{n:>8}  {what}")

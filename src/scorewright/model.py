@@ -466,7 +466,7 @@ def _read_head(value, n_design) -> Head:
     r = _Reader
     r.obj(value, "head", ("task", "link", "classes", "intercepts", "coefficients", "cut"))
     task = value["task"]
-    if task not in TASK_LINKS:
+    if not isinstance(task, str) or task not in TASK_LINKS:
         raise ModelFileError(f"head.task: expected binary, multiclass or regression, got {task!r}")
     link = value["link"]
     if link not in TASK_LINKS[task]:

@@ -1,0 +1,139 @@
+"""A mutation corpus of model files: every one refused by every command with exit 2, one
+line naming the field, no traceback, and nothing written."""
+
+from __future__ import annotations
+
+import copy
+import json
+
+import pytest
+from click.testing import CliRunner
+
+import models
+import tally
+from scorewright.cli import cli
+from scorewright.model import canonical_sha256
+
+FREE_FORM = ("libraries", "inputs", "metrics", "notes", "created")
+
+
+def _good() -> dict:
+    return json.loads(models.build("mixed_scalers").model.to_json())
+
+
+def _paths(node, path=()):
+    """Every (path, value) below node, except inside free-form provenance fields."""
+    if isinstance(node, dict):
+        for k, v in node.items():
+            if len(path) == 1 and path[0] == "provenance" and k in FREE_FORM:
+                continue
+            yield path + (k,), v
+            yield from _paths(v, path + (k,))
+    elif isinstance(node, list):
+        for i, v in enumerate(node):
+            yield path + (i,), v
+            yield from _paths(v, path + (i,))
+
+
+def _set(doc, path, value=None, delete=False):
+    node = doc
+    for p in path[:-1]:
+        node = node[p]
+    if delete:
+        del node[path[-1]]
+    else:
+        node[path[-1]] = value
+
+
+def _sealed(doc):
+    doc["sha256"] = canonical_sha256(doc)
+    return json.dumps(doc)
+
+
+def _wrong_type(value):
+    if isinstance(value, bool) or value is None:
+        return "text"
+    if isinstance(value, (int, float)):
+        return "1.5"
+    if isinstance(value, str):
+        return [value]
+    if isinstance(value, list):
+        return {"not": "a list"}
+    return ["not", "an", "object"]
+
+
+def corpus():
+    good = _good()
+    text = json.dumps(good, indent=1)
+    structural = [i for i, ch in enumerate(text) if ch in "{[,:]}\""]
+    for i in structural[::3]:
+        yield f"truncated at byte {i}", text[:i], None
+    for path, _ in _paths(good):
+        if path == ("sha256",):
+            continue
+        if isinstance(path[-1], str):
+            d = copy.deepcopy(good)
+            _set(d, path, delete=True)
+            yield f"removed {path}", _sealed(d), str(path[-1])
+    for path, value in _paths(good):
+        if path in (("sha256",),):
+            continue
+        d = copy.deepcopy(good)
+        _set(d, path, _wrong_type(value))
+        key = next((p for p in reversed(path) if isinstance(p, str)), "")
+        yield f"wrong type at {path}", _sealed(d), key
+    for path, value in _paths(good):
+        if isinstance(value, float):
+            for bad in ("NaN", "Infinity", "-Infinity", "1e999"):
+                d = copy.deepcopy(good)
+                _set(d, path, "@@")
+                yield f"{bad} at {path}", _sealed(d).replace('"@@"', bad), None
+    d = copy.deepcopy(good)
+    d["head"]["coefficients"][0] = [0.5] * 200000
+    yield "huge coefficient array", _sealed(d), "coefficients"
+    yield "deeply nested", "{\"a\":" * 50000 + "1" + "}" * 50000, "JSON"
+    yield "duplicate key", text.replace('"task": "binary"', '"task": "binary", "task": "x"'), \
+        "duplicate"
+    d = copy.deepcopy(good)
+    d["head"]["intercepts"][0] += 1e-9
+    yield "stale hash", json.dumps(d), "sha256"
+    d = copy.deepcopy(good)
+    d["format_version"] = 99
+    yield "newer format version", _sealed(d), "format_version"
+    yield "empty file", "", "JSON"
+    yield "a JSON array", "[]", "object"
+
+
+CASES = list(corpus())
+COMMANDS = {
+    "show": lambda m, out: ["show", m],
+    "emit": lambda m, out: ["emit", m, "--target", "python", "-o", out],
+    "build": lambda m, out: ["build", m, "-o", out, "--target", "python", "--random", "3"],
+    "verify": lambda m, out: ["verify", m, out],
+}
+
+
+def test_corpus_is_large():
+    assert len(CASES) > 300
+
+
+@pytest.mark.parametrize("command", sorted(COMMANDS))
+def test_every_mutation_is_refused_by_every_command(command, tmp_path):
+    runner = CliRunner()
+    bad_file = tmp_path / "model.json"
+    out = tmp_path / "out"
+    if command == "verify":
+        out.mkdir()
+    failures = []
+    for case, text, needle in CASES:
+        bad_file.write_text(text)
+        result = runner.invoke(cli, COMMANDS[command](str(bad_file), str(out)))
+        err = result.stderr if hasattr(result, "stderr") else result.output
+        lines = err.strip().splitlines()
+        ok = (result.exit_code == 2 and len(lines) == 1 and lines[0].startswith("error: ")
+              and "Traceback" not in err and (needle is None or needle in lines[0]))
+        written = [p for p in out.rglob("*")] if out.exists() else []
+        if not ok or written:
+            failures.append((case, result.exit_code, lines[:2], written[:2]))
+    tally.add(f"model-file mutations refused by `{command}`", len(CASES) - len(failures))
+    assert not failures, failures[:5]
