@@ -94,9 +94,11 @@ def fit_table(table: Table, opts: FitOptions, progress: bool = True, echo=None) 
     echo = echo or (lambda line: None)
     _check_options(opts)
     frame = table.frame
+    label = None
+    if opts.label in frame.columns:  # label faults first: they matter more than columns
+        label = read_label(frame[opts.label], opts.label, opts.model, opts.positive)
     schema, x = infer_schema(frame, opts.label, opts.features, opts.drop, opts.categorical,
                              opts.numeric, opts.max_levels)
-    label = read_label(frame[opts.label], opts.label, opts.model, opts.positive)
     summary = summary_lines(schema, len(frame))
     if label.missing:
         summary.append(f"left out {label.missing} of {len(frame)} rows with no label "
@@ -119,9 +121,6 @@ def fit_table(table: Table, opts: FitOptions, progress: bool = True, echo=None) 
     model = _freeze(v, schema, label, opts)
     model = _score_and_cut(result, model, x)
     result.notes = _notes(result, x)
-    if result.inference is None and spec.model == "logistic" and spec.penalty == "none" \
-            and spec.class_weight is None:
-        pass
     result.model = _with_provenance(model, result, opts)
     return result
 
