@@ -324,7 +324,7 @@ def demo(outdir, force):
     """Fit, freeze, emit and check the invented compressor-fault model end to end."""
     from .demo import run_demo
 
-    run_demo(Path(outdir), force=force)
+    return run_demo(Path(outdir), force=force)
 
 
 def main():
