@@ -1,0 +1,446 @@
+"""The ONNX target, run by two independent evaluators: onnxruntime (CPU) and the
+ONNX reference evaluator (`onnx.reference.ReferenceEvaluator`, numpy-based).
+
+Outside checks: `onnx.checker.check_model(full_check=True)` and strict shape
+inference (the onnx package's own validation of the ONNX standard); every output
+is compared with the scoring plan evaluated by `reference.score_row`, and the
+differences measured here are the stated tolerances in targets/onnx-*.toml.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import subprocess
+import sys
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import onnx
+import onnxruntime
+import pytest
+from click.testing import CliRunner
+
+import scorewright
+from scorewright.cli import cli
+from scorewright.emit import emitter
+from scorewright.emit.onnx import OPSET
+from scorewright.errors import ScorewrightError
+from scorewright.model import canonical_sha256, model_from_document
+from scorewright.plan import build_plan
+from scorewright.reference import score_row
+from scorewright.verify.runners import runner
+from scorewright.verify.runners.onnx import input_feeds
+
+from models import BUILDERS, build
+
+ROOT = Path(__file__).resolve().parent.parent
+MODELS = list(BUILDERS)
+NUMERIC_ONLY = ["iris", "wine", "diabetes_ridge", "spector"]
+PROFILES = {("onnxruntime", "double"): "onnx-double",
+            ("reference", "double"): "onnx-double-reference",
+            ("onnxruntime", "float"): "onnx-float",
+            ("reference", "float"): "onnx-float-reference"}
+
+
+def tolerance(profile: str) -> dict:
+    with open(ROOT / "targets" / f"{profile}.toml", "rb") as handle:
+        return tomllib.load(handle)["tolerance"]
+
+
+def emitted(model, tmp: Path, **options) -> Path:
+    (art,) = emitter("onnx")(model, options)
+    path = tmp / art.name
+    path.write_bytes(art.content)
+    return path
+
+
+def edited(doc: dict):
+    """A frozen model from a document edited by a test, sealed again."""
+    doc = dict(doc)
+    doc["sha256"] = canonical_sha256(doc)
+    return model_from_document(doc)
+
+
+def ulps(a, b, precision: str = "double") -> np.ndarray:
+    """Distance in units in the last place of IEEE double (or float) between a and b, 0 for
+    -0.0 vs 0.0; exact: the ordered bit patterns are subtracted as Python ints."""
+    def ordered(x):
+        if precision == "float":
+            bits = np.asarray(x, dtype=np.float32).view(np.int32).ravel().tolist()
+            sign = 0x7FFFFFFF
+        else:
+            bits = np.asarray(x, dtype=np.float64).view(np.int64).ravel().tolist()
+            sign = 0x7FFFFFFFFFFFFFFF
+        return [v if v >= 0 else -(v & sign) for v in bits]
+    dist = [abs(x - y) for x, y in zip(ordered(a), ordered(b))]
+    return np.array(dist, dtype=np.float64).reshape(np.shape(a))
+
+
+def spacing(x, precision: str) -> np.ndarray:
+    dtype = np.float32 if precision == "float" else np.float64
+    return np.spacing(np.abs(np.asarray(x, dtype=dtype))).astype(np.float64)
+
+
+# ---------------------------------------------------------------- rows
+
+def edge_rows(plan) -> list[dict]:
+    """Rows at the edges of every input, and rows whose margin is pushed to +-1000 and
+    to the exp guard, derived from the plan."""
+    rows: list[dict] = [{}]  # everything absent
+    numeric = [i for i in plan.inputs if i.kind == "numeric"]
+    categorical = [i for i in plan.inputs if i.kind == "categorical"]
+    specials = [None, math.nan, math.inf, -math.inf, 1e308, -1e308, 5e-324, -0.0, 0.0,
+                1e30, -1e30, "12.5", "not a number", True, ""]
+    for inp in numeric:
+        for value in specials:
+            rows.append({inp.name: value})
+        rows.append({n.name: v for n, v in zip(numeric, (1e308, -1e308) * len(numeric))})
+    for inp in categorical:
+        values = list(inp.levels) + [None, "", "never-seen level", 10**6, 2.5, math.nan,
+                                     True, "\x00", str(inp.levels[0]) + " "]
+        if isinstance(inp.levels[0], int):
+            values += [float(inp.levels[0]), str(inp.levels[0]), f" {inp.levels[0]} ",
+                       f"{inp.levels[0]}.0"]
+        for value in values:
+            rows.append({inp.name: value})
+    rows.append({i.name: math.nan for i in numeric} | {i.name: "" for i in categorical})
+    rows.extend(_margin_rows(plan))
+    return rows
+
+
+def _margin_rows(plan) -> list[dict]:
+    """Rows whose first margin is near each target, by moving one unclipped numeric input
+    (margins are affine in it)."""
+    guard = plan.precision.exp_guard
+    targets = [1000.0, -1000.0, guard, -guard, guard + 1, -guard - 1, 40.0, -40.0]
+    for term in plan.terms:
+        inp = plan.inputs[term.input]
+        if term.kind != "numeric" or inp.clip is not None or term.weights[0] == 0.0:
+            continue
+        base = 0.0 if inp.fill is None else inp.fill
+        m0 = score_row(plan, {inp.name: base}).margins[0]
+        slope = score_row(plan, {inp.name: base + 1.0}).margins[0] - m0
+        rows = []
+        for target in targets:
+            x = base + (target - m0) / slope
+            if abs(x) < inp.bound:
+                rows.append({inp.name: x})
+        return rows
+    return []
+
+
+def model_rows(name: str, n_random: int = 1500) -> list[dict]:
+    """The rows a model was fitted on, its edge rows, and random rows: fitted rows with
+    half their numeric values scaled by U(-5, 5) and some categories replaced."""
+    tm = build(name)
+    fitted = [{k: _plain(v) for k, v in r.items()} for r in tm.frame.to_dict("records")]
+    rng = np.random.default_rng(len(name))
+    shuffled = []
+    for i in rng.integers(0, len(fitted), n_random):
+        row = dict(fitted[i])
+        for key, value in row.items():
+            if isinstance(value, float) and rng.uniform() < 0.5:
+                row[key] = value * rng.uniform(-5.0, 5.0)
+            elif isinstance(value, str) and rng.uniform() < 0.1:
+                row[key] = "unheard-of"
+        shuffled.append(row)
+    return fitted + edge_rows(build_plan(tm.model)) + shuffled
+
+
+def _plain(value):
+    if isinstance(value, (np.integer,)):
+        return int(value)
+    if isinstance(value, (np.floating,)):
+        return float(value)
+    return value
+
+
+# ---------------------------------------------------------------- standard conformance
+
+@pytest.mark.parametrize("precision", ["double", "float"])
+@pytest.mark.parametrize("name", MODELS)
+def test_graph_passes_checker_and_strict_shape_inference(name, precision, tmp_path):
+    path = emitted(build(name).model, tmp_path, precision=precision)
+    graph = onnx.load(path)
+    onnx.checker.check_model(graph, full_check=True)
+    inferred = onnx.shape_inference.infer_shapes(graph, check_type=True, strict_mode=True,
+                                                 data_prop=True)
+    assert [o.name for o in inferred.graph.output] == [o.name for o in graph.graph.output]
+    assert [op.domain for op in graph.opset_import] == [""]
+    assert graph.opset_import[0].version == OPSET
+    assert all(node.domain == "" for node in graph.graph.node)
+
+
+@pytest.mark.parametrize("name", MODELS)
+def test_no_node_or_constant_the_model_does_not_need(name, tmp_path):
+    graph = onnx.load(emitted(build(name).model, tmp_path)).graph
+    consumed = {i for node in graph.node for i in node.input}
+    outputs = {o.name for o in graph.output}
+    for node in graph.node:
+        assert all(o in consumed or o in outputs for o in node.output), node
+    assert all(init.name in consumed for init in graph.initializer)
+
+
+def test_node_count_of_a_standardized_all_numeric_binary_model(tmp_path):
+    graph = onnx.load(emitted(build("spector").model, tmp_path)).graph
+    ops = [n.op_type for n in graph.node]
+    print(f"\nspector (3 numeric inputs, binary): {len(ops)} nodes: {' '.join(ops)}")
+    # 9 nodes read, guard and weight the inputs and sum the margin; 13 make the stable
+    # sigmoid, both probabilities and the class index.
+    assert len(ops) <= 22
+    assert "MatMul" not in ops  # its kernels may reorder the plan's summation
+
+
+# ---------------------------------------------------------------- agreement
+
+@pytest.mark.parametrize("precision", ["double", "float"])
+@pytest.mark.parametrize("evaluator", ["onnxruntime", "reference"])
+@pytest.mark.parametrize("name", MODELS)
+def test_agrees_with_the_reference_evaluator(name, evaluator, precision, tmp_path):
+    tm = build(name)
+    emitted(tm.model, tmp_path, precision=precision)
+    rows = model_rows(name)
+    options = {"evaluator": evaluator, "precision": precision}
+    out = runner("onnx")(tmp_path, tm.model, rows, options)
+    plan = build_plan(tm.model, precision)
+    expected = [score_row(plan, row) for row in rows]
+    profile = PROFILES[evaluator, precision]
+    tol = tolerance(profile)
+    ref_m = np.array([s.margins for s in expected])
+    found = {"rows": len(rows), "runtime": out.runtime}
+    unit = tol.get("precision", "double")
+
+    def check(output, want, have, ulps_ok, abs_ok=0.0, rel_ok=0.0):
+        """An output agrees if within the stated ULPs, OR absolute, OR relative bound."""
+        want = np.asarray(want, dtype=np.float64)
+        assert have.shape == want.shape, output
+        dist, diff = ulps(want, have, unit), np.abs(want - have)
+        passed = (dist <= ulps_ok) | (diff <= abs_ok) | (diff <= rel_ok * np.abs(want))
+        found[output] = f"max {dist.max():.0f} {unit} ULPs, max abs {diff.max():.3g}"
+        bad = np.flatnonzero(~passed.reshape(len(rows), -1).all(axis=1))
+        assert bad.size == 0, f"{output} beyond the stated tolerance on row {bad[0]}: " \
+            f"{rows[bad[0]]} ({found[output]})"
+
+    check("margin", ref_m, out.margins, tol["margin_ulps"], tol.get("margin_abs", 0.0))
+    if plan.task == "regression":
+        check("predicted_value", [s.value for s in expected], out.value, tol["value_ulps"],
+              rel_ok=tol.get("value_rel", 0.0))
+    else:
+        check("probability", [s.probabilities for s in expected], out.probabilities,
+              tol["probability_ulps"], tol["probability_abs"])
+        # Labels agree except where the reference margin lies within the stated margin
+        # tolerance of the cut (binary) or of the runner-up margin (multiclass).
+        slack = np.maximum(tol.get("margin_abs", 0.0),
+                           tol["margin_ulps"] * spacing(ref_m, unit).max(axis=1))
+        ref_c = np.array([s.class_index for s in expected])
+        if plan.task == "binary":
+            near = np.abs(ref_m[:, 0] - plan.cut) <= slack
+        else:
+            top2 = np.sort(ref_m, axis=1)[:, -2:]
+            near = (top2[:, 1] - top2[:, 0]) <= 2 * slack
+        wrong = np.flatnonzero((out.class_index != ref_c) & ~near)
+        assert wrong.size == 0, f"labels differ on rows {wrong[:5]}: {rows[wrong[0]]}"
+        found["labels excused near the cut"] = int(near.sum())
+    print(f"\n{profile} {name}: {found}")
+
+
+def test_multiclass_ties_go_to_the_lowest_index(tmp_path):
+    """Two classes with identical coefficients tie on every row; both evaluators must
+    return the lower index (ArgMax with select_last_index=0)."""
+    doc = build("iris").model.to_document()
+    head = doc["head"]
+    head["coefficients"][2] = list(head["coefficients"][1])
+    head["intercepts"][2] = head["intercepts"][1] + 30.0  # class 2 wins wherever 1 would
+    head["coefficients"][1] = list(head["coefficients"][2])
+    head["intercepts"][1] = head["intercepts"][2]
+    model = edited(doc)
+    emitted(model, tmp_path)
+    rows = [{}] + build("iris").frame.to_dict("records")[:60]
+    plan = build_plan(model)
+    for evaluator in ("onnxruntime", "reference"):
+        out = runner("onnx")(tmp_path, model, rows, {"evaluator": evaluator})
+        assert np.array_equal(out.margins[:, 1], out.margins[:, 2])
+        expected = [score_row(plan, r).class_index for r in rows]
+        assert list(out.class_index) == expected
+        assert 2 not in expected and 1 in expected
+
+
+# ---------------------------------------------------------------- traps of the runtimes
+
+def test_onnxruntime_graph_optimizations_change_no_bit(tmp_path):
+    """onnxruntime rewrites graphs at load time (fusions, constant folding); a serving team
+    may run any optimization level, so every level must give the same bits."""
+    tm = build("fault_type")
+    path = emitted(tm.model, tmp_path)
+    plan = build_plan(tm.model)
+    feeds = input_feeds(plan, model_rows("fault_type"), "per-feature")
+    results = []
+    for level in (onnxruntime.GraphOptimizationLevel.ORT_DISABLE_ALL,
+                  onnxruntime.GraphOptimizationLevel.ORT_ENABLE_BASIC,
+                  onnxruntime.GraphOptimizationLevel.ORT_ENABLE_ALL):
+        so = onnxruntime.SessionOptions()
+        so.graph_optimization_level = level
+        session = onnxruntime.InferenceSession(str(path), so,
+                                               providers=["CPUExecutionProvider"])
+        results.append(session.run(None, feeds))
+    for other in results[1:]:
+        for a, b in zip(results[0], other):
+            assert a.tobytes() == b.tobytes()
+
+
+def test_float_graph_saturates_huge_doubles_instead_of_reading_them_as_missing(tmp_path):
+    """float32(1e308) is inf, which the graph reads as missing; the runner saturates so
+    the plan's clamp applies, as it does in the reference."""
+    tm = build("spector")
+    emitted(tm.model, tmp_path, precision="float")
+    plan = build_plan(tm.model, "float")
+    rows = [{"GPA": 1e308, "TUCE": 20.0, "PSI": 0.0}, {"GPA": None, "TUCE": 20.0, "PSI": 0.0}]
+    out = runner("onnx")(tmp_path, tm.model, rows, {"precision": "float"})
+    expected = [score_row(plan, r).margins[0] for r in rows]
+    assert expected[0] != expected[1]
+    assert out.margins[:, 0] == pytest.approx(expected, rel=1e-6)
+
+
+def test_saved_graph_reloaded_in_a_fresh_process_gives_the_same_outputs(tmp_path):
+    tm = build("hostile")
+    path = emitted(tm.model, tmp_path)
+    plan = build_plan(tm.model)
+    rows = model_rows("hostile")[:200]
+    feeds = input_feeds(plan, rows, "per-feature")
+    np.savez(tmp_path / "feeds.npz", **{f"f{i}": feeds[n] for i, n in
+                                        enumerate(plan.feature_names)})
+    script = (
+        "import sys, json, numpy as np, onnx, onnxruntime\n"
+        "from onnx.reference import ReferenceEvaluator\n"
+        "path, feeds_path = sys.argv[1], sys.argv[2]\n"
+        "model = onnx.load(path)\n"
+        "names = [i.name for i in model.graph.input]\n"
+        "data = np.load(feeds_path, allow_pickle=True)\n"
+        "feeds = {n: data[f'f{i}'] for i, n in enumerate(names)}\n"
+        "s = onnxruntime.InferenceSession(path, providers=['CPUExecutionProvider'])\n"
+        "a = s.run(None, feeds)\n"
+        "b = ReferenceEvaluator(model).run(None, feeds)\n"
+        "print(json.dumps([[x.tobytes().hex() for x in a], [x.tobytes().hex() for x in b]]))\n"
+    )
+    proc = subprocess.run([sys.executable, "-c", script, str(path), str(tmp_path / "feeds.npz")],
+                          capture_output=True, text=True, check=True)
+    fresh_ort, fresh_ref = json.loads(proc.stdout)
+    session = onnxruntime.InferenceSession(str(path), providers=["CPUExecutionProvider"])
+    here = [x.tobytes().hex() for x in session.run(None, feeds)]
+    assert fresh_ort == here
+    ref_here = [x.tobytes().hex() for x in
+                onnx.reference.ReferenceEvaluator(onnx.load(path)).run(None, feeds)]
+    assert fresh_ref == ref_here
+
+
+# ---------------------------------------------------------------- layout, names, metadata
+
+@pytest.mark.parametrize("precision", ["double", "float"])
+@pytest.mark.parametrize("name", NUMERIC_ONLY)
+def test_matrix_layout_gives_the_same_bits_as_per_feature_inputs(name, precision, tmp_path):
+    tm = build(name)
+    rows = model_rows(name)
+    per_dir, mat_dir = tmp_path / "per", tmp_path / "mat"
+    per_dir.mkdir()
+    mat_dir.mkdir()
+    emitted(tm.model, per_dir, precision=precision)
+    path = emitted(tm.model, mat_dir, precision=precision, inputs="matrix")
+    graph = onnx.load(path)
+    assert [i.name for i in graph.graph.input] == ["features"]
+    for evaluator in ("onnxruntime", "reference"):
+        a = runner("onnx")(per_dir, tm.model, rows, {"evaluator": evaluator,
+                                                      "precision": precision})
+        b = runner("onnx")(mat_dir, tm.model, rows, {"evaluator": evaluator,
+                                                      "precision": precision,
+                                                      "inputs": "matrix"})
+        assert a.margins.tobytes() == b.margins.tobytes()
+
+
+def test_matrix_layout_refuses_a_model_with_categorical_inputs():
+    with pytest.raises(ScorewrightError, match="needs an all-numeric model; feature "
+                       "'refrigerant' is categorical"):
+        emitter("onnx")(build("fault_binary").model, {"inputs": "matrix"})
+
+
+def test_hostile_names_are_the_graph_input_names_exactly(tmp_path):
+    tm = build("hostile")
+    graph = onnx.load(emitted(tm.model, tmp_path))
+    onnx.checker.check_model(graph, full_check=True)
+    names = [f.name for f in tm.model.features]
+    assert [i.name for i in graph.graph.input] == names
+    session = onnxruntime.InferenceSession(graph.SerializeToString(),
+                                           providers=["CPUExecutionProvider"])
+    assert [i.name for i in session.get_inputs()] == names
+
+
+def test_a_feature_named_like_an_output_is_refused():
+    doc = build("spector").model.to_document()
+    doc["features"][0]["name"] = "margin"
+    for col in doc["design"]:
+        if col["feature"] == "GPA":
+            col["feature"] = "margin"
+    model = edited(doc)
+    with pytest.raises(ScorewrightError, match="feature 'margin' has the name of an ONNX"):
+        emitter("onnx")(model, {})
+    (art,) = emitter("onnx")(model, {"inputs": "matrix"})  # the matrix layout can take it
+    onnx.checker.check_model(onnx.load_from_string(art.content), full_check=True)
+
+
+def test_metadata_names_the_model_and_its_schema(tmp_path):
+    tm = build("fault_type")
+    graph = onnx.load(emitted(tm.model, tmp_path, precision="float"))
+    props = {p.key: p.value for p in graph.metadata_props}
+    assert props["model_name"] == tm.model.name
+    assert props["model_sha256"] == tm.model.sha256
+    assert props["scorewright_version"] == scorewright.__version__
+    assert props["opset"] == str(OPSET)
+    assert props["precision"] == "float"
+    assert json.loads(props["classes"]) == list(tm.model.head.classes)
+    features = json.loads(props["features"])
+    assert [f["name"] for f in features] == [f.name for f in tm.model.features]
+    assert [f["kind"] for f in features] == [f.kind for f in tm.model.features]
+    assert tm.model.sha256 in graph.graph.doc_string
+    assert graph.producer_name == "scorewright"
+
+
+def test_emission_is_deterministic():
+    model = build("mixed_scalers").model
+    first = emitter("onnx")(model, {"precision": "float"})
+    second = emitter("onnx")(model, {"precision": "float"})
+    assert first == second
+
+
+def test_cli_writes_the_graph_and_refuses_bad_options_on_one_line(tmp_path):
+    model_file = tmp_path / "m.json"
+    build("spector").model.write(model_file)
+    result = CliRunner().invoke(cli, ["emit", str(model_file), "--target", "onnx", "-o",
+                                      str(tmp_path / "out"), "--precision", "float",
+                                      "--inputs", "matrix"])
+    assert result.exit_code == 0, result.output
+    graph = onnx.load(tmp_path / "out" / "spector.onnx")
+    assert graph.graph.input[0].type.tensor_type.elem_type == onnx.TensorProto.FLOAT
+    build("fault_binary").model.write(tmp_path / "f.json")
+    for args in (["--inputs", "matrix"], ["--dialect", "sqlite"]):
+        proc = subprocess.run([sys.executable, "-m", "scorewright.cli", "emit",
+                               str(tmp_path / "f.json"), "--target", "onnx", "-o",
+                               str(tmp_path / "bad"), *args], capture_output=True, text=True)
+        assert proc.returncode == 2
+        assert proc.stderr.count("\n") == 1 and proc.stderr.startswith("error: ")
+        assert not (tmp_path / "bad").exists()
+
+
+def test_runner_fails_with_the_reason_when_the_layout_does_not_match(tmp_path):
+    tm = build("iris")
+    emitted(tm.model, tmp_path, inputs="matrix")
+    with pytest.raises(ScorewrightError, match="the graph wants input 'features'"):
+        runner("onnx")(tmp_path, tm.model, [{}], {})
+
+
+def test_zero_rows(tmp_path):
+    tm = build("fault_type")
+    emitted(tm.model, tmp_path)
+    for evaluator in ("onnxruntime", "reference"):
+        out = runner("onnx")(tmp_path, tm.model, [], {"evaluator": evaluator})
+        assert out.margins.shape == (0, 4) and out.class_index.shape == (0,)
