@@ -386,3 +386,43 @@ def test_bad_data_is_one_line_exit_2(tmp_path, case):
     assert message in lines[0], lines[0]
     assert "Traceback" not in result.output
     assert not out.exists() and not (tmp_path / "rep").exists()
+
+
+# ---------------------------------------------------------------- other model families
+
+@pytest.mark.parametrize("label,model,task", [("fault_type", "multinomial", "multiclass"),
+                                              ("alarms_per_week", "poisson", "regression")])
+def test_other_families_fit_freeze_and_report(tmp_path, label, model, task):
+    """Test metrics come from the frozen model; they equal scikit-learn's metric functions
+    on scikit-learn's own predictions of the fitted pipeline."""
+    from sklearn import metrics as skm
+
+    from scorewright.fit.report import render_report
+    from scorewright.fit.validation import predict
+
+    path = tmp_path / "readings.csv"
+    demo_data.compressor_readings(n=900, seed=8).to_csv(path, index=False)
+    drop = [c for c in demo_data.LABELS if c != label]
+    result = fit_file(path, FitOptions(label=label, drop=drop, model=model, penalty="none",
+                                       cv=3), progress=False)
+    assert result.model.head.task == task
+    v = result.validation
+    x = pd.read_csv(path)[list(v.pipeline.feature_names_in_)]
+    sk = predict(v.pipeline, result.spec, x.iloc[v.test_index])
+    if task == "multiclass":
+        assert result.test["log_loss"] == pytest.approx(skm.log_loss(result.test_y, sk),
+                                                        rel=1e-9)
+    else:
+        assert result.test["deviance_explained"] == pytest.approx(
+            skm.d2_tweedie_score(result.test_y, sk, power=1), rel=1e-9)
+    html = render_report(result).decode()
+    assert html.count("<img ") >= 2
+
+
+def test_fit_is_deterministic(tmp_path):
+    data = tmp_path / "spector.csv"
+    spector_frame().to_csv(data, index=False)
+    opts = FitOptions(label="GRADE", test_fraction=0.0, cv=3, seed=1)
+    first = fit_file(data, opts, progress=False).model
+    second = fit_file(data, opts, progress=False).model
+    assert first.to_json() == second.to_json()
