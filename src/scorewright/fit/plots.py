@@ -80,7 +80,7 @@ def coefficients(names, estimate, low=None, high=None, title="") -> bytes:
     ax.axvline(0.0, color="grey", linestyle=":")
     ax.set_yticks(y)
     ax.set_yticklabels([str(n)[:40] for n in names], fontsize=8)
-    ax.set_title(title)
+    ax.set_title(title, fontsize=10)
     return _png(fig)
 
 

@@ -75,7 +75,7 @@ def _coefficient_plot(r) -> bytes:
         low = [row.get("per_sd_low", row["ci_low"]) for row in rows]
         high = [row.get("per_sd_high", row["ci_high"]) for row in rows]
         return plots.coefficients(names, est, low, high,
-                                  "Log-odds per SD (numeric) or vs reference level, 95% CI")
+                                  "Log-odds with 95% CI (numeric: per SD; levels: vs reference)")
     head = r.model.head
     names = [d.feature if d.levels is None else f"{d.feature}={'|'.join(map(str, d.levels))}"
              for d in r.model.design]
