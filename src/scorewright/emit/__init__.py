@@ -20,6 +20,7 @@ class Artifact:
 # target name -> module implementing emit(model, options)
 EMITTERS = {
     "python": "scorewright.emit.python",
+    "sql": "scorewright.emit.sql",
     "onnx": "scorewright.emit.onnx",
 }
 

@@ -31,6 +31,7 @@ class RunOutput:
 # runner name (a profile's verify.runner) -> module
 RUNNERS = {
     "python": "scorewright.verify.runners.python",
+    "sql": "scorewright.verify.runners.sql",
     "onnx": "scorewright.verify.runners.onnx",
 }
 

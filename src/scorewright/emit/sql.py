@@ -1,0 +1,454 @@
+"""SQL target: one query per dialect that scores an input table in the database.
+
+The query is a stack of subqueries, innermost first, one layer per stage of the
+plan, so each expression is computed once and the operation order is the
+plan's: read (cast to double; NULL, NaN and +-inf are missing; category
+codes) -> design values (fill, clamp, scaling, clip) -> margins (terms in plan
+order, then the intercept) -> link -> probabilities and the decision. Every
+user string enters as a quoted identifier or string literal; the header
+comment escapes it. The dialect record (sql_dialects) says how to spell each
+thing; nothing here asks which engine it is.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from ..errors import ScorewrightError
+from ..model import FrozenModel
+from ..plan import Plan, build_plan, output_columns
+from . import Artifact, reject_options
+from .sql_dialects import Dialect, dialect as find_dialect
+from .sql_guards import underflow_region
+from .templating import render
+
+OPTIONS = ("dialect", "table", "keep", "columns", "form")
+FORMS = ("select", "view", "function")
+DBL_MAX = 1.7976931348623157e308
+OP = {"subtract": "-", "divide": "/", "multiply": "*", "add": "+"}
+
+
+# ---------------------------------------------------------------- spelling
+
+def literal(d: Dialect, x: float) -> str:
+    """A double literal the engine reads back to exactly x, typed as double."""
+    x = float(x)
+    if d.exact_decimal_literals:
+        return f"CAST('{x!r}' AS {d.double})"
+    if x == 0.0:
+        return "-0.0" if math.copysign(1.0, x) < 0 else "0.0"
+    if x.is_integer() and abs(x) < 2.0 ** 53:
+        return repr(x)
+    mantissa, exponent = math.frexp(x)
+    m, e = int(mantissa * 2 ** 53), exponent - 53
+    while m % 2 == 0:
+        m, e = m // 2, e + 1
+    return f"({m} * {2.0 ** e!r})"
+
+
+def label_literal(d: Dialect, label) -> str:
+    if isinstance(label, int):
+        return f"CAST({label} AS {d.integer})"
+    return d.string(label)
+
+
+def comment_text(value: str) -> str:
+    """A user string as comment text that cannot end the comment line: quoted, with
+    backslashes, quotes, control characters and line separators escaped."""
+    out = []
+    for ch in value:
+        code = ord(ch)
+        if ch in '\\"':
+            out.append("\\" + ch)
+        elif code < 0x20 or 0x7F <= code <= 0x9F or ch in "\u2028\u2029":
+            out.append(f"\\u{code:04x}")
+        else:
+            out.append(ch)
+    return '"' + "".join(out) + '"'
+
+
+def _check_text(what: str, value: str) -> None:
+    if "\x00" in value:
+        raise ScorewrightError(f"{what} {value!r} contains a NUL character, "
+                               "which SQL text cannot hold")
+
+
+# ---------------------------------------------------------------- layers
+
+class Layers:
+    """Subqueries innermost first; each layer is a list of (alias, expression)."""
+
+    def __init__(self):
+        self.layers: list[list[tuple[str, str]]] = []
+
+    @property
+    def ref(self) -> str:
+        return f"l{len(self.layers) - 1}"
+
+    def add(self, columns: list[tuple[str, str]]) -> None:
+        self.layers.append(columns)
+
+    def carry(self, aliases) -> list[tuple[str, str]]:
+        return [(a, f"{self.ref}.{a}") for a in aliases]
+
+    def render(self, innermost_from: str, fence: str) -> list[str]:
+        """The nested SELECTs as lines; a line may hold a newline inside a quoted name
+        or string, so callers indent with `indent`, never by splitting on newlines."""
+        lines: list[str] = []
+        for i, columns in enumerate(self.layers):
+            cols = [f"  {expr} AS {alias}," for alias, expr in columns]
+            cols[-1] = cols[-1][:-1]
+            if i == 0:
+                lines = ["SELECT"] + cols + ([f"FROM {innermost_from}"] if innermost_from else [])
+            else:
+                lines = ["SELECT"] + cols + ["FROM ("] + indent(lines) + [f") AS l{i - 1}"]
+            if i < len(self.layers) - 1 and fence:
+                lines[-1] += fence
+        return lines
+
+
+def indent(lines: list[str], by: str = "  ") -> list[str]:
+    return [by + line for line in lines]
+
+
+@dataclass
+class Query:
+    body: list[str]             # the scoring subquery's lines: output aliases, keeps, rowid
+    outputs: list[tuple[str, str]]  # (output column name, alias in the body)
+
+
+def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: str = "",
+                extra: list[tuple[str, str]] = ()) -> Query:
+    """The layered scoring subquery. `source` maps each feature to the SQL expression
+    it is read from; `extra` are (alias, expression) pairs carried to the top."""
+    layers = Layers()
+    carried = [alias for alias, _ in extra]
+    weights = {t.input: t.weights for t in plan.terms if t.kind == "numeric"}
+    used = {t.input for t in plan.terms}
+    read, design = [], []
+    for inp in plan.inputs:
+        if inp.index not in used:
+            continue
+        col = source[inp.name]
+        if inp.kind == "numeric":
+            region = underflow_region(inp, weights[inp.index]) if d.raises_on_underflow else None
+            read.append((f"x{inp.index}", _read_number(d, col, region)))
+            design.append((inp, region))
+        else:
+            read.append((f"c{inp.index}", _read_code(d, inp, col)))
+    layers.add(list(extra) + read)
+    codes = [a for a, _ in read if a.startswith("c")]
+    layers.add(layers.carry(carried + codes) + [
+        (f"v{inp.index}", _design_value(d, inp, region, f"{layers.ref}.x{inp.index}"))
+        for inp, region in design])
+    margins = []
+    for k in range(plan.n_outputs):
+        s = None
+        for term in plan.terms:
+            if term.kind == "numeric":
+                t = f"{literal(d, term.weights[k])} * {layers.ref}.v{term.input}"
+            else:
+                t = _lookup(d, term.tables[k], f"{layers.ref}.c{term.input}")
+            s = t if s is None else f"({s} + {t})"
+        b = literal(d, plan.intercepts[k])
+        margins.append((f"m{k}", b if s is None else f"{s} + {b}"))
+    layers.add(layers.carry(carried) + margins)
+    outputs = _finish(plan, d, layers, carried)
+    return Query(layers.render(innermost_from, d.fence), outputs)
+
+
+def _read_number(d: Dialect, col: str, region) -> str:
+    x = f"CAST({col} AS {d.double})"
+    if region is not None:
+        low, high = region
+        x = (f"CASE WHEN {col} > {literal(d, low)} AND {col} < {literal(d, high)} "
+             f"THEN {x} * {literal(d, 0.0)} ELSE {x} END")
+    return (f"CASE WHEN {col} >= {literal(d, -DBL_MAX)} AND {col} <= {literal(d, DBL_MAX)} "
+            f"THEN {x} END")
+
+
+def _read_code(d: Dialect, inp, col: str) -> str:
+    missing = inp.fill_code if inp.fill_code is not None else (
+        inp.unknown_code if inp.unknown_code is not None else -1)
+    unseen = inp.unknown_code if inp.unknown_code is not None else -1
+    if inp.integer_levels:
+        number = f"CAST({col} AS {d.double})"
+        value = d.number_read.format(x=col, number=number)
+        is_missing = f"{col} IS NULL"
+        if d.nan_test is not None:
+            is_missing += " OR " + d.nan_test.format(x=number)
+        whens = " ".join(f"WHEN {literal(d, float(level))} THEN {code}"
+                         for code, level in enumerate(inp.levels))
+    else:
+        value = f"CAST({col} AS {d.text}){d.text_collate}"
+        is_missing = f"{col} IS NULL"
+        whens = f"WHEN '' THEN {missing} " + " ".join(
+            f"WHEN {d.string(level)} THEN {code}" for code, level in enumerate(inp.levels))
+    return (f"CASE WHEN {is_missing} THEN {missing} "
+            f"ELSE CASE {value} {whens} ELSE {unseen} END END")
+
+
+def _design_value(d: Dialect, inp, region, x: str) -> str:
+    fill = inp.fill
+    if fill is not None and region is not None and region[0] < fill < region[1]:
+        fill = math.copysign(0.0, fill)  # the chain on it would underflow; see sql_guards
+    v = x if fill is None else f"COALESCE({x}, {literal(d, fill)})"
+    v = d.least.format(a=d.greatest.format(a=v, b=literal(d, -inp.bound)),
+                       b=literal(d, inp.bound))
+    for step in inp.steps:
+        v = f"({v} {OP[step.op]} {literal(d, step.value)})"
+    if inp.clip is not None:
+        v = d.least.format(a=d.greatest.format(a=v, b=literal(d, inp.clip[0])),
+                           b=literal(d, inp.clip[1]))
+    if fill is None:
+        v = f"CASE WHEN {x} IS NULL THEN {literal(d, 0.0)} ELSE {v} END"
+    return v
+
+
+def _lookup(d: Dialect, table, code: str) -> str:
+    whens = [f"WHEN {j} THEN {literal(d, value)}" for j, value in enumerate(table)
+             if not (value == 0.0 and math.copysign(1.0, value) > 0)]
+    if not whens:
+        return literal(d, 0.0)
+    return f"CASE {code} {' '.join(whens)} ELSE {literal(d, 0.0)} END"
+
+
+def _finish(plan: Plan, d: Dialect, layers: Layers, carried: list[str]):
+    guard = literal(d, plan.precision.exp_guard)
+    zero, one = literal(d, 0.0), literal(d, 1.0)
+    k = plan.n_outputs
+    ms = [f"m{j}" for j in range(k)]
+    if plan.task == "binary":
+        r = layers.ref
+        layers.add(layers.carry(carried + ["m0"]) + [
+            ("t", f"exp(-{d.least.format(a=f'abs({r}.m0)', b=guard)})")])
+        r = layers.ref
+        neg, pos = (label_literal(d, c) for c in plan.classes)
+        layers.add(layers.carry(carried + ["m0"]) + [
+            ("p", f"CASE WHEN {r}.m0 >= {zero} THEN {one} / ({one} + {r}.t) "
+                  f"ELSE {r}.t / ({one} + {r}.t) END"),
+            ("k", f"CASE WHEN {r}.m0 > {literal(d, plan.cut)} THEN {pos} ELSE {neg} END")])
+        return list(zip(output_columns(plan), ["m0", "p", "k"]))
+    if plan.task == "multiclass":
+        r = layers.ref
+        labels = [label_literal(d, c) for c in plan.classes]
+        whens = []
+        for j in range(k - 1):
+            test = " AND ".join(f"{r}.m{j} >= {r}.m{i}" for i in range(j + 1, k))
+            whens.append(f"WHEN {test} THEN {labels[j]}")
+        argmax = f"CASE {' '.join(whens)} ELSE {labels[-1]} END"
+        top = d.greatest_many.format(args=", ".join(f"{r}.{m}" for m in ms))
+        layers.add(layers.carry(carried + ms) + [("top", top), ("k", argmax)])
+        r = layers.ref
+        exps = [(f"e{j}", "exp(" + d.greatest.format(a=f"{r}.m{j} - {r}.top", b=literal(
+            d, -plan.precision.exp_guard)) + ")") for j in range(k)]
+        layers.add(layers.carry(carried + ms + ["k"]) + exps)
+        r = layers.ref
+        total = f"{r}.e0"
+        for j in range(1, k):
+            total = f"({total} + {r}.e{j})"
+        es = [f"e{j}" for j in range(k)]
+        layers.add(layers.carry(carried + ms + es + ["k"]) + [("total", total)])
+        r = layers.ref
+        layers.add(layers.carry(carried + ms + ["k"]) + [
+            (f"p{j}", f"{r}.e{j} / {r}.total") for j in range(k)])
+        aliases = ms + [f"p{j}" for j in range(k)] + ["k"]
+        return list(zip(output_columns(plan), aliases))
+    r = layers.ref
+    if plan.link == "log":
+        lo = d.greatest.format(a=f"{r}.m0", b=literal(d, -plan.precision.exp_guard))
+        value = f"exp({d.least.format(a=lo, b=literal(d, plan.precision.log_link_max))})"
+    else:
+        value = f"{r}.m0"
+    layers.add(layers.carry(carried + ["m0"]) + [("y", value)])
+    return list(zip(output_columns(plan), ["m0", "y"]))
+
+
+# ---------------------------------------------------------------- the artifact
+
+@dataclass(frozen=True)
+class Settings:
+    dialect: Dialect
+    form: str
+    table: str
+    keep: tuple[str, ...] | None   # None: every input column
+    columns: dict                  # feature -> column
+
+
+def settings(plan: Plan, options: dict) -> Settings:
+    reject_options("sql", options, OPTIONS)
+    d = find_dialect(options.get("dialect"))
+    form = options.get("form", "select")
+    if form not in FORMS:
+        raise ScorewrightError(f"--form {form!r}: expected one of {', '.join(FORMS)}")
+    if form == "function" and d.function_form is None:
+        raise ScorewrightError(f"--form function: {d.no_function_reason}")
+    table = options.get("table") or "input"
+    keep = options.get("keep")
+    if keep is not None:
+        keep = tuple(keep)
+        if not keep or any(c == "" for c in keep):
+            raise ScorewrightError("--keep: expected comma-separated column names")
+    mapping = dict(options.get("columns") or {})
+    for feature in mapping:
+        if feature not in plan.feature_names:
+            raise ScorewrightError(f"--column {feature}=...: the model has no feature {feature!r}")
+    columns = {name: mapping.get(name, name) for name in plan.feature_names}
+    s = Settings(d, form, table, keep, columns)
+    _check_names(plan, s)
+    return s
+
+
+def _check_names(plan: Plan, s: Settings) -> None:
+    d = s.dialect
+    _check_text("the table name", s.table)
+    _check_text("the model name", plan.name)
+    for feature, column in s.columns.items():
+        _check_text("the column name", column)
+    for inp in plan.inputs:
+        if inp.kind == "categorical":
+            for level in inp.levels:
+                if isinstance(level, str):
+                    _check_text(f"feature {inp.name!r}: the level", level)
+                elif abs(level) > 2 ** 53:
+                    raise ScorewrightError(f"feature {inp.name!r}: the integer level {level} is "
+                                           "too large to compare exactly as a double")
+    for label in plan.classes or ():
+        if isinstance(label, str):
+            _check_text("the class label", label)
+
+    def key(name: str) -> str:
+        if d.identifier_max_bytes is not None:
+            name = name.encode("utf-8")[:d.identifier_max_bytes].decode("utf-8", "ignore")
+        return name.lower() if d.fold_identifiers else name
+
+    why = ("differ only in case, which the engine treats as one name" if d.fold_identifiers
+           else f"agree in their first {d.identifier_max_bytes} bytes, where the engine cuts names")
+    seen: dict[str, str] = {}
+    for feature, column in s.columns.items():
+        other = seen.setdefault(key(column), column)
+        if other != column:
+            raise ScorewrightError(
+                f"{d.name}: columns {other!r} and {column!r} {why}; "
+                f"map one with --column FEATURE=COLUMN")
+    outputs = {key(c): c for c in output_columns(plan)}
+    for column in s.keep or ():
+        _check_text("the kept column", column)
+        if key(column) in outputs:
+            raise ScorewrightError(f"--keep {column!r}: the output has a column of that name")
+
+
+def object_name(plan: Plan) -> str:
+    return f"score_{plan.stem}"[:63]
+
+
+def scoring_query(plan: Plan, s: Settings) -> str:
+    """The SELECT statement (no terminator) for the select and view forms."""
+    d = s.dialect
+    table = d.quote(s.table)
+    sources = _sources(s, "t.")
+    if s.keep is not None:
+        extra = [(f"k{j}", f"t.{d.quote(c)}") for j, c in enumerate(s.keep)]
+        q = build_query(plan, d, sources, f"{table} AS t", extra)
+        cols = [f"s.k{j} AS {d.quote(c)}" for j, c in enumerate(s.keep)]
+        open_, close = "FROM (", ") AS s"
+    elif d.passthrough == "lateral":
+        q = build_query(plan, d, sources)
+        cols = ["t.*"]
+        open_, close = f"FROM {table} AS t CROSS JOIN LATERAL (", ") AS s"
+    else:
+        q = build_query(plan, d, sources, f"{table} AS t", [("rid", "t.rowid")])
+        cols = ["t.*"]
+        open_, close = f"FROM {table} AS t JOIN (", ") AS s ON s.rid = t.rowid"
+    cols += [f"s.{alias} AS {d.quote(name)}" for name, alias in q.outputs]
+    lines = ["SELECT"] + [f"  {c}," for c in cols]
+    lines[-1] = lines[-1][:-1]
+    return "\n".join(lines + [open_] + indent(q.body) + [close])
+
+
+def _sources(s: Settings, prefix: str) -> dict[str, str]:
+    return {f: prefix + s.dialect.quote(c) for f, c in s.columns.items()}
+
+
+def parameter_types(plan: Plan, d: Dialect) -> list[str]:
+    out = []
+    for inp in plan.inputs:
+        categorical_text = inp.kind == "categorical" and not inp.integer_levels
+        out.append(d.text if categorical_text else d.double)
+    return out
+
+
+def output_types(plan: Plan, d: Dialect) -> list[str]:
+    names = output_columns(plan)
+    label = d.text
+    if plan.classes is not None and isinstance(plan.classes[0], int):
+        label = d.integer
+    return [label if n == "predicted_class" else d.double for n in names]
+
+
+def function_call(plan: Plan, s: Settings) -> str:
+    """A query that scores the input table through the function form."""
+    d = s.dialect
+    args = ", ".join(f"t.{d.quote(s.columns[f])}" for f in plan.feature_names)
+    return d.function_call.format(name=d.quote(object_name(plan)), args=args,
+                                  table=d.quote(s.table))
+
+
+def _dollar_tag(body: str) -> str:
+    tag, n = "$scorewright$", 0
+    while tag in body:
+        n += 1
+        tag = f"$scorewright{n}$"
+    return tag
+
+
+def header_lines(plan: Plan, s: Settings) -> list[str]:
+    d = s.dialect
+    lines = [f"Model: {comment_text(plan.name)}",
+             f"Model SHA-256: {plan.sha256}",
+             f"Dialect: {d.name}; form: {s.form}"]
+    if s.form == "function":
+        lines.append("Arguments, in order (feature: SQL type):")
+        for inp, typ in zip(plan.inputs, parameter_types(plan, d)):
+            lines.append(f"  {comment_text(inp.name)}: {typ}")
+        lines.append("Call it on a table (here: the default table and column names):")
+        lines += ["  " + line for line in function_call(plan, s).split("\n")]
+    else:
+        lines.append(f"Input table: {comment_text(s.table)}")
+        lines.append("Features (feature <- column):")
+        for inp in plan.inputs:
+            lines.append(f"  {comment_text(inp.name)} <- {comment_text(s.columns[inp.name])}"
+                         f" ({inp.kind})")
+        kept = "every input column" if s.keep is None else \
+            ", ".join(comment_text(c) for c in s.keep)
+        lines.append(f"Returns: {kept}, then the outputs")
+    outputs = ", ".join(output_columns(plan))
+    lines.append(f"Outputs: {outputs}")
+    if plan.task == "binary":
+        lines.append(f"probability is that of class {comment_text(str(plan.classes[1]))}")
+    lines.append("Missing: NULL, NaN and +-inf numbers; NULL or '' categories.")
+    return lines
+
+
+def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
+    plan = build_plan(model)
+    s = settings(plan, dict(options or {}))
+    d = s.dialect
+    context = {"sha256": plan.sha256, "header": header_lines(plan, s),
+               "name": d.quote(object_name(plan))}
+    if s.form == "function":
+        q = build_query(plan, d, {inp.name: d.parameter.format(n=inp.index + 1, i=inp.index)
+                                  for inp in plan.inputs})
+        context.update(
+            body=q.body, outputs=q.outputs,
+            parameters=[d.parameter_decl.format(n=i + 1, i=i, type=t)
+                        for i, t in enumerate(parameter_types(plan, d))],
+            returns=[(d.quote(n), t) for (n, _), t in zip(q.outputs, output_types(plan, d))],
+            tag=_dollar_tag("\n".join(q.body)), quote=d.quote)
+        text = render(d.function_form, **context)
+    else:
+        query = scoring_query(plan, s)
+        prefix = "" if s.form == "select" else d.view.format(name=context["name"]) + "\n"
+        text = render("sql/query.sql.j2", statement=prefix + query, **context)
+    return [Artifact(f"{plan.stem}.{d.name}.sql", text.encode("utf-8"))]

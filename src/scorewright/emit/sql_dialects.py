@@ -1,0 +1,140 @@
+"""SQL dialects as data: one record of flags and spellings per engine.
+
+The SQL emitter asks the record how to spell a thing; it never asks which
+engine it is writing for. Each flag names the trap it answers:
+
+- decimal literals are exact `numeric`/`DECIMAL` in PostgreSQL and DuckDB, so
+  every literal is a string cast to the double type (the engine's own correctly
+  rounded string-to-double conversion);
+- SQLite 3.40's decimal-to-double conversion is off by an ULP for about one
+  17-digit literal in 200, so SQLite literals are an integer mantissa times a
+  power of two, both of which it reads exactly;
+- SQLite's two-argument min() returns its *last* argument on a tie (a signed
+  zero tie matters), so `least(a, b)` is spelled min(b, a) there;
+- PostgreSQL raises on a float product or quotient that underflows to zero;
+- NaN: PostgreSQL and DuckDB hold it and call NaN = NaN true (so x <> x is no
+  NaN test); SQLite stores NaN as NULL;
+- SQLite and DuckDB match identifiers case-insensitively even when quoted;
+  PostgreSQL truncates identifiers to 63 bytes.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from ..errors import ScorewrightError
+
+
+@dataclass(frozen=True)
+class Dialect:
+    name: str
+    double: str                 # the double type, as written in CAST
+    text: str                   # the text type, as written in CAST
+    integer: str                # the type of integer class labels
+    exact_decimal_literals: bool  # CAST('<shortest repr>' AS double) reads back exactly
+    greatest: str               # two-argument maximum, ties keep {a}
+    least: str                  # two-argument minimum, ties keep {a}
+    greatest_many: str          # n-argument maximum ({args}), ties keep the first
+    nan_test: str | None        # is {x} (a number) NaN; None: the engine cannot hold NaN
+    text_collate: str           # appended to text comparisons: byte-wise equality
+    passthrough: str            # how all input columns ride along: "lateral" or "rowid"
+    fence: str                  # appended to each subquery so no layer is inlined twice
+    raises_on_underflow: bool   # x * c or x / c that rounds to 0 raises an error
+    fold_identifiers: bool      # quoted identifiers match case-insensitively
+    identifier_max_bytes: int | None
+    view: str                   # CREATE ... VIEW {name} AS
+    number_read: str            # an integer-level category's value as a number, else NULL
+    function_form: str | None   # template under templates/sql/ for --form function
+    parameter: str = ""         # the n-th (1-based) / i-th (0-based) argument inside the body
+    parameter_decl: str = ""    # its declaration
+    function_call: str = ""     # a query scoring {table} through the function {name}({args})
+    no_function_reason: str = ""
+
+    def quote(self, name: str) -> str:
+        return '"' + name.replace('"', '""') + '"'
+
+    def string(self, value: str) -> str:
+        return "'" + value.replace("'", "''") + "'"
+
+
+SQLITE = Dialect(
+    name="sqlite",
+    double="REAL",
+    text="TEXT",
+    integer="INTEGER",
+    exact_decimal_literals=False,
+    greatest="max({a}, {b})",
+    least="min({b}, {a})",
+    greatest_many="max({args})",
+    nan_test=None,
+    text_collate=" COLLATE BINARY",
+    passthrough="rowid",
+    fence=" LIMIT -1 OFFSET 0",
+    raises_on_underflow=False,
+    fold_identifiers=True,
+    identifier_max_bytes=None,
+    view="CREATE VIEW {name} AS",
+    # A text value in an integer-level column is unseen (CAST would read '3abc' as 3).
+    number_read="CASE WHEN typeof({x}) IN ('integer', 'real') THEN {x} END",
+    function_form=None,
+    no_function_reason="SQLite cannot define a function in SQL (only through its C API); "
+                       "use --form select or --form view",
+)
+
+POSTGRES = Dialect(
+    name="postgres",
+    double="DOUBLE PRECISION",
+    text="TEXT",
+    integer="BIGINT",
+    exact_decimal_literals=True,
+    greatest="GREATEST({a}, {b})",
+    least="LEAST({a}, {b})",
+    greatest_many="GREATEST({args})",
+    nan_test="{x} = CAST('NaN' AS DOUBLE PRECISION)",
+    text_collate=' COLLATE "C"',
+    passthrough="lateral",
+    fence=" OFFSET 0",
+    raises_on_underflow=True,
+    fold_identifiers=False,
+    identifier_max_bytes=63,
+    view="CREATE VIEW {name} AS",
+    number_read="{number}",
+    function_form="sql/function_postgres.sql.j2",
+    parameter="${n}",
+    parameter_decl="{type}",
+    function_call="SELECT t.*, s.*\nFROM {table} AS t CROSS JOIN LATERAL {name}({args}) AS s;",
+)
+
+DUCKDB = Dialect(
+    name="duckdb",
+    double="DOUBLE",
+    text="VARCHAR",
+    integer="BIGINT",
+    exact_decimal_literals=True,
+    greatest="GREATEST({a}, {b})",
+    least="LEAST({a}, {b})",
+    greatest_many="GREATEST({args})",
+    nan_test="isnan({x})",
+    text_collate="",
+    passthrough="lateral",
+    fence="",
+    raises_on_underflow=False,
+    fold_identifiers=True,
+    identifier_max_bytes=None,
+    view="CREATE VIEW {name} AS",
+    number_read="{number}",
+    function_form="sql/function_duckdb.sql.j2",
+    parameter="p{i}",
+    parameter_decl="p{i}",
+    function_call="SELECT t.*, s.*\nFROM {table} AS t CROSS JOIN LATERAL {name}({args}) AS s;",
+)
+
+DIALECTS = {d.name: d for d in (SQLITE, POSTGRES, DUCKDB)}
+
+
+def dialect(name: str | None) -> Dialect:
+    if name is None:
+        raise ScorewrightError(f"--target sql needs --dialect ({', '.join(DIALECTS)})")
+    if name not in DIALECTS:
+        raise ScorewrightError(f"unknown SQL dialect {name!r}; known: {', '.join(DIALECTS)}")
+    return DIALECTS[name]

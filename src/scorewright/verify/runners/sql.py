@@ -1,0 +1,228 @@
+"""SQL artifacts run in the real engine: SQLite (standard library), DuckDB, PostgreSQL.
+
+The rows are loaded into a typed table (numeric features as the engine's double
+type; categorical features as text, or as integers for integer levels), the
+emitted file is executed as it is, and the output columns are fetched. A
+PostgreSQL run uses `options["dsn"]` or starts a temporary server of its own.
+"""
+
+from __future__ import annotations
+
+import math
+import numbers
+import tempfile
+import uuid
+from pathlib import Path
+
+from ...emit.sql import OPTIONS, function_call, object_name, settings
+from ...errors import ScorewrightError
+from ...model import FrozenModel
+from ...plan import build_plan, output_columns
+from ...values import _integral, numeric_value
+from . import RunOutput
+from .python import outputs_from_table
+
+INT64 = 2 ** 63
+
+
+def numeric_cell(value):
+    """A raw numeric value as a double column holds it (NaN and +-inf kept)."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return value
+    return numeric_value(value)
+
+
+def text_cell(value):
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return None
+    if isinstance(value, numbers.Integral) and not isinstance(value, bool):
+        return str(int(value))
+    return value if isinstance(value, str) else repr(value)
+
+
+def integer_level_cell(feature: str, value):
+    """A raw value for an integer-level category as a number column holds it."""
+    if value is None or isinstance(value, float):
+        if isinstance(value, float) and value.is_integer() and abs(value) < INT64:
+            return int(value)
+        return value
+    if value == "":
+        return None
+    if not isinstance(value, bool):
+        whole = _integral(value)
+        if whole is not None:
+            return whole if abs(whole) < INT64 else float(whole)
+        number = numeric_value(value) if isinstance(value, str) else None
+        if number is not None:
+            return number
+    raise ScorewrightError(f"sql: feature {feature!r} has integer levels; the value {value!r} "
+                           "cannot be stored in its numeric column")
+
+
+class Table:
+    """The input table: column names, SQL types and cell values, in row order."""
+
+    def __init__(self, plan, s, rows, types: dict):
+        self.columns: list[str] = []
+        self.kinds: list[str] = []
+        converters = []
+        for inp in plan.inputs:
+            column = s.columns[inp.name]
+            if column in self.columns:
+                continue
+            self.columns.append(column)
+            if inp.kind == "numeric":
+                self.kinds.append("double")
+                converters.append((inp.name, numeric_cell))
+            elif inp.integer_levels:
+                self.kinds.append("integer")
+                converters.append((inp.name, lambda v, n=inp.name: integer_level_cell(n, v)))
+            else:
+                self.kinds.append("text")
+                converters.append((inp.name, text_cell))
+        self.values = [[convert(row.get(name)) for name, convert in converters] for row in rows]
+        for j, kind in enumerate(self.kinds):
+            if kind == "integer" and any(isinstance(r[j], float) for r in self.values):
+                self.kinds[j] = "double"
+        self.row_column = "scorewright_row"
+        while self.row_column.lower() in {c.lower() for c in self.columns}:
+            self.row_column += "_"
+        self.types = [types[k] for k in self.kinds]
+
+
+def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict) -> RunOutput:
+    plan = build_plan(model)
+    s = settings(plan, {k: v for k, v in options.items() if k in OPTIONS})
+    d = s.dialect
+    path = Path(artifact_dir) / f"{plan.stem}.{d.name}.sql"
+    if not path.is_file():
+        raise ScorewrightError(f"sql: artifact {path} is missing")
+    sql = path.read_text(encoding="utf-8")
+    engine = ENGINES[d.name]
+    table = Table(plan, s, rows, engine.TYPES)
+    if s.form == "select":
+        query = sql
+    elif s.form == "view":
+        query = f"SELECT * FROM {d.quote(object_name(plan))}"
+    else:
+        query = function_call(plan, s)
+    setup = [] if s.form == "select" else [sql]
+    names, result, version = engine.execute(options, d, s.table, table, setup, query)
+    cols = output_columns(plan)
+    missing = [c for c in cols if c not in names]
+    if missing:
+        raise ScorewrightError(f"sql: the query returned no column {missing[0]!r}")
+    if table.row_column in names:
+        order = names.index(table.row_column)
+        result = sorted(result, key=lambda r: r[order])
+    if len(result) != len(rows):
+        raise ScorewrightError(f"sql: {len(rows)} rows in, {len(result)} rows out")
+    index = [names.index(c) for c in cols]
+    return outputs_from_table(plan, [[r[i] for i in index] for r in result], version)
+
+
+def create_table(d, name: str, table: Table) -> str:
+    cols = [f"{d.quote(table.row_column)} BIGINT"]
+    cols += [f"{d.quote(c)} {t}" for c, t in zip(table.columns, table.types)]
+    return f"CREATE TABLE {d.quote(name)} ({', '.join(cols)})"
+
+
+def insert(d, name: str, table: Table, marker: str) -> str:
+    marks = ", ".join([marker] * (len(table.columns) + 1))
+    return f"INSERT INTO {d.quote(name)} VALUES ({marks})"
+
+
+def _records(table: Table):
+    return [[i] + r for i, r in enumerate(table.values)]
+
+
+class SQLite:
+    TYPES = {"double": "REAL", "integer": "INTEGER", "text": "TEXT"}
+
+    @staticmethod
+    def execute(options, d, name, table, setup, query):
+        import sqlite3
+
+        con = sqlite3.connect(":memory:")
+        try:
+            con.execute(create_table(d, name, table))
+            con.executemany(insert(d, name, table, "?"), _records(table))
+            for statement in setup:
+                con.executescript(statement)
+            cur = con.execute(query)
+            names = [c[0] for c in cur.description]
+            return names, cur.fetchall(), f"SQLite {sqlite3.sqlite_version}"
+        except sqlite3.Error as exc:
+            raise ScorewrightError(f"sql: SQLite failed: {exc}") from None
+        finally:
+            con.close()
+
+
+class DuckDB:
+    TYPES = {"double": "DOUBLE", "integer": "BIGINT", "text": "VARCHAR"}
+
+    @staticmethod
+    def execute(options, d, name, table, setup, query):
+        import duckdb
+
+        con = duckdb.connect(":memory:")
+        try:
+            con.execute(create_table(d, name, table))
+            con.executemany(insert(d, name, table, "?"), _records(table))
+            for statement in setup:
+                con.execute(statement)
+            version = con.execute("SELECT version()").fetchone()[0]
+            cur = con.execute(query)
+            names = [c[0] for c in cur.description]
+            return names, cur.fetchall(), f"DuckDB {version}"
+        except duckdb.Error as exc:
+            raise ScorewrightError(f"sql: DuckDB failed: {exc}") from None
+        finally:
+            con.close()
+
+
+class PostgreSQL:
+    TYPES = {"double": "DOUBLE PRECISION", "integer": "BIGINT", "text": "TEXT"}
+
+    @classmethod
+    def execute(cls, options, d, name, table, setup, query):
+        dsn = options.get("dsn")
+        if dsn:
+            return cls._execute(dsn, d, name, table, setup, query)
+        from ..postgres import TemporaryServer
+
+        with tempfile.TemporaryDirectory(prefix="scorewright-pg-") as tmp:
+            with TemporaryServer(Path(tmp) / "pg") as server:
+                return cls._execute(server.dsn, d, name, table, setup, query)
+
+    @staticmethod
+    def _execute(dsn, d, name, table, setup, query):
+        import psycopg
+
+        schema = d.quote(f"scorewright_{uuid.uuid4().hex[:12]}")
+        try:
+            with psycopg.connect(dsn, autocommit=True) as con:
+                con.execute(f"CREATE SCHEMA {schema}")
+                try:
+                    con.execute(f"SET search_path TO {schema}")
+                    con.execute(create_table(d, name, table))
+                    columns = ", ".join(d.quote(c) for c in [table.row_column] + table.columns)
+                    with con.cursor().copy(
+                            f"COPY {d.quote(name)} ({columns}) FROM STDIN") as copy:
+                        for record in _records(table):
+                            copy.write_row(record)
+                    for statement in setup:
+                        con.execute(statement)
+                    cur = con.execute(query)
+                    names = [c.name for c in cur.description]
+                    result = cur.fetchall()
+                    version = con.execute("SHOW server_version").fetchone()[0]
+                finally:
+                    con.execute(f"DROP SCHEMA {schema} CASCADE")
+            return names, result, f"PostgreSQL {version.split()[0]}"
+        except psycopg.Error as exc:
+            message = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+            raise ScorewrightError(f"sql: PostgreSQL failed: {message}") from None
+
+
+ENGINES = {"sqlite": SQLite, "duckdb": DuckDB, "postgres": PostgreSQL}
