@@ -22,6 +22,7 @@ EMITTERS = {
     "python": "scorewright.emit.python",
     "sql": "scorewright.emit.sql",
     "onnx": "scorewright.emit.onnx",
+    "c": "scorewright.emit.c",
 }
 
 

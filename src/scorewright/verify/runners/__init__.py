@@ -32,6 +32,7 @@ class RunOutput:
 RUNNERS = {
     "python": "scorewright.verify.runners.python",
     "sql": "scorewright.verify.runners.sql",
+    "c": "scorewright.verify.runners.c",
     "onnx": "scorewright.verify.runners.onnx",
 }
 
