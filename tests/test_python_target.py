@@ -92,7 +92,7 @@ def test_csv_and_in_memory_give_identical_results(name, tmp_path):
     rows = tm.frame.head(200).to_dict("records") + [r for _, r in edge_rows(plan)]
     names = list(plan.feature_names)
     buf = io.StringIO()
-    writer = csv.writer(buf, lineterminator="\n")
+    writer = csv.writer(buf, lineterminator="\r\n")  # quotes a lone "\r" too
     writer.writerow(["unit_note"] + names)
     for i, row in enumerate(rows):
         writer.writerow([f"note {i}"] + [csv_cell(row.get(n)) for n in names])

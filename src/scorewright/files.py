@@ -30,6 +30,7 @@ def write_atomic(path: Path, data: bytes, force: bool = False) -> None:
     except OSError as exc:
         raise ScorewrightError(f"cannot write in {parent}: {exc.strerror}") from None
     try:
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; files should be as open() makes
         with os.fdopen(fd, "wb") as handle:
             handle.write(data)
             handle.flush()
@@ -41,3 +42,9 @@ def write_atomic(path: Path, data: bytes, force: bool = False) -> None:
         except FileNotFoundError:
             pass
         raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask

@@ -35,16 +35,17 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
         raise ScorewrightError(f"python: artifact {script} is missing")
     names = list(plan.feature_names)
     buf = io.StringIO()
-    writer = csv.writer(buf, lineterminator="\n")
+    writer = csv.writer(buf, lineterminator="\r\n")  # quotes a lone "\r" too
     writer.writerow(names)
     for row in rows:
         writer.writerow([csv_cell(row.get(n)) for n in names])
     interpreter = options.get("interpreter") or sys.executable
-    proc = subprocess.run([interpreter, "-I", "-S", str(script)], input=buf.getvalue(),
-                          capture_output=True, text=True, encoding="utf-8")
+    proc = subprocess.run([interpreter, "-I", "-S", str(script)],
+                          input=buf.getvalue().encode("utf-8"), capture_output=True)
     if proc.returncode != 0:
-        raise ScorewrightError(f"python: the artifact failed: {proc.stderr.strip()[-300:]}")
-    reader = csv.reader(io.StringIO(proc.stdout))
+        err = proc.stderr.decode("utf-8", "replace").strip()
+        raise ScorewrightError(f"python: the artifact failed: {err[-300:]}")
+    reader = csv.reader(io.StringIO(proc.stdout.decode("utf-8"), newline=""))
     header = next(reader)
     cols = output_columns(plan)
     index = {c: header.index(c) for c in cols}

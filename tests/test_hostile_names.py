@@ -1,0 +1,119 @@
+"""Names and strings of any content flow safely into every target.
+
+Property-based (hypothesis): feature names, category levels, class labels and model
+names drawn from all of unicode and from a list of syntax breakers (quotes of every
+kind, backslashes, comment markers, `;`, newlines, NUL, trigraphs, `#` at line
+start, SQL and C keywords, names equal up to case, very long names). For each
+generated model every built-in target's artifact is emitted, run in its real
+runtime and compared with the reference evaluator, so an artifact that executed
+anything a name says, or mis-parsed one, fails.
+"""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+import tally
+from scorewright.emit import emitter
+from scorewright.model import CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature
+from scorewright.plan import build_plan
+from scorewright.verify.compare import compare
+from scorewright.verify.harness import expected_outputs
+from scorewright.verify.profiles import builtin_names, load_profile
+from scorewright.verify.runners import runner
+
+BREAKERS = ['"', "'", "`", "\u2019", "\u201c", "\\", "\\\\", "*/", "/*", "--", "#", ";", "\n",
+            "\r\n", "\r", "\t", "\x00", "??=", "??/", "??'", "%s", "%n", "{{", "}}", "{%",
+            "$$", "$1", "?", ":x", "@x", "[", "]", "\u2028", "\u0085", "\ufeff", "\x7f",
+            "SELECT", "select", "DROP TABLE input;", "int", "return", "NULL", "null", "True",
+            "def", "import os", "#include <stdio.h>", "#define x 1\n", "\\\n", "é", "É",
+            "\U0001d518", "温度", "\u202e", " ", "x" * 300]
+EXAMPLES = 320
+PROFILES = builtin_names()
+
+text = st.one_of(
+    st.text(min_size=1, max_size=16),
+    st.lists(st.sampled_from(BREAKERS), min_size=1, max_size=4).map("".join),
+    st.builds(lambda a, b: a + b, st.sampled_from(BREAKERS), st.text(max_size=8)),
+)
+
+
+@st.composite
+def hostile_models(draw):
+    names = draw(st.lists(text, min_size=3, max_size=3, unique=True))
+    if draw(st.booleans()):
+        names[1] = names[0].swapcase() if names[0].swapcase() not in names else names[1]
+    levels = draw(st.lists(text.filter(lambda s: s != ""), min_size=2, max_size=3,
+                           unique=True))
+    task = draw(st.sampled_from(["binary", "multiclass", "regression"]))
+    n_out = 3 if task == "multiclass" else 1
+    classes = None
+    if task != "regression":
+        classes = tuple(draw(st.lists(text, min_size=n_out if n_out > 1 else 2,
+                                      max_size=n_out if n_out > 1 else 2, unique=True)))
+    coef = st.floats(-3, 3, allow_nan=False, allow_infinity=False)
+    n_design = 2 + len(levels) - 1
+    features = (
+        NumericFeature(names[0], draw(st.one_of(st.none(), coef))),
+        NumericFeature(names[1], None, ()),
+        CategoricalFeature(names[2], tuple(levels), None, None),
+    )
+    design = (DesignColumn(names[0]), DesignColumn(names[1])) + tuple(
+        DesignColumn(names[2], (lv,)) for lv in levels[1:])
+    head = Head(task, "logit" if task == "binary" else
+                ("softmax" if task == "multiclass" else "identity"), classes,
+                tuple(draw(coef) for _ in range(n_out)),
+                tuple(tuple(draw(coef) for _ in range(n_design)) for _ in range(n_out)),
+                0.0 if task == "binary" else None)
+    model = FrozenModel(draw(text), features, design, head,
+                        {"scorewright_version": "test", "source": "hypothesis"}).sealed()
+    return model
+
+
+def _rows(model):
+    plan = build_plan(model)
+    num0, num1, cat = (i.name for i in plan.inputs)
+    rows = []
+    for level in list(plan.inputs[2].levels) + [None, "<not a level>"]:
+        rows.append({num0: 1.25, num1: -0.5, cat: level})
+    rows += [{num0: None, num1: math.nan, cat: None}, {num0: 1e308, num1: -1e308, cat: None}]
+    return plan, rows
+
+
+def _options(profile, request):
+    opts = profile.run_options
+    if profile.runner == "sql" and opts.get("dialect") == "postgres":
+        opts["dsn"] = request.getfixturevalue("postgres_dsn")
+    return opts
+
+
+@pytest.mark.parametrize("profile_name", PROFILES)
+def test_hostile_strings_reach_every_target_safely(profile_name, tmp_path_factory, request):
+    profile = load_profile(profile_name)
+    lacks = profile.missing_requirements()
+    assert not lacks, f"{profile_name} cannot run here: lacks {lacks}"
+    options = _options(profile, request)
+    examples = EXAMPLES * (10 if request.config.getoption("--runslow") else 1)
+    seen = []
+
+    @settings(max_examples=examples, deadline=None, database=None,
+              suppress_health_check=list(HealthCheck))
+    @given(model=hostile_models())
+    def check(model):
+        where = tmp_path_factory.mktemp("hostile")
+        for art in emitter(profile.emitter)(model, dict(profile.emit)):
+            (where / art.name).write_bytes(art.content)
+        plan, rows = _rows(model)
+        got = runner(profile.runner)(where, model, rows, dict(options))
+        result = compare(expected_outputs(plan, rows), got, profile.tolerance)
+        assert result.ok, (repr(model.name), [f.name for f in model.features], result.reasons)
+        seen.append(len(model.features) + len(model.features[2].levels) + 1
+                    + len(model.head.classes or ()))
+
+    check()
+    tally.add(f"hostile models through {profile_name}", len(seen))
+    tally.add(f"hostile strings (names, levels, labels) through {profile_name}", sum(seen))
