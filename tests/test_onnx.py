@@ -187,9 +187,9 @@ def test_node_count_of_a_standardized_all_numeric_binary_model(tmp_path):
     graph = onnx.load(emitted(build("spector").model, tmp_path)).graph
     ops = [n.op_type for n in graph.node]
     print(f"\nspector (3 numeric inputs, binary): {len(ops)} nodes: {' '.join(ops)}")
-    # 9 nodes read, guard and weight the inputs and sum the margin; 13 make the stable
-    # sigmoid, both probabilities and the class index.
-    assert len(ops) <= 22
+    # 11 nodes stack, guard and weight the inputs and sum the margin in the plan's order;
+    # 13 make the stable sigmoid, both probabilities and the class index.
+    assert len(ops) <= 24
     assert "MatMul" not in ops  # its kernels may reorder the plan's summation
 
 
@@ -438,9 +438,29 @@ def test_runner_fails_with_the_reason_when_the_layout_does_not_match(tmp_path):
         runner("onnx")(tmp_path, tm.model, [{}], {})
 
 
-def test_zero_rows(tmp_path):
-    tm = build("fault_type")
+@pytest.mark.parametrize("name", ["fault_type", "spector", "alarms_poisson"])
+def test_zero_rows(name, tmp_path):
+    tm = build(name)
     emitted(tm.model, tmp_path)
     for evaluator in ("onnxruntime", "reference"):
         out = runner("onnx")(tmp_path, tm.model, [], {"evaluator": evaluator})
-        assert out.margins.shape == (0, 4) and out.class_index.shape == (0,)
+        assert out.margins.shape == (0, tm.model.n_outputs)
+
+
+def test_every_operator_has_an_onnxruntime_cpu_kernel_at_the_stated_opset(tmp_path):
+    """The opset is one onnxruntime supports fully for what the graphs use: its own kernel
+    registry (onnxruntime.capi's get_all_opkernel_def) covers each node's schema version."""
+    from onnxruntime.capi import _pybind_state
+
+    ranges: dict = {}
+    for kernel in _pybind_state.get_all_opkernel_def():
+        if kernel.domain in ("", "ai.onnx") and kernel.provider == "CPUExecutionProvider":
+            ranges.setdefault(kernel.op_name, []).append(kernel.version_range)
+    used = set()
+    for name in MODELS:
+        for precision in ("double", "float"):
+            (art,) = emitter("onnx")(build(name).model, {"precision": precision})
+            used |= {n.op_type for n in onnx.load_from_string(art.content).graph.node}
+    for op in sorted(used):
+        since = onnx.defs.get_schema(op, OPSET, "").since_version
+        assert any(lo <= since <= hi for lo, hi in ranges.get(op, [])), (op, since)
