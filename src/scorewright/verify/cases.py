@@ -233,3 +233,24 @@ def read_csv_rows(plan: Plan, path: Path) -> list[dict]:
         raise ScorewrightError(f"{path}: not UTF-8 text") from None
     except csv.Error as exc:
         raise ScorewrightError(f"{path}: not a readable CSV ({exc})") from None
+
+
+def rows_for_precision(plan: Plan, rows: list[dict], precision: str) -> list[dict]:
+    """The rows as a target of this precision receives them: a single-precision target's
+    numeric inputs are float32 values (a double beyond float range arrives as +-inf, which
+    is missing), so its expected outputs are the reference's on these rounded inputs."""
+    if precision != "float":
+        return rows
+    import numpy as np
+
+    numeric = [inp.name for inp in plan.inputs if inp.kind == "numeric"]
+    out = []
+    with np.errstate(over="ignore"):
+        for row in rows:
+            row = dict(row)
+            for name in numeric:
+                v = row.get(name)
+                if isinstance(v, float):
+                    row[name] = float(np.float32(v))
+            out.append(row)
+    return out

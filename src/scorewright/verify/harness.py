@@ -19,7 +19,7 @@ from ..files import check_writable, write_atomic
 from ..model import FrozenModel
 from ..plan import Plan, build_plan
 from ..reference import score_row
-from .cases import edge_rows, random_rows, read_csv_rows
+from .cases import edge_rows, random_rows, read_csv_rows, rows_for_precision
 from .compare import Comparison, compare, ulp_distance
 from .profiles import Profile, builtin_names, load_profile
 from .runners import runner
@@ -152,6 +152,13 @@ def _verify_one(model, outdir, profile, rows, labels, expected, extra) -> Target
             return result
     options = profile.run_options
     options.update(extra.get(profile.runner, {}))
+    precision = profile.tolerance.precision
+    if precision != "double":
+        # A single-precision target runs the float plan (float guards and bounds) on
+        # float32 inputs; the oracle is the reference evaluator of that plan on those.
+        plan = build_plan(model, precision)
+        rows = rows_for_precision(plan, rows, precision)
+        expected = expected_outputs(plan, rows)
     try:
         got = runner(profile.runner)(where, model, rows, options)
     except ScorewrightError as exc:
