@@ -173,11 +173,10 @@ def _read_code(d: Dialect, inp, col: str) -> str:
         inp.unknown_code if inp.unknown_code is not None else -1)
     unseen = inp.unknown_code if inp.unknown_code is not None else -1
     if inp.integer_levels:
-        number = f"CAST({col} AS {d.double})"
-        value = d.number_read.format(x=col, number=number)
+        value = d.number_read.format(x=col)
         is_missing = f"{col} IS NULL"
-        if d.nan_test is not None:
-            is_missing += " OR " + d.nan_test.format(x=number)
+        if d.category_nan_test is not None:
+            is_missing += " OR " + d.category_nan_test.format(x=col)
         whens = " ".join(f"WHEN {literal(d, float(level))} THEN {code}"
                          for code, level in enumerate(inp.levels))
     else:
@@ -372,11 +371,9 @@ def _sources(s: Settings, prefix: str) -> dict[str, str]:
 
 
 def parameter_types(plan: Plan, d: Dialect) -> list[str]:
-    out = []
-    for inp in plan.inputs:
-        categorical_text = inp.kind == "categorical" and not inp.integer_levels
-        out.append(d.text if categorical_text else d.double)
-    return out
+    """Numbers as double; categories as text (integer codes too: the body reads the
+    text, so a text column of codes works as well as an integer one)."""
+    return [d.double if inp.kind == "numeric" else d.text for inp in plan.inputs]
 
 
 def output_types(plan: Plan, d: Dialect) -> list[str]:
@@ -390,7 +387,12 @@ def output_types(plan: Plan, d: Dialect) -> list[str]:
 def function_call(plan: Plan, s: Settings) -> str:
     """A query that scores the input table through the function form."""
     d = s.dialect
-    args = ", ".join(f"t.{d.quote(s.columns[f])}" for f in plan.feature_names)
+    args = []
+    for inp, typ in zip(plan.inputs, parameter_types(plan, d)):
+        arg = f"t.{d.quote(s.columns[inp.name])}"
+        args.append(f"CAST({arg} AS {typ})" if d.typed_parameters and inp.kind != "numeric"
+                    else arg)
+    args = ", ".join(args)
     return d.function_call.format(name=d.quote(object_name(plan)), args=args,
                                   table=d.quote(s.table))
 

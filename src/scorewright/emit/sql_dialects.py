@@ -43,10 +43,13 @@ class Dialect:
     fold_identifiers: bool      # quoted identifiers match case-insensitively
     identifier_max_bytes: int | None
     view: str                   # CREATE ... VIEW {name} AS
-    number_read: str            # an integer-level category's value as a number, else NULL
+    number_read: str            # an integer-level category's value ({x}, any column type)
+                                # as a number when it is an integer's text or a number
+    category_nan_test: str | None  # is {x} (any column type) NaN
     function_form: str | None   # template under templates/sql/ for --form function
     parameter: str = ""         # the n-th (1-based) / i-th (0-based) argument inside the body
     parameter_decl: str = ""    # its declaration
+    typed_parameters: bool = False  # categorical arguments are passed CAST to text
     function_call: str = ""     # a query scoring {table} through the function {name}({args})
     no_function_reason: str = ""
 
@@ -74,8 +77,11 @@ SQLITE = Dialect(
     fold_identifiers=True,
     identifier_max_bytes=None,
     view="CREATE VIEW {name} AS",
-    # A text value in an integer-level column is unseen (CAST would read '3abc' as 3).
-    number_read="CASE WHEN typeof({x}) IN ('integer', 'real') THEN {x} END",
+    # CAST alone would read the text '3abc' as 3: text counts only in canonical form.
+    number_read="CASE WHEN typeof({x}) IN ('integer', 'real') THEN {x} "
+                "WHEN typeof({x}) = 'text' AND CAST(CAST({x} AS INTEGER) AS TEXT) = {x} "
+                "THEN CAST({x} AS INTEGER) END",
+    category_nan_test=None,
     function_form=None,
     no_function_reason="SQLite cannot define a function in SQL (only through its C API); "
                        "use --form select or --form view",
@@ -98,10 +104,14 @@ POSTGRES = Dialect(
     fold_identifiers=False,
     identifier_max_bytes=63,
     view="CREATE VIEW {name} AS",
-    number_read="{number}",
+    # No TRY_CAST in PostgreSQL: a text column would raise on CAST, so read the text.
+    number_read="CASE WHEN CAST({x} AS TEXT) ~ '^\\s*[-+]?[0-9]+(\\.0*)?\\s*$' "
+                "THEN CAST(CAST({x} AS TEXT) AS DOUBLE PRECISION) END",
+    category_nan_test="CAST({x} AS TEXT) = 'NaN'",
     function_form="sql/function_postgres.sql.j2",
     parameter="${n}",
     parameter_decl="{type}",
+    typed_parameters=True,
     function_call="SELECT t.*, s.*\nFROM {table} AS t CROSS JOIN LATERAL {name}({args}) AS s;",
 )
 
@@ -122,7 +132,8 @@ DUCKDB = Dialect(
     fold_identifiers=True,
     identifier_max_bytes=None,
     view="CREATE VIEW {name} AS",
-    number_read="{number}",
+    number_read="TRY_CAST({x} AS DOUBLE)",
+    category_nan_test="isnan(TRY_CAST({x} AS DOUBLE))",
     function_form="sql/function_duckdb.sql.j2",
     parameter="p{i}",
     parameter_decl="p{i}",

@@ -2,8 +2,10 @@
 
 The server listens on a free loopback port and on a unix socket inside the
 directory, with fsync off (the data is disposable). initdb refuses to run as
-root, so under root the cluster is created and run as the `postgres` user (the temp
-directories above it get search permission for others so that user can reach it).
+root, so under root the cluster is created and run as the `postgres` user, in a private
+directory of its own under the system temp directory (the given directory may
+sit below directories only root can enter, which pytest re-locks at every
+session start); it is removed again by `stop()`.
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ import pwd
 import shutil
 import socket
 import subprocess
+import tempfile
 from pathlib import Path
 
 from ..errors import ScorewrightError
@@ -39,23 +42,14 @@ def _free_port() -> int:
         return sock.getsockname()[1]
 
 
-def _allow_traversal(directory: Path) -> None:
-    """Give others search (x) permission on the private temp directories above the
-    server's, so the `postgres` user can reach it; nothing becomes readable."""
-    for parent in (directory, *directory.parents):
-        mode = parent.stat().st_mode
-        if mode & 0o001:
-            break
-        parent.chmod((mode & 0o7777) | 0o001)
-
-
 class TemporaryServer:
     """A PostgreSQL server owned by this process; `start()`, then `dsn`, then `stop()`."""
 
     def __init__(self, directory):
         self.directory = Path(directory)
-        self.data = self.directory / "data"
-        self.log = self.directory / "server.log"
+        self.home = self.directory  # where the cluster lives; see start()
+        self.data = self.home / "data"
+        self.log = self.home / "server.log"
         self.port: int | None = None
         self._user: pwd.struct_passwd | None = None
         self._running = False
@@ -79,7 +73,7 @@ class TemporaryServer:
         env = dict(os.environ, LC_ALL="C", LANG="C")
         try:
             proc = subprocess.run(argv, capture_output=True, text=True, env=env,
-                                  cwd=self.directory, timeout=START_TIMEOUT_S, **kwargs)
+                                  cwd=self.home, timeout=START_TIMEOUT_S, **kwargs)
         except subprocess.TimeoutExpired:
             raise ScorewrightError(f"postgres: {what} timed out{self._log_tail()}") from None
         if proc.returncode != 0:
@@ -102,14 +96,15 @@ class TemporaryServer:
             except KeyError:
                 raise ScorewrightError("postgres: running as root and there is no 'postgres' "
                                        "user to run the server as") from None
-            os.chown(self.directory, self._user.pw_uid, self._user.pw_gid)
-            self.directory.chmod(0o700)
-            _allow_traversal(self.directory.resolve().parent)
+            self.home = Path(tempfile.mkdtemp(prefix="scorewright-pg-"))
+            os.chown(self.home, self._user.pw_uid, self._user.pw_gid)
+            self.data, self.log = self.home / "data", self.home / "server.log"
+            (self.directory / "cluster-location").write_text(f"{self.home}\n")
         self._run([_binary("initdb"), "-D", str(self.data), "-A", "trust", "-E", "UTF8",
                    "--no-locale", "--no-sync"], "initdb")
         self.port = _free_port()
         options = (f"-c port={self.port} -c listen_addresses=127.0.0.1 "
-                   f"-c unix_socket_directories='{self.directory}' -c fsync=off "
+                   f"-c unix_socket_directories='{self.home}' -c fsync=off "
                    "-c synchronous_commit=off -c full_page_writes=off")
         self._run([_binary("pg_ctl"), "-D", str(self.data), "-l", str(self.log), "-o", options,
                    "-w", "-t", str(START_TIMEOUT_S), "start"], "pg_ctl start")
@@ -119,8 +114,12 @@ class TemporaryServer:
         if not self._running:
             return
         self._running = False
-        self._run([_binary("pg_ctl"), "-D", str(self.data), "-m", "immediate", "-w", "stop"],
-                  "pg_ctl stop")
+        try:
+            self._run([_binary("pg_ctl"), "-D", str(self.data), "-m", "immediate", "-w",
+                       "stop"], "pg_ctl stop")
+        finally:
+            if self.home != self.directory:
+                shutil.rmtree(self.home, ignore_errors=True)
 
     def __enter__(self) -> "TemporaryServer":
         self.start()

@@ -40,29 +40,36 @@ def text_cell(value):
     return value if isinstance(value, str) else repr(value)
 
 
-def integer_level_cell(feature: str, value):
-    """A raw value for an integer-level category as a number column holds it."""
-    if value is None or isinstance(value, float):
-        if isinstance(value, float) and value.is_integer() and abs(value) < INT64:
-            return int(value)
-        return value
-    if value == "":
+def integer_level_cell(value):
+    """A raw value for an integer-level category: an int or float where it is a number
+    (integral ones as ints), else its text (read as unseen, or as missing when empty)."""
+    if value is None or value == "":
         return None
-    if not isinstance(value, bool):
-        whole = _integral(value)
-        if whole is not None:
-            return whole if abs(whole) < INT64 else float(whole)
-        number = numeric_value(value) if isinstance(value, str) else None
-        if number is not None:
-            return number
-    raise ScorewrightError(f"sql: feature {feature!r} has integer levels; the value {value!r} "
-                           "cannot be stored in its numeric column")
+    if isinstance(value, bool):
+        return str(value)
+    if isinstance(value, float):
+        return int(value) if value.is_integer() and abs(value) < INT64 else value
+    whole = _integral(value)
+    if whole is not None:
+        return whole if abs(whole) < INT64 else float(whole)
+    number = numeric_value(value) if isinstance(value, str) else None
+    if number is not None:
+        return number
+    return value if isinstance(value, str) else repr(value)
+
+
+def as_text(value):
+    """A cell of a text column that holds integer-level codes."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return None
+    return value if isinstance(value, str) else repr(value) if isinstance(value, float) \
+        else str(value)
 
 
 class Table:
     """The input table: column names, SQL types and cell values, in row order."""
 
-    def __init__(self, plan, s, rows, types: dict):
+    def __init__(self, plan, s, rows, types: dict, mixed_cell=as_text):
         self.columns: list[str] = []
         self.kinds: list[str] = []
         converters = []
@@ -76,13 +83,20 @@ class Table:
                 converters.append((inp.name, numeric_cell))
             elif inp.integer_levels:
                 self.kinds.append("integer")
-                converters.append((inp.name, lambda v, n=inp.name: integer_level_cell(n, v)))
+                converters.append((inp.name, integer_level_cell))
             else:
                 self.kinds.append("text")
                 converters.append((inp.name, text_cell))
         self.values = [[convert(row.get(name)) for name, convert in converters] for row in rows]
         for j, kind in enumerate(self.kinds):
-            if kind == "integer" and any(isinstance(r[j], float) for r in self.values):
+            if kind != "integer":
+                continue
+            if any(isinstance(r[j], str) for r in self.values):
+                # A text column holding codes: the engine stores it its own way.
+                self.kinds[j] = "mixed"
+                for r in self.values:
+                    r[j] = mixed_cell(r[j])
+            elif any(isinstance(r[j], float) for r in self.values):
                 self.kinds[j] = "double"
         self.row_column = "scorewright_row"
         while self.row_column.lower() in {c.lower() for c in self.columns}:
@@ -99,7 +113,7 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
         raise ScorewrightError(f"sql: artifact {path} is missing")
     sql = path.read_text(encoding="utf-8")
     engine = ENGINES[d.name]
-    table = Table(plan, s, rows, engine.TYPES)
+    table = Table(plan, s, rows, engine.TYPES, engine.mixed_cell)
     if s.form == "select":
         query = sql
     elif s.form == "view":
@@ -123,7 +137,7 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
 
 def create_table(d, name: str, table: Table) -> str:
     cols = [f"{d.quote(table.row_column)} BIGINT"]
-    cols += [f"{d.quote(c)} {t}" for c, t in zip(table.columns, table.types)]
+    cols += [f"{d.quote(c)} {t}".rstrip() for c, t in zip(table.columns, table.types)]
     return f"CREATE TABLE {d.quote(name)} ({', '.join(cols)})"
 
 
@@ -137,7 +151,9 @@ def _records(table: Table):
 
 
 class SQLite:
-    TYPES = {"double": "REAL", "integer": "INTEGER", "text": "TEXT"}
+    # No declared type: the column keeps integers, reals and text as they are.
+    TYPES = {"double": "REAL", "integer": "INTEGER", "text": "TEXT", "mixed": ""}
+    mixed_cell = staticmethod(lambda v: v)
 
     @staticmethod
     def execute(options, d, name, table, setup, query):
@@ -159,7 +175,8 @@ class SQLite:
 
 
 class DuckDB:
-    TYPES = {"double": "DOUBLE", "integer": "BIGINT", "text": "VARCHAR"}
+    TYPES = {"double": "DOUBLE", "integer": "BIGINT", "text": "VARCHAR", "mixed": "VARCHAR"}
+    mixed_cell = staticmethod(as_text)
 
     @staticmethod
     def execute(options, d, name, table, setup, query):
@@ -182,7 +199,9 @@ class DuckDB:
 
 
 class PostgreSQL:
-    TYPES = {"double": "DOUBLE PRECISION", "integer": "BIGINT", "text": "TEXT"}
+    TYPES = {"double": "DOUBLE PRECISION", "integer": "BIGINT", "text": "TEXT",
+             "mixed": "TEXT"}
+    mixed_cell = staticmethod(as_text)
 
     @classmethod
     def execute(cls, options, d, name, table, setup, query):
