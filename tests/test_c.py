@@ -441,3 +441,32 @@ def test_cli_emit_and_its_errors(tmp_path):
         assert proc.returncode == 2 and words in proc.stderr, proc.stderr
         assert len(proc.stderr.strip().splitlines()) == 1 and "Traceback" not in proc.stderr
         assert not where.exists() or not any(where.iterdir())
+
+
+def test_fused_multiply_add_is_kept_off_even_when_the_flags_allow_it(tmp_path):
+    """GCC ignores `#pragma STDC FP_CONTRACT OFF`; with -mfma -ffp-contract=fast it would fuse
+    `s + w * v` (one rounding instead of two). The scorer's GCC pragma keeps the bits; the
+    same source without it does not, which shows the trap is real on this machine."""
+    _require("gcc")
+    flags = Path("/proc/cpuinfo").read_text().split()
+    assert "fma" in flags, "this check needs an x86-64 CPU with FMA"
+    model = models.build("diabetes_ridge").model
+    plan = build_plan(model)
+    rows = _rows("diabetes_ridge")
+    want = _expected(plan, rows)["margins"]  # MinMax scaling: v * c then v + c, fusable
+    for art in emitter("c")(model, {}):
+        (tmp_path / art.name).write_bytes(art.content)
+    source = tmp_path / "diabetes_ridge.c"
+    fused = {"cflags": ["-std=gnu99", "-O2", "-mfma", "-ffp-contract=fast"]}
+    results = []
+    for variant in ("as emitted", "pragma removed"):
+        if variant == "pragma removed":
+            text = source.read_text()
+            source.write_text(text.replace('#pragma GCC optimize("fp-contract=off")', ""))
+        exe = crunner.build_driver(tmp_path, model, fused, tmp_path)
+        data = tmp_path / "rows.bin"
+        data.write_bytes(crunner.encode_rows(plan, rows).tobytes())
+        out = subprocess.run([str(exe), str(data)], capture_output=True, text=True, check=True)
+        got = crunner.parse_output(plan, out.stdout, "gcc").margins
+        results.append(int((_bits(got) != _bits(want)).sum()))
+    assert results[0] == 0 and results[1] > 0, results

@@ -34,8 +34,8 @@ class CPrecision:
     exp: str
     fabs: str
 
-    def literal(self, x: float) -> str:
-        """The exact C literal of `x` rounded to this precision."""
+    def rounded(self, x: float) -> float:
+        """`x` rounded to nearest in this precision."""
         x = float(x)
         if self.real == "float":
             try:
@@ -43,7 +43,11 @@ class CPrecision:
             except OverflowError:
                 raise ScorewrightError(
                     f"constant {x!r} of the model does not fit in a C float") from None
-        return float.hex(x) + self.suffix
+        return x
+
+    def literal(self, x: float) -> str:
+        """The exact C literal of `x` rounded to this precision."""
+        return float.hex(self.rounded(x)) + self.suffix
 
 
 PRECISIONS = {
@@ -61,7 +65,7 @@ STEP = {
 
 # Rows scored per pass of the batch loop: independent rows give the CPU
 # independent addition chains while each row keeps the plan's order.
-BATCH_BLOCK = 4
+BATCH_BLOCK = 8
 
 
 @dataclass(frozen=True)
@@ -123,13 +127,13 @@ def context(plan: Plan, prefix: str, prec: CPrecision) -> dict:
         "n_features": len(plan.inputs),
         "n_outputs": plan.n_outputs,
         "batch_width": plan.n_outputs if plan.task == "multiclass" else 1,
-        "block": BATCH_BLOCK,
         "tables": _tables(plan, prec, prefix),
         "row_lines": [line for group in margin_groups(plan, prec, names, prefix, "row")
                       for line in group],
         "row_locals": _locals(plan, prec, "row"),
-        "block_groups": margin_groups(plan, prec, names, prefix, "block"),
-        "block_locals": _locals(plan, prec, "block"),
+        "batch_lines": [line for group in margin_groups(plan, prec, names, prefix, "batch")
+                        for line in group],
+        "batch_locals": _locals(plan, prec, "batch"),
         "guard": lit(plan.precision.exp_guard),
         "log_max": lit(plan.precision.log_link_max),
         "cut": None if plan.cut is None else lit(plan.cut),
@@ -157,10 +161,9 @@ def margin_groups(plan: Plan, prec: CPrecision, names: list[str], prefix: str,
     and a last group for the intercepts.
 
     form "row": inputs from the struct `in`, margins into m[k].
-    form "block": inputs from the double rows `x` (row r), margins into m[k][r].
+    form "batch": inputs from the batch row of doubles `x`, margins into m[k].
     """
     lit = prec.literal
-    width = len(plan.inputs)
     if form == "row":
         def source(inp):
             return f"in->{names[inp.index]}"
@@ -169,10 +172,10 @@ def margin_groups(plan: Plan, prec: CPrecision, names: list[str], prefix: str,
             return f"m[{k}]"
     else:
         def source(inp):
-            return f"x[r * {width} + {inp.index}]"
+            return f"x[{inp.index}]"
 
         def acc(k):
-            return f"m[{k}][r]"
+            return f"m[{k}]"
     groups: list[list[str]] = []
     started = [False] * plan.n_outputs
     for term in plan.terms:
@@ -205,11 +208,11 @@ def _locals(plan: Plan, prec: CPrecision, form: str) -> list[str]:
     out = []
     if numeric:
         out.append(f"{prec.real} v;")
-    if form == "block" and (coded or (numeric and prec.real != "double")):
+    if form == "batch" and (coded or (numeric and prec.real != "double")):
         out.append("double d;")
     if coded:
         out.append("int c;")
-    if numeric:
+    if any(inp.fill is None for inp in numeric):
         out.append("int ok;")
     return out
 
@@ -219,31 +222,48 @@ def _table_name(prefix: str, index: int) -> str:
 
 
 def _numeric_lines(inp: NumericInput, prec: CPrecision, src: str, form: str) -> list[str]:
-    """A numeric input's design value into v. A missing value is replaced before any
-    arithmetic, so no NaN or infinity is ever computed with (no FP exception flags)."""
+    """A numeric input's design value into v.
+
+    One quiet test (`islessequal` raises no FP flag on NaN) sends the rare values,
+    missing (NaN, +-inf) or beyond the guard, off the common path; clamping is a pure
+    selection, so a beyond-the-guard value becomes +-bound and the fill is clamped
+    here at emit time, exactly as the plan would at run time. No NaN or infinity is
+    ever computed with.
+    """
     lit = prec.literal
-    if form == "block" and prec.real != "double":
-        # A finite double beyond float range must be clamped before it is narrowed,
-        # or it would turn into an infinity and read as missing.
-        b = float.hex(inp.bound)
-        lines = [f"d = {src};", "ok = isfinite(d);", "d = ok ? d : 0.0;",
-                 f"d = (-{b} > d) ? -{b} : d;", f"d = ({b} < d) ? {b} : d;",
-                 f"v = ({prec.real})d;"]
+    narrow = form == "batch" and prec.real != "double"
+    # A finite double beyond float range must be clamped before it is narrowed to
+    # float, or it would become an infinity and read as missing.
+    x, real_bound, fabs = ("d", float.hex(inp.bound), "fabs") if narrow else \
+        ("v", lit(inp.bound), prec.fabs)
+    lines = [f"{x} = {src};"]
+    beyond = f"({x} > 0.0) ? {real_bound} : -{real_bound}" if narrow else \
+        f"({x} > {lit(0.0)}) ? {real_bound} : -{real_bound}"
+    if inp.fill is not None:
+        fill = _clamped(prec, inp.fill, inp.bound)
+        fill = float.hex(fill) if narrow else lit(fill)
+        lines += [f"if (!islessequal({fabs}({x}), {real_bound})) {{",
+                  f"    {x} = isfinite({x}) ? ({beyond}) : {fill};", "}"]
     else:
-        lines = [f"v = {src};", "ok = isfinite(v);"]
-    # Missing takes the fill in raw units and goes through the same steps; without
-    # a fill, its design value is exactly 0.0 (the steps run on 0.0, branch-free).
-    filler = lit(inp.fill) if inp.fill is not None else lit(0.0)
-    lines.append(f"v = ok ? v : {filler};")
-    bound = lit(inp.bound)
-    lines += [f"v = (-{bound} > v) ? -{bound} : v;", f"v = ({bound} < v) ? {bound} : v;"]
+        zero = "0.0" if narrow else lit(0.0)
+        lines += ["ok = 1;", f"if (!islessequal({fabs}({x}), {real_bound})) {{",
+                  f"    ok = isfinite({x});", f"    {x} = ok ? ({beyond}) : {zero};", "}"]
+    if narrow:
+        lines.append(f"v = ({prec.real})d;")
     lines += [STEP[s.op].format(c=lit(s.value)) for s in inp.steps]
     if inp.clip is not None:
         lo, hi = lit(inp.clip[0]), lit(inp.clip[1])
         lines += [f"v = ({lo} > v) ? {lo} : v;", f"v = ({hi} < v) ? {hi} : v;"]
     if inp.fill is None:
+        # without a fill, a missing input's design value is exactly 0.0
         lines.append(f"v = ok ? v : {lit(0.0)};")
     return lines
+
+
+def _clamped(prec: CPrecision, fill: float, bound: float) -> float:
+    """min(max(fill, -bound), bound) in the target precision: a selection, no rounding."""
+    b = prec.rounded(bound)
+    return min(max(prec.rounded(fill), -b), b)
 
 
 def _code_lines(inp: CategoricalInput, src: str, form: str) -> list[str]:
