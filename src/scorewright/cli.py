@@ -7,6 +7,7 @@ artifacts disagree. Files are written atomically and never overwritten without
 
 from __future__ import annotations
 
+import signal
 import sys
 from pathlib import Path
 
@@ -327,7 +328,13 @@ def demo(outdir, force):
     return run_demo(Path(outdir), force=force)
 
 
+def _terminate(signum, frame):
+    # Unwind like Ctrl-C so atomic writes remove their temporary files.
+    raise KeyboardInterrupt
+
+
 def main():
+    signal.signal(signal.SIGTERM, _terminate)
     cli.main(prog_name="scorewright")
 
 
