@@ -136,35 +136,34 @@ def build_plan(model: FrozenModel, precision: str = "double") -> Plan:
     head = model.head
     n_out = len(head.intercepts)
     # Terms in the order of each input's first design column.
-    order: list[int] = []
-    names = [f.name for f in model.features]
-    for col in model.design:
-        i = names.index(col.feature)
-        if i not in order:
-            order.append(i)
+    index_of = {f.name: i for i, f in enumerate(model.features)}
+    columns: dict[int, list[int]] = {}
+    for j, col in enumerate(model.design):
+        columns.setdefault(index_of[col.feature], []).append(j)
     terms: list[Term] = []
-    for i in order:
+    for i, cols in columns.items():
         feat = model.features[i]
-        cols = [j for j, c in enumerate(model.design) if c.feature == feat.name]
         if isinstance(feat, NumericFeature):
             weights = tuple(head.coefficients[k][cols[0]] for k in range(n_out))
             if any(w != 0.0 for w in weights):
                 terms.append(Term(i, "numeric", weights=weights))
         else:
+            code = {level: c for c, level in enumerate(feat.levels)}
             tables = []
             for k in range(n_out):
                 row = [0.0] * len(feat.levels)
                 for j in cols:
                     for level in model.design[j].levels:
-                        row[feat.levels.index(level)] = head.coefficients[k][j]
+                        row[code[level]] = head.coefficients[k][j]
                 tables.append(tuple(row))
             if any(v != 0.0 for t in tables for v in t):
                 terms.append(Term(i, "categorical", tables=tuple(tables)))
     term_of = {t.input: t for t in terms}
+    budgets = _term_budgets(terms, head.intercepts, prec)
     built = []
     for i, feat in enumerate(model.features):
         if isinstance(feat, NumericFeature):
-            bound = _numeric_bound(feat, term_of.get(i), terms, head.intercepts, prec)
+            bound = _numeric_bound(feat, term_of.get(i), budgets, prec)
             built.append(NumericInput(i, feat.name, feat.fill, bound, feat.scaling, feat.clip))
         else:
             built.append(_categorical_input(i, feat))
@@ -189,24 +188,31 @@ def _categorical_input(index: int, feat: CategoricalFeature) -> CategoricalInput
     return CategoricalInput(index, feat.name, feat.levels, fill, unknown)
 
 
-def _numeric_bound(feat, term, terms, intercepts, prec: Precision) -> float:
-    """The largest power of ten B such that clamping the raw value to [-B, B]
-    keeps every scaling intermediate, every term and every margin finite (the
-    margin stays within the precision's budget)."""
-    if term is None:
-        allowed = prec.max_value
-    else:
-        n_numeric = sum(1 for t in terms if t.kind == "numeric")
-        allowed = prec.max_value
-        for k, weight in enumerate(term.weights):
-            fixed = abs(intercepts[k]) + sum(max(abs(v) for v in t.tables[k])
-                                             for t in terms if t.kind == "categorical")
-            if fixed >= prec.budget / 2:
-                raise ScorewrightError(
-                    f"model coefficients are too large to score safely in {prec.name} "
-                    f"(intercept plus category contributions reach {fixed:.3g})")
+def _term_budgets(terms, intercepts, prec: Precision) -> list[float]:
+    """Per output, the largest |weight * value| one numeric term may reach so the margin
+    stays within the precision's budget."""
+    n_numeric = max(1, sum(1 for t in terms if t.kind == "numeric"))
+    budgets = []
+    for k, intercept in enumerate(intercepts):
+        fixed = abs(intercept) + sum(max(abs(v) for v in t.tables[k])
+                                     for t in terms if t.kind == "categorical")
+        if fixed >= prec.budget / 2:
+            raise ScorewrightError(
+                f"model coefficients are too large to score safely in {prec.name} "
+                f"(intercept plus category contributions reach {fixed:.3g})")
+        budgets.append((prec.budget - fixed) / n_numeric)
+    return budgets
+
+
+def _numeric_bound(feat, term, budgets, prec: Precision) -> float:
+    """The largest power of ten B such that clamping the raw value to [-B, B] keeps every
+    scaling intermediate, every term and every margin finite (the margin stays within the
+    precision's budget)."""
+    allowed = prec.max_value
+    if term is not None:
+        for budget, weight in zip(budgets, term.weights):
             if weight != 0.0:
-                allowed = min(allowed, (prec.budget - fixed) / n_numeric / abs(weight))
+                allowed = min(allowed, budget / abs(weight))
     for step in reversed(feat.scaling):
         c = abs(step.value)
         if step.op in ("subtract", "add"):

@@ -1,0 +1,80 @@
+"""Scale: a 10,000-feature model and a categorical with 5,000 levels, emitted, built and run
+on every target and compared with the reference. Time and artifact size are measured and
+reported (never asserted)."""
+
+from __future__ import annotations
+
+import random
+import time
+
+import pytest
+
+import tally
+from scorewright.emit import emitter
+from scorewright.model import CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature
+from scorewright.model import ScalingStep
+from scorewright.plan import build_plan
+from scorewright.verify.cases import random_rows, rows_for_precision
+from scorewright.verify.compare import compare
+from scorewright.verify.harness import expected_outputs
+from scorewright.verify.profiles import builtin_names, load_profile
+from scorewright.verify.runners import runner
+
+FIGURES: dict = {}
+
+
+def wide_model(n: int) -> FrozenModel:
+    rng = random.Random(n)
+    feats = tuple(NumericFeature(f"sensor_{i:05d}", rng.uniform(-1, 1),
+                                 (ScalingStep("subtract", rng.uniform(-5, 5)),
+                                  ScalingStep("divide", rng.uniform(0.5, 3.0))))
+                  for i in range(n))
+    design = tuple(DesignColumn(f.name) for f in feats)
+    coefs = tuple(rng.gauss(0, 0.02) for _ in range(n))
+    return FrozenModel(f"wide_{n}", feats, design,
+                       Head("binary", "logit", ("ok", "fault"), (-0.3,), (coefs,), 0.0),
+                       {"scorewright_version": "test", "source": "scale test"}).sealed()
+
+
+def many_levels_model(n_levels: int) -> FrozenModel:
+    rng = random.Random(n_levels)
+    levels = tuple(f"site-{i:05d}" for i in range(n_levels))
+    feats = (NumericFeature("load_pct", 50.0, (ScalingStep("subtract", 50.0),
+                                                ScalingStep("divide", 20.0))),
+             CategoricalFeature("site", levels, None, None))
+    design = (DesignColumn("load_pct"),) + tuple(DesignColumn("site", (lv,)) for lv in levels)
+    coefs = (0.4,) + tuple(rng.gauss(0, 0.5) for _ in levels)
+    return FrozenModel(f"levels_{n_levels}", feats, design,
+                       Head("binary", "logit", (0, 1), (0.1,), (coefs,), 0.0),
+                       {"scorewright_version": "test", "source": "scale test"}).sealed()
+
+
+MODELS = {"10,000 numeric features": lambda: wide_model(10_000),
+          "one categorical with 5,000 levels": lambda: many_levels_model(5_000)}
+
+
+@pytest.mark.parametrize("profile_name", builtin_names())
+@pytest.mark.parametrize("kind", sorted(MODELS))
+def test_large_models_run_on_every_target(kind, profile_name, tmp_path, request):
+    profile = load_profile(profile_name)
+    lacks = profile.missing_requirements()
+    assert not lacks, f"{profile_name} cannot run here: lacks {lacks}"
+    model = MODELS[kind]()
+    t0 = time.perf_counter()
+    arts = emitter(profile.emitter)(model, dict(profile.emit))
+    emitted = time.perf_counter() - t0
+    for art in arts:
+        (tmp_path / art.name).write_bytes(art.content)
+    plan = build_plan(model, profile.tolerance.precision)
+    rows = rows_for_precision(plan, random_rows(plan, 40, seed=3), profile.tolerance.precision)
+    options = profile.run_options
+    if profile.runner == "sql" and options.get("dialect") == "postgres":
+        options["dsn"] = request.getfixturevalue("postgres_dsn")
+    t1 = time.perf_counter()
+    got = runner(profile.runner)(tmp_path, model, rows, options)
+    ran = time.perf_counter() - t1
+    result = compare(expected_outputs(plan, rows), got, profile.tolerance)
+    size = sum(len(a.content) for a in arts)
+    tally.add(f"scale run: {kind} on {profile_name}: emit {emitted:.1f} s, build+run "
+              f"{ran:.1f} s, artifact {size / 1e6:.2f} MB", 1)
+    assert result.ok, (result.max_ulps, result.reasons)
