@@ -250,8 +250,9 @@ def summary_lines(report: AgreementReport) -> list[str]:
         c = r.comparison
         detail = ""
         if c is not None:
-            ulps = ", ".join(f"{k} {v:g}" for k, v in c.max_ulps.items())
-            detail = f"{c.rows} rows, max ULP: {ulps}"
+            diffs = ", ".join(f"{k} {c.max_ulps[k]:g} ULP / {c.max_abs.get(k, 0.0):.2g} abs"
+                              for k in c.max_ulps)
+            detail = f"{c.rows} rows; max difference: {diffs}"
         msg = f" - {r.message}" if r.message else ""
         lines.append(f"{r.status.upper():<11} {r.profile.name:<22} {detail}{msg}")
     return lines
