@@ -122,7 +122,9 @@ def test_double_is_bit_identical_to_the_reference(name, built):
     got = crunner.parse_output(b.plan, b.run("--traps"), "gcc")
     want = _expected(b.plan, b.rows)
     assert (_bits(got.margins) == _bits(want["margins"])).all()
-    batch = _batch(b.run("--batch", "--traps"))
+    # The batch path is checked without traps: GCC vectorizes its quiet tests into
+    # SSE2's signalling compares (a NaN sets FE_INVALID; no trap by default).
+    batch = _batch(b.run("--batch"))
     if b.plan.task == "regression":
         assert (_bits(got.value) == _bits(want["value"])).all()
         assert (_bits(batch[:, 0]) == _bits(want["value"])).all()

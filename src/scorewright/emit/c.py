@@ -13,47 +13,19 @@ function names); the plan built for that precision supplies the guards.
 
 from __future__ import annotations
 
-import struct
 from dataclasses import dataclass
 
 from ..errors import ScorewrightError
 from ..model import FrozenModel
 from ..plan import CategoricalInput, NumericInput, Plan, build_plan
 from . import Artifact, reject_options
+from .c_batch import batch_code, table_name
+from .c_precision import PRECISIONS, CPrecision
 from .c_syntax import check_prefix, comment_text, default_prefix, field_names, string_literal
 from .templating import render
 
 OPTIONS = ("prefix", "precision", "decision_only", "portable_exp", "report")
 
-
-@dataclass(frozen=True)
-class CPrecision:
-    name: str     # the plan precision it lowers
-    real: str     # C type of every intermediate
-    suffix: str   # literal suffix
-    exp: str
-    fabs: str
-
-    def rounded(self, x: float) -> float:
-        """`x` rounded to nearest in this precision."""
-        x = float(x)
-        if self.real == "float":
-            try:
-                x = struct.unpack("<f", struct.pack("<f", x))[0]
-            except OverflowError:
-                raise ScorewrightError(
-                    f"constant {x!r} of the model does not fit in a C float") from None
-        return x
-
-    def literal(self, x: float) -> str:
-        """The exact C literal of `x` rounded to this precision."""
-        return float.hex(self.rounded(x)) + self.suffix
-
-
-PRECISIONS = {
-    "double": CPrecision("double", "double", "", "exp", "fabs"),
-    "float": CPrecision("float", "float", "f", "expf", "fabsf"),
-}
 
 # plan scaling op -> C statement on the design value v
 STEP = {
@@ -128,12 +100,9 @@ def context(plan: Plan, prefix: str, prec: CPrecision) -> dict:
         "n_outputs": plan.n_outputs,
         "batch_width": plan.n_outputs if plan.task == "multiclass" else 1,
         "tables": _tables(plan, prec, prefix),
-        "row_lines": [line for group in margin_groups(plan, prec, names, prefix, "row")
-                      for line in group],
-        "row_locals": _locals(plan, prec, "row"),
-        "batch_lines": [line for group in margin_groups(plan, prec, names, prefix, "batch")
-                        for line in group],
-        "batch_locals": _locals(plan, prec, "batch"),
+        "row_lines": margin_lines(plan, prec, names, prefix),
+        "row_locals": _locals(plan, prec),
+        **batch_code(plan, prec, prefix),
         "guard": lit(plan.precision.exp_guard),
         "log_max": lit(plan.precision.log_link_max),
         "cut": None if plan.cut is None else lit(plan.cut),
@@ -150,133 +119,84 @@ def _tables(plan: Plan, prec: CPrecision, prefix: str) -> list[dict]:
         if term.kind != "categorical":
             continue
         rows = [[prec.literal(x) for x in table] + [prec.literal(0.0)] for table in term.tables]
-        out.append({"name": _table_name(prefix, term.input), "rows": rows, "width": len(rows[0]),
+        out.append({"name": table_name(prefix, term.input), "rows": rows, "width": len(rows[0]),
                     "comment": comment_text(plan.inputs[term.input].name)})
     return out
 
 
-def margin_groups(plan: Plan, prec: CPrecision, names: list[str], prefix: str,
-                  form: str) -> list[list[str]]:
-    """The statements computing every margin in the plan's order, one group per term
-    and a last group for the intercepts.
-
-    form "row": inputs from the struct `in`, margins into m[k].
-    form "batch": inputs from the batch row of doubles `x`, margins into m[k].
-    """
+def margin_lines(plan: Plan, prec: CPrecision, names: list[str], prefix: str) -> list[str]:
+    """The row scorer's statements: inputs from the struct `in`, margins into m[k], one
+    statement per plan step, in the plan's order."""
     lit = prec.literal
-    if form == "row":
-        def source(inp):
-            return f"in->{names[inp.index]}"
-
-        def acc(k):
-            return f"m[{k}]"
-    else:
-        def source(inp):
-            return f"x[{inp.index}]"
-
-        def acc(k):
-            return f"m[{k}]"
-    groups: list[list[str]] = []
+    lines: list[str] = []
     started = [False] * plan.n_outputs
     for term in plan.terms:
         inp = plan.inputs[term.input]
-        lines = [f"/* input {inp.index}: {comment_text(inp.name)} */"]
+        lines.append(f"/* input {inp.index}: {comment_text(inp.name)} */")
         if term.kind == "numeric":
-            lines += _numeric_lines(inp, prec, source(inp), form)
+            lines += _numeric_lines(inp, prec, f"in->{names[inp.index]}")
         else:
-            lines += _code_lines(inp, source(inp), form)
+            lines += _code_lines(inp, f"in->{names[inp.index]}")
         for k in range(plan.n_outputs):
             if term.kind == "numeric":
                 t = f"{lit(term.weights[k])} * v"
             else:
-                t = f"{_table_name(prefix, term.input)}[{k}][c]"
-            lines.append(f"{acc(k)} = {acc(k)} + {t};" if started[k] else f"{acc(k)} = {t};")
+                t = f"{table_name(prefix, term.input)}[{k}][c]"
+            lines.append(f"m[{k}] = m[{k}] + {t};" if started[k] else f"m[{k}] = {t};")
             started[k] = True
-        groups.append(lines)
-    lines = []
     for k in range(plan.n_outputs):
         b = lit(plan.intercepts[k])
-        lines.append(f"{acc(k)} = {acc(k)} + {b};" if started[k] else f"{acc(k)} = {b};")
-    groups.append(lines)
-    return groups
+        lines.append(f"m[{k}] = m[{k}] + {b};" if started[k] else f"m[{k}] = {b};")
+    return lines
 
 
-def _locals(plan: Plan, prec: CPrecision, form: str) -> list[str]:
-    """The local variables the margin statements of `form` use."""
+def _locals(plan: Plan, prec: CPrecision) -> list[str]:
+    """The local variables of the row scorer's statements."""
     numeric = [plan.inputs[t.input] for t in plan.terms if t.kind == "numeric"]
-    coded = any(t.kind == "categorical" for t in plan.terms)
-    out = []
-    if numeric:
-        out.append(f"{prec.real} v;")
-    if form == "batch" and (coded or (numeric and prec.real != "double")):
-        out.append("double d;")
-    if coded:
+    out = [f"{prec.real} v;"] if numeric else []
+    if any(t.kind == "categorical" for t in plan.terms):
         out.append("int c;")
     if any(inp.fill is None for inp in numeric):
         out.append("int ok;")
     return out
 
 
-def _table_name(prefix: str, index: int) -> str:
-    return f"{prefix}_term_{index}"
-
-
-def _numeric_lines(inp: NumericInput, prec: CPrecision, src: str, form: str) -> list[str]:
+def _numeric_lines(inp: NumericInput, prec: CPrecision, src: str) -> list[str]:
     """A numeric input's design value into v.
 
     One quiet test (`islessequal` raises no FP flag on NaN) sends the rare values,
-    missing (NaN, +-inf) or beyond the guard, off the common path; clamping is a pure
-    selection, so a beyond-the-guard value becomes +-bound and the fill is clamped
-    here at emit time, exactly as the plan would at run time. No NaN or infinity is
-    ever computed with.
+    missing (NaN, +-inf) or beyond the guard, off the common path. Clamping is a pure
+    selection: a value beyond the guard becomes +-bound, and the fill is clamped here
+    at emit time exactly as the plan would at run time. No NaN or infinity is ever
+    computed with.
     """
     lit = prec.literal
-    narrow = form == "batch" and prec.real != "double"
-    # A finite double beyond float range must be clamped before it is narrowed to
-    # float, or it would become an infinity and read as missing.
-    x, real_bound, fabs = ("d", float.hex(inp.bound), "fabs") if narrow else \
-        ("v", lit(inp.bound), prec.fabs)
-    lines = [f"{x} = {src};"]
-    beyond = f"({x} > 0.0) ? {real_bound} : -{real_bound}" if narrow else \
-        f"({x} > {lit(0.0)}) ? {real_bound} : -{real_bound}"
+    bound, zero = lit(inp.bound), lit(0.0)
+    test = f"if (!islessequal({prec.fabs}(v), {bound})) {{"
+    beyond = f"(v > {zero}) ? {bound} : -{bound}"
+    lines = [f"v = {src};"]
     if inp.fill is not None:
-        fill = _clamped(prec, inp.fill, inp.bound)
-        fill = float.hex(fill) if narrow else lit(fill)
-        lines += [f"if (!islessequal({fabs}({x}), {real_bound})) {{",
-                  f"    {x} = isfinite({x}) ? ({beyond}) : {fill};", "}"]
+        fill = lit(prec.clamped(inp.fill, inp.bound))
+        lines += [test, f"    v = isfinite(v) ? ({beyond}) : {fill};", "}"]
     else:
-        zero = "0.0" if narrow else lit(0.0)
-        lines += ["ok = 1;", f"if (!islessequal({fabs}({x}), {real_bound})) {{",
-                  f"    ok = isfinite({x});", f"    {x} = ok ? ({beyond}) : {zero};", "}"]
-    if narrow:
-        lines.append(f"v = ({prec.real})d;")
+        lines += ["ok = 1;", test, "    ok = isfinite(v);", f"    v = ok ? ({beyond}) : {zero};",
+                  "}"]
     lines += [STEP[s.op].format(c=lit(s.value)) for s in inp.steps]
     if inp.clip is not None:
         lo, hi = lit(inp.clip[0]), lit(inp.clip[1])
         lines += [f"v = ({lo} > v) ? {lo} : v;", f"v = ({hi} < v) ? {hi} : v;"]
     if inp.fill is None:
         # without a fill, a missing input's design value is exactly 0.0
-        lines.append(f"v = ok ? v : {lit(0.0)};")
+        lines.append(f"v = ok ? v : {zero};")
     return lines
 
 
-def _clamped(prec: CPrecision, fill: float, bound: float) -> float:
-    """min(max(fill, -bound), bound) in the target precision: a selection, no rounding."""
-    b = prec.rounded(bound)
-    return min(max(prec.rounded(fill), -b), b)
-
-
-def _code_lines(inp: CategoricalInput, src: str, form: str) -> list[str]:
+def _code_lines(inp: CategoricalInput, src: str) -> list[str]:
+    """A struct's code as a resolved level code in c (n, one past the last level, is the
+    table's 0.0 slot for "no level")."""
     n = len(inp.levels)
-    unseen = inp.unknown_code if inp.unknown_code is not None else n  # n: the 0.0 slot
+    unseen = inp.unknown_code if inp.unknown_code is not None else n
     missing = inp.fill_code if inp.fill_code is not None else unseen
-    if form == "row":
-        if missing == unseen:
-            return [f"c = {src};", f"c = (c >= 0 && c < {n}) ? c : {unseen};"]
-        return [f"c = {src};", f"c = (c >= 0 && c < {n}) ? c : (c == -1 ? {missing} : {unseen});"]
-    # Batch rows carry codes as doubles: NaN or -1 is missing; anything that is not
-    # an integral level code is unseen.
-    # The NaN test comes first: ordered comparisons with NaN raise FE_INVALID.
-    return [f"d = {src};",
-            f"c = (d != d || d == -1.0) ? {missing}"
-            f" : ((d >= 0.0 && d < {n}.0 && (double)(int)d == d) ? (int)d : {unseen});"]
+    if missing == unseen:
+        return [f"c = {src};", f"c = (c >= 0 && c < {n}) ? c : {unseen};"]
+    return [f"c = {src};", f"c = (c >= 0 && c < {n}) ? c : (c == -1 ? {missing} : {unseen});"]
