@@ -464,3 +464,35 @@ def test_every_operator_has_an_onnxruntime_cpu_kernel_at_the_stated_opset(tmp_pa
     for op in sorted(used):
         since = onnx.defs.get_schema(op, OPSET, "").since_version
         assert any(lo <= since <= hi for lo, hi in ranges.get(op, [])), (op, since)
+
+
+def test_levels_with_nul_characters_are_matched_exactly(tmp_path):
+    """onnx.helper.make_tensor strips trailing NULs from strings (it goes through a numpy
+    bytes array), which would make the level "a\x00" read as "a" and "\x00" as the
+    missing "". The graph's level constants must keep every byte; onnxruntime then
+    matches them exactly. onnx.reference loads every string constant through numpy's
+    fixed-width strings and loses the NULs itself, so its runner refuses, naming why.
+    (numpy strips them in fitting too, so the model is written as a document.)"""
+    levels = ["a", "a\x00", "\x00", "b\x00\x00"]
+    name = "fan\x00model"
+    model = edited({
+        "format": "scorewright-frozen-model", "format_version": 1, "name": "nul levels",
+        "features": [{"name": name, "kind": "categorical", "levels": levels,
+                      "missing": {"policy": "unknown"}, "unknown": {"policy": "zeros"}}],
+        "design": [{"feature": name, "levels": [level]} for level in levels],
+        "head": {"task": "binary", "link": "logit", "classes": [0, 1], "intercepts": [0.25],
+                 "coefficients": [[0.5, -1.0, 2.0, 4.0]], "cut": 0.0},
+        "provenance": {"scorewright_version": scorewright.__version__, "source": "test"},
+    })
+    emitted(model, tmp_path)
+    plan = build_plan(model)
+    rows = [{name: v} for v in levels + ["", None, "a\x00\x00", "\x00\x00"]]
+    expected = np.array([score_row(plan, r).margins for r in rows])
+    assert len(set(expected[:5, 0])) == 5  # every level and missing differ
+    out = runner("onnx")(tmp_path, model, rows, {})
+    assert out.margins.tobytes() == expected.tobytes()
+    strings = [t for t in onnx.load(tmp_path / "nul_levels.onnx").graph.initializer
+               if t.data_type == onnx.TensorProto.STRING]
+    assert [list(t.string_data) for t in strings] == [[v.encode() for v in levels + [""]]]
+    with pytest.raises(ScorewrightError, match="drops trailing NUL characters .* level 'a"):
+        runner("onnx")(tmp_path, model, rows, {"evaluator": "reference"})

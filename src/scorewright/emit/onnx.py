@@ -180,9 +180,12 @@ class _Graph:
         return self._constants[key]
 
     def strings(self, hint: str, values: list[str]) -> str:
+        # Not helper.make_tensor: it passes strings through a numpy bytes array, which
+        # strips trailing NULs, so a level "a\x00" would become "a" (and "\x00" become "").
         name = self.fresh(hint)
-        data = [v.encode("utf-8") for v in values]
-        self.initializers.append(helper.make_tensor(name, TensorProto.STRING, [len(data)], data))
+        tensor = TensorProto(name=name, data_type=TensorProto.STRING, dims=[len(values)])
+        tensor.string_data.extend(v.encode("utf-8") for v in values)
+        self.initializers.append(tensor)
         return name
 
     def op(self, op_type: str, inputs: list[str], hint: str, outputs: int = 1,

@@ -37,6 +37,8 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     if not path.is_file():
         raise ScorewrightError(f"onnx: artifact {path} is missing")
     feeds = input_feeds(plan, rows, layout)
+    if evaluator == "reference":
+        _check_reference_can_hold(plan)
     if evaluator == "onnxruntime":
         runtime, outputs = _run_onnxruntime(path, feeds)
     else:
@@ -91,6 +93,20 @@ def categorical_column(rows: list[dict], inp) -> np.ndarray:
         else:
             out.append(texts[code])
     return np.array(out, dtype=object).reshape(len(rows), 1)
+
+
+def _check_reference_can_hold(plan: Plan) -> None:
+    """onnx.reference reads string constants through numpy's fixed-width strings, which
+    drop trailing NULs: a level "a\x00" would compare as "a". Refuse rather than
+    report a disagreement that is the evaluator's own."""
+    for inp in plan.inputs:
+        if inp.kind == "categorical":
+            for level in inp.levels:
+                if str(level).endswith("\x00"):
+                    raise ScorewrightError(
+                        f"onnx: the ONNX reference evaluator cannot run this graph: it drops "
+                        f"trailing NUL characters from string constants (feature {inp.name!r}, "
+                        f"level {level!r}); use the onnxruntime evaluator")
 
 
 def _run_onnxruntime(path: Path, feeds: dict) -> tuple[str, dict]:
