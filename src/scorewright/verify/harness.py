@@ -22,7 +22,7 @@ from ..reference import score_row
 from .cases import edge_rows, random_rows, read_csv_rows, rows_for_precision
 from .compare import Comparison, compare, ulp_distance
 from .profiles import Profile, builtin_names, load_profile
-from .runners import runner
+from .runners import artifact_size, runner
 
 SHOWN_ROWS = 5
 
@@ -38,6 +38,7 @@ class TargetResult:
     shown: list = field(default_factory=list)   # the first disagreeing rows, in full
     row_ulps: np.ndarray | None = None          # per row, the largest ULP distance
     seconds: float = 0.0
+    size: dict | None = None                    # flash/RAM/stack, for runners that measure
 
 
 @dataclass
@@ -171,6 +172,9 @@ def _verify_one(model, outdir, profile, rows, labels, expected, extra) -> Target
         result.message = f"the artifact did not run: {last[:300]}"
         return result
     result.runtime = got.runtime
+    size = artifact_size(profile.runner)
+    if size is not None:
+        result.size = size(where, model, options)
     comparison = compare(expected, got, profile.tolerance)
     result.comparison = comparison
     result.row_ulps = _row_ulps(expected, got, profile.tolerance.precision)

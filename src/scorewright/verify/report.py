@@ -23,6 +23,8 @@ def _result_dict(r) -> dict:
         "stated_tolerance": {k: getattr(tol, k) for k in tol.__dataclass_fields__},
         "seconds": round(r.seconds, 3),
     }
+    if r.size is not None:
+        out["size"] = r.size
     if c is not None:
         out.update({
             "rows_checked": c.rows,
@@ -96,6 +98,9 @@ def agreement_html(report) -> str:
         if r.shown:
             shown.append(f"<h3>{e(r.profile.name)}: first disagreeing rows</h3>"
                          f"<pre>{e(json.dumps(r.shown, indent=2, default=str))}</pre>")
+    sizes = [f"<h3>{e(r.profile.name)}: size</h3><pre>{e(json.dumps(r.size, indent=2))}</pre>"
+             for r in report.results if r.size]
+    shown = sizes + shown
     png = _plot_png(report)
     plot = f"<img alt='agreement plot' src='data:image/png;base64,{png}'>" if png else ""
     verdict = "All targets agree with the reference evaluator." if report.ok else \

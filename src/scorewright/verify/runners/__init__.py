@@ -37,6 +37,20 @@ RUNNERS = {
 }
 
 
+def runner_module(name: str):
+    from ...errors import ScorewrightError
+
+    if name not in RUNNERS:
+        raise ScorewrightError(f"unknown runner {name!r}; known: {', '.join(sorted(RUNNERS))}")
+    return import_module(RUNNERS[name])
+
+
+def artifact_size(name: str):
+    """The runner's optional `size(artifact_dir, model, options) -> dict` (flash, RAM,
+    stack...), or None when the runner has none."""
+    return getattr(runner_module(name), "size", None)
+
+
 def runner(name: str):
     from ...errors import ScorewrightError
 
