@@ -8,7 +8,9 @@ Contract of the graph (also written into its doc string):
   +-inf; categorical features string, missing = "" (the empty string), and an
   integer-level feature takes the level's decimal text ("3"), so every
   categorical input has one type and one missing encoding. `matrix` layout (all
-  numeric models only): one input `features` [N, F] in feature order.
+  numeric models only): one input `features` [N, F] in feature order. A caller
+  feeding a float graph from doubles saturates out-of-range values to +-FLT_MAX
+  (a plain cast makes them inf, which the graph reads as missing).
 - Outputs: margin [N, K]; classification: probability [N, C] in class order and
   class_index [N] int64; regression: predicted_value [N, 1].
 
@@ -41,7 +43,7 @@ from ..plan import Plan, build_plan
 from . import Artifact, reject_options
 
 OPSET = 28
-IR_VERSION = 10  # accepted by onnxruntime >= 1.16 and by the onnx checker at opset 28
+IR_VERSION = 10  # below onnx 1.23's default 14; the checker and onnxruntime 1.32 accept it
 LAYOUTS = ("per-feature", "matrix")
 MATRIX_INPUT = "features"
 OUTPUTS = ("margin", "probability", "class_index", "predicted_value")
