@@ -47,7 +47,14 @@ def design_value(inp, raw: float | None) -> float:
         if inp.fill is None:
             return 0.0
         raw = inp.fill
-    v = min(max(raw, -inp.bound), inp.bound)
+    v = apply_steps(inp, min(max(raw, -inp.bound), inp.bound))
+    if inp.clip is not None:
+        v = min(max(v, inp.clip[0]), inp.clip[1])
+    return v
+
+
+def apply_steps(inp, v):
+    """The scaling steps in order; v is a float or a numpy array (same IEEE operations)."""
     for step in inp.steps:
         if step.op == "subtract":
             v = v - step.value
@@ -57,8 +64,6 @@ def design_value(inp, raw: float | None) -> float:
             v = v * step.value
         else:
             v = v + step.value
-    if inp.clip is not None:
-        v = min(max(v, inp.clip[0]), inp.clip[1])
     return v
 
 
@@ -183,16 +188,7 @@ def _design_column(inp, col: np.ndarray) -> np.ndarray:
         v = np.where(missing, 0.0, col)
     else:
         v = np.where(missing, inp.fill, col)
-    v = np.minimum(np.maximum(v, -inp.bound), inp.bound)
-    for step in inp.steps:
-        if step.op == "subtract":
-            v = v - step.value
-        elif step.op == "divide":
-            v = v / step.value
-        elif step.op == "multiply":
-            v = v * step.value
-        else:
-            v = v + step.value
+    v = apply_steps(inp, np.minimum(np.maximum(v, -inp.bound), inp.bound))
     if inp.clip is not None:
         v = np.minimum(np.maximum(v, inp.clip[0]), inp.clip[1])
     if inp.fill is None:
