@@ -21,6 +21,8 @@ import tally
 from scorewright.emit import emitter
 from scorewright.model import CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature
 from scorewright.plan import build_plan
+from scorewright.errors import ScorewrightError
+from scorewright.verify.cases import rows_for_precision
 from scorewright.verify.compare import compare
 from scorewright.verify.harness import expected_outputs
 from scorewright.verify.profiles import builtin_names, load_profile
@@ -74,14 +76,14 @@ def hostile_models(draw):
     return model
 
 
-def _rows(model):
-    plan = build_plan(model)
+def _rows(model, precision):
+    plan = build_plan(model, precision)
     num0, num1, cat = (i.name for i in plan.inputs)
     rows = []
     for level in list(plan.inputs[2].levels) + [None, "<not a level>"]:
         rows.append({num0: 1.25, num1: -0.5, cat: level})
     rows += [{num0: None, num1: math.nan, cat: None}, {num0: 1e308, num1: -1e308, cat: None}]
-    return plan, rows
+    return plan, rows_for_precision(plan, rows, precision)
 
 
 def _options(profile, request):
@@ -98,7 +100,7 @@ def test_hostile_strings_reach_every_target_safely(profile_name, tmp_path_factor
     assert not lacks, f"{profile_name} cannot run here: lacks {lacks}"
     options = _options(profile, request)
     examples = EXAMPLES * (10 if request.config.getoption("--runslow") else 1)
-    seen = []
+    seen, refused = [], []
 
     @settings(max_examples=examples, deadline=None, database=None,
               suppress_health_check=list(HealthCheck))
@@ -107,8 +109,17 @@ def test_hostile_strings_reach_every_target_safely(profile_name, tmp_path_factor
         where = tmp_path_factory.mktemp("hostile")
         for art in emitter(profile.emitter)(model, dict(profile.emit)):
             (where / art.name).write_bytes(art.content)
-        plan, rows = _rows(model)
-        got = runner(profile.runner)(where, model, rows, dict(options))
+        plan, rows = _rows(model, profile.tolerance.precision)
+        try:
+            got = runner(profile.runner)(where, model, rows, dict(options))
+        except ScorewrightError as exc:
+            # onnx.reference drops trailing NULs of string constants; its runner refuses such
+            # graphs in one line (onnxruntime runs them, and is checked like every target).
+            nul = any(str(v).endswith("\x00") for v in model.features[2].levels)
+            if nul and "cannot run this graph" in str(exc):
+                refused.append(1)
+                return
+            raise
         result = compare(expected_outputs(plan, rows), got, profile.tolerance)
         assert result.ok, (repr(model.name), [f.name for f in model.features], result.reasons)
         seen.append(len(model.features) + len(model.features[2].levels) + 1
@@ -117,3 +128,6 @@ def test_hostile_strings_reach_every_target_safely(profile_name, tmp_path_factor
     check()
     tally.add(f"hostile models through {profile_name}", len(seen))
     tally.add(f"hostile strings (names, levels, labels) through {profile_name}", sum(seen))
+    if refused:
+        tally.add(f"hostile models refused by {profile_name} (evaluator drops NULs)",
+                  len(refused))

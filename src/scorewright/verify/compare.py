@@ -127,7 +127,10 @@ def _near_decision(expected: dict, tol: Tolerance) -> np.ndarray:
     margins = expected["margins"]
     slack = np.maximum(tol.margin_abs, 0.0)
     if tol.margin_ulps:
-        slack = np.maximum(slack, tol.margin_ulps * np.spacing(np.abs(margins)).max(axis=1))
+        dtype = np.float32 if tol.precision == "float" else np.float64
+        with np.errstate(over="ignore"):
+            spacing = np.spacing(np.abs(margins).astype(dtype)).astype(np.float64)
+        slack = np.maximum(slack, tol.margin_ulps * spacing.max(axis=1))
     if margins.shape[1] == 1:
         cut = expected.get("cut", 0.0)
         return np.abs(margins[:, 0] - cut) <= slack
