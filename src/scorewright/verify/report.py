@@ -78,6 +78,17 @@ def _plot_png(report) -> str | None:
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
 
+def _stated(tol):
+    """The tolerance's non-default entries, as text."""
+    for k, field in tol.__dataclass_fields__.items():
+        v = getattr(tol, k)
+        if isinstance(v, str):
+            if v != field.default:
+                yield f"{k} {v}"
+        elif v:
+            yield f"{k} {v:g}"
+
+
 def agreement_html(report) -> str:
     e = html.escape
     rows = []
@@ -86,8 +97,7 @@ def agreement_html(report) -> str:
         ulps = "" if c is None else ", ".join(f"{k}: {v:g}" for k, v in c.max_ulps.items())
         absd = "" if c is None else ", ".join(f"{k}: {v:.3g}" for k, v in c.max_abs.items())
         tol = r.profile.tolerance
-        stated = ", ".join(f"{k} {getattr(tol, k):g}" for k in tol.__dataclass_fields__
-                           if k != "precision" and getattr(tol, k))
+        stated = ", ".join(_stated(tol))
         rows.append(
             f"<tr class='{e(r.status)}'><td>{e(r.profile.name)}</td><td>{e(r.status)}</td>"
             f"<td>{e(r.runtime)}</td><td>{'' if c is None else c.rows}</td><td>{e(ulps)}</td>"
