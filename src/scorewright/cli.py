@@ -221,12 +221,19 @@ def emit(model_file, target, outdir, dialect, table, keep, columns, form, prefix
     options = {k: v for k, v in options.items() if v not in (None, False, {})}
     model = _load(model_file)
     artifacts = emitter(target)(model, options)
+    size_report = None
+    if report:  # measured before anything is written: a missing cross compiler writes nothing
+        from .verify.firmware_size import emit_report
+
+        size_report = emit_report(model, options)
     out = Path(outdir)
     for art in artifacts:
         check_writable(out / art.name, force)
     for art in artifacts:
         write_atomic(out / art.name, art.content, force=force)
         click.echo(f"wrote {out / art.name}")
+    if size_report is not None:
+        click.echo(size_report, nl=False)
 
 
 def _harness_options(postgres_dsn):

@@ -26,6 +26,11 @@ The plan *is* the semantics every target implements. Evaluation, in order:
 
 Precision "float" lowers the same plan with float32 guards and budget for
 targets that compute in single precision.
+
+`exp_kind` names the exp every step uses: "libm" (the runtime's exp; the
+reference evaluator calls CPython's math.exp, which is the C library's) or
+"portable" (scorewright.portable_exp, which targets built with --portable-exp
+carry), so such a target is compared with a reference using the same exp.
 """
 
 from __future__ import annotations
@@ -105,6 +110,7 @@ class Plan:
     terms: tuple[Term, ...]
     intercepts: tuple[float, ...]
     cut: float | None
+    exp_kind: str = "libm"  # libm | portable
 
     @property
     def n_outputs(self) -> int:
@@ -125,8 +131,13 @@ def file_stem(name: str) -> str:
     return stem or "model"
 
 
-def build_plan(model: FrozenModel, precision: str = "double") -> Plan:
+EXP_KINDS = ("libm", "portable")
+
+
+def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm") -> Plan:
     prec = PRECISIONS[precision]
+    if exp not in EXP_KINDS:
+        raise ScorewrightError(f"exp {exp!r}: expected one of {', '.join(EXP_KINDS)}")
     inputs = []
     for index, feat in enumerate(model.features):
         if isinstance(feat, NumericFeature):
@@ -179,6 +190,7 @@ def build_plan(model: FrozenModel, precision: str = "double") -> Plan:
         terms=tuple(terms),
         intercepts=head.intercepts,
         cut=head.cut,
+        exp_kind=exp,
     )
 
 

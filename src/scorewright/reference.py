@@ -14,6 +14,7 @@ from typing import Mapping
 
 import numpy as np
 
+from . import portable_exp
 from .plan import CategoricalInput, Plan
 from .values import MISSING_CODE, UNSEEN_CODE, category_code, numeric_value
 
@@ -67,8 +68,13 @@ def apply_steps(inp, v):
     return v
 
 
+def exp_of(plan: Plan):
+    """The plan's exp: libm's (CPython's math.exp) or the portable routine."""
+    return portable_exp.exp if plan.exp_kind == "portable" else math.exp
+
+
 def sigmoid(plan: Plan, m: float) -> float:
-    t = math.exp(-min(abs(m), plan.precision.exp_guard))
+    t = exp_of(plan)(-min(abs(m), plan.precision.exp_guard))
     return 1.0 / (1.0 + t) if m >= 0.0 else t / (1.0 + t)
 
 
@@ -114,14 +120,14 @@ def finish(plan: Plan, margins: list[float]) -> Score:
             if margins[k] > top:
                 top = margins[k]
                 best = k
-        exps = [math.exp(max(m - top, -guard)) for m in margins]
+        exps = [exp_of(plan)(max(m - top, -guard)) for m in margins]
         total = exps[0]
         for e in exps[1:]:
             total = total + e
         return Score(tuple(margins), tuple(e / total for e in exps), best, None)
     m = margins[0]
     if plan.link == "log":
-        value = math.exp(min(max(m, -guard), plan.precision.log_link_max))
+        value = exp_of(plan)(min(max(m, -guard), plan.precision.log_link_max))
     else:
         value = m
     return Score((m,), None, None, value)
@@ -146,12 +152,13 @@ def encode_rows(plan: Plan, rows) -> np.ndarray:
     return out
 
 
-_exp = np.frompyfunc(math.exp, 1, 1)
+_EXP = {"libm": np.frompyfunc(math.exp, 1, 1),
+        "portable": np.frompyfunc(portable_exp.exp, 1, 1)}
 
 
-def _exp_exact(x: np.ndarray) -> np.ndarray:
+def _exp_exact(x: np.ndarray, kind: str = "libm") -> np.ndarray:
     # numpy's own exp may differ from libm's by an ULP; the oracle uses libm's.
-    return _exp(x).astype(np.float64)
+    return _EXP[kind](x).astype(np.float64)
 
 
 def score_matrix(plan: Plan, matrix: np.ndarray) -> dict[str, np.ndarray]:
@@ -215,7 +222,7 @@ def _finish_matrix(plan: Plan, margins: np.ndarray) -> dict[str, np.ndarray]:
     out: dict[str, np.ndarray] = {"margins": margins}
     if plan.task == "binary":
         m = margins[:, 0]
-        t = _exp_exact(-np.minimum(np.abs(m), guard))
+        t = _exp_exact(-np.minimum(np.abs(m), guard), plan.exp_kind)
         p1 = np.where(m >= 0.0, 1.0 / (1.0 + t), t / (1.0 + t))
         out["probabilities"] = np.stack([1.0 - p1, p1], axis=1)
         out["class_index"] = (m > plan.cut).astype(np.int64)
@@ -226,7 +233,7 @@ def _finish_matrix(plan: Plan, margins: np.ndarray) -> dict[str, np.ndarray]:
             higher = margins[:, k] > top
             top = np.where(higher, margins[:, k], top)
             best = np.where(higher, k, best)
-        exps = _exp_exact(np.maximum(margins - top[:, None], -guard))
+        exps = _exp_exact(np.maximum(margins - top[:, None], -guard), plan.exp_kind)
         total = exps[:, 0].copy()
         for k in range(1, exps.shape[1]):
             total = total + exps[:, k]
@@ -235,7 +242,8 @@ def _finish_matrix(plan: Plan, margins: np.ndarray) -> dict[str, np.ndarray]:
     else:
         m = margins[:, 0]
         if plan.link == "log":
-            out["value"] = _exp_exact(np.minimum(np.maximum(m, -guard), plan.precision.log_link_max))
+            out["value"] = _exp_exact(np.minimum(np.maximum(m, -guard),
+                                                 plan.precision.log_link_max), plan.exp_kind)
         else:
             out["value"] = m.copy()
     return out

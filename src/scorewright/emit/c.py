@@ -9,6 +9,11 @@ x86-64 the double scorer's bits equal the reference evaluator's.
 
 Precisions differ only by the record in PRECISIONS (type, literal suffix, math
 function names); the plan built for that precision supplies the guards.
+
+--portable-exp renders scorewright.portable_exp's routine into the scorer in place
+of libm's exp (identical bits on every IEEE-754 platform, no libm needed);
+--decision-only keeps only `<prefix>_predict` (no exp at all). --report is read
+by the command line, which measures the artifact (verify/firmware_size.py).
 """
 
 from __future__ import annotations
@@ -18,6 +23,7 @@ from dataclasses import dataclass
 from ..errors import ScorewrightError
 from ..model import FrozenModel
 from ..plan import CategoricalInput, NumericInput, Plan, build_plan
+from .. import portable_exp
 from . import Artifact, reject_options
 from .c_batch import batch_code, table_name
 from .c_precision import PRECISIONS, CPrecision
@@ -53,14 +59,16 @@ class Field:
 def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
     options = dict(options or {})
     reject_options("c", options, OPTIONS)
-    if options.get("decision_only") or options.get("portable_exp") or options.get("report"):
-        raise ScorewrightError("--decision-only, --portable-exp and --report are not built yet")
     precision = options.get("precision", "double")
     if precision not in PRECISIONS:
         raise ScorewrightError(f"--precision {precision!r}: expected double or float")
     plan = build_plan(model, precision)
+    decision_only = bool(options.get("decision_only"))
+    if decision_only and plan.task == "regression":
+        raise ScorewrightError("--decision-only: a regression model has no class to decide")
     prefix = check_prefix(options["prefix"]) if "prefix" in options else default_prefix(plan.stem)
-    ctx = context(plan, prefix, PRECISIONS[precision])
+    ctx = context(plan, prefix, PRECISIONS[precision],
+                  portable=bool(options.get("portable_exp")), decision_only=decision_only)
     header = render("c/scorer.h.j2", **ctx)
     source = render("c/scorer.c.j2", **ctx)
     return [Artifact(f"{prefix}.h", header.encode("ascii")),
@@ -75,7 +83,15 @@ def driver_source(model: FrozenModel, prefix: str | None = None,
     return render("c/driver.c.j2", **context(plan, prefix, PRECISIONS[precision]))
 
 
-def context(plan: Plan, prefix: str, prec: CPrecision) -> dict:
+def exp_routine(prefix: str) -> dict:
+    """The portable exp's C function names, locals and statements."""
+    pow2 = f"{prefix}_pow2"
+    return {"pow2": pow2, "name": f"{prefix}_exp", "float_name": f"{prefix}_expf",
+            "locals": portable_exp.c_locals(), "lines": portable_exp.c_lines(pow2)}
+
+
+def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
+            decision_only: bool = False) -> dict:
     names = field_names(plan.feature_names)
     fields = []
     for inp, name in zip(plan.inputs, names):
@@ -87,8 +103,15 @@ def context(plan: Plan, prefix: str, prec: CPrecision) -> dict:
                                 tuple((string_literal(lv), len(lv.encode("utf-8")))
                                       for lv in levels)))
     lit = prec.literal
+    uses_exp = not decision_only and (plan.task != "regression" or plan.link == "log")
+    routine = exp_routine(prefix) if portable and uses_exp else None
+    exp_fn = prec.exp if routine is None else \
+        routine["float_name" if prec.real == "float" else "name"]
     return {
         "prefix": prefix,
+        "decision_only": decision_only,
+        "portable_exp": routine,
+        "exp_fn": exp_fn,
         "sha256": plan.sha256,
         "model_name": comment_text(plan.name),
         "task": plan.task,

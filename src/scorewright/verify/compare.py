@@ -48,6 +48,7 @@ class Tolerance:
     value_ulps: float = 0.0
     value_rel: float = 0.0
     precision: str = "double"
+    exp: str = "libm"  # the exp of the reference the target is compared with (plan.exp_kind)
 
     @classmethod
     def from_table(cls, table: dict) -> "Tolerance":

@@ -34,6 +34,7 @@ RUNNERS = {
     "sql": "scorewright.verify.runners.sql",
     "c": "scorewright.verify.runners.c",
     "onnx": "scorewright.verify.runners.onnx",
+    "cortex-m": "scorewright.verify.runners.cortex_m",
 }
 
 
