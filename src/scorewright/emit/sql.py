@@ -126,22 +126,17 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     carried = [alias for alias, _ in extra]
     weights = {t.input: t.weights for t in plan.terms if t.kind == "numeric"}
     used = {t.input for t in plan.terms}
-    read, design = [], []
+    read = []
     for inp in plan.inputs:
         if inp.index not in used:
             continue
         col = source[inp.name]
         if inp.kind == "numeric":
             region = underflow_region(inp, weights[inp.index]) if d.raises_on_underflow else None
-            read.append((f"x{inp.index}", _read_number(d, col, region)))
-            design.append((inp, region))
+            read.append((f"v{inp.index}", _design_value(d, inp, region, col)))
         else:
             read.append((f"c{inp.index}", _read_code(d, inp, col)))
     layers.add(list(extra) + read)
-    codes = [a for a, _ in read if a.startswith("c")]
-    layers.add(layers.carry(carried + codes) + [
-        (f"v{inp.index}", _design_value(d, inp, region, f"{layers.ref}.x{inp.index}"))
-        for inp, region in design])
     margins = []
     for k in range(plan.n_outputs):
         s = None
@@ -158,14 +153,10 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     return Query(layers.render(innermost_from, d.fence), outputs)
 
 
-def _read_number(d: Dialect, col: str, region) -> str:
-    x = f"CAST({col} AS {d.double})"
-    if region is not None:
-        low, high = region
-        x = (f"CASE WHEN {col} > {literal(d, low)} AND {col} < {literal(d, high)} "
-             f"THEN {x} * {literal(d, 0.0)} ELSE {x} END")
-    return (f"CASE WHEN {col} >= {literal(d, -DBL_MAX)} AND {col} <= {literal(d, DBL_MAX)} "
-            f"THEN {x} END")
+def _present(d: Dialect, col: str) -> str:
+    """The column holds a finite number: NULL, NaN (greater than every number in
+    PostgreSQL and DuckDB), +-inf and, in SQLite, text all fail."""
+    return d.finite_test.format(x=col, low=literal(d, -DBL_MAX), high=literal(d, DBL_MAX))
 
 
 def _read_code(d: Dialect, inp, col: str) -> str:
@@ -188,20 +179,38 @@ def _read_code(d: Dialect, inp, col: str) -> str:
             f"ELSE CASE {value} {whens} ELSE {unseen} END END")
 
 
-def _design_value(d: Dialect, inp, region, x: str) -> str:
-    fill = inp.fill
-    if fill is not None and region is not None and region[0] < fill < region[1]:
-        fill = math.copysign(0.0, fill)  # the chain on it would underflow; see sql_guards
-    v = x if fill is None else f"COALESCE({x}, {literal(d, fill)})"
-    v = d.least.format(a=d.greatest.format(a=v, b=literal(d, -inp.bound)),
-                       b=literal(d, inp.bound))
+def _design_value(d: Dialect, inp, region, col: str) -> str:
+    """CASE WHEN the value is present THEN the plan's chain on it ELSE the design value
+    of a missing one (the chain on the fill, or 0.0), computed here in IEEE double
+    exactly as the engine would."""
+    x = f"CAST({col} AS {d.double})"
+    if region is not None:
+        low, high = region
+        x = (f"CASE WHEN {col} > {literal(d, low)} AND {col} < {literal(d, high)} "
+             f"THEN {x} * {literal(d, 0.0)} ELSE {x} END")
+    # min(max(x, -B), B) as a CASE: the same result, ties included (B is never zero),
+    # and several times cheaper than LEAST/GREATEST in DuckDB.
+    low, high = literal(d, -inp.bound), literal(d, inp.bound)
+    v = f"CASE WHEN {low} > {x} THEN {low} WHEN {high} < {x} THEN {high} ELSE {x} END"
     for step in inp.steps:
         v = f"({v} {OP[step.op]} {literal(d, step.value)})"
     if inp.clip is not None:
         v = d.least.format(a=d.greatest.format(a=v, b=literal(d, inp.clip[0])),
                            b=literal(d, inp.clip[1]))
-    if fill is None:
-        v = f"CASE WHEN {x} IS NULL THEN {literal(d, 0.0)} ELSE {v} END"
+    return f"CASE WHEN {_present(d, col)} THEN {v} ELSE {literal(d, missing_value(inp))} END"
+
+
+def missing_value(inp) -> float:
+    """The design value of a missing input: the plan's chain applied to the fill."""
+    if inp.fill is None:
+        return 0.0
+    v = min(max(inp.fill, -inp.bound), inp.bound)
+    for step in inp.steps:
+        c = step.value
+        v = v - c if step.op == "subtract" else v / c if step.op == "divide" else \
+            v * c if step.op == "multiply" else v + c
+    if inp.clip is not None:
+        v = min(max(v, inp.clip[0]), inp.clip[1])
     return v
 
 
