@@ -153,12 +153,6 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     return Query(layers.render(innermost_from, d.fence), outputs)
 
 
-def _present(d: Dialect, col: str) -> str:
-    """The column holds a finite number: NULL, NaN (greater than every number in
-    PostgreSQL and DuckDB), +-inf and, in SQLite, text all fail."""
-    return d.finite_test.format(x=col, low=literal(d, -DBL_MAX), high=literal(d, DBL_MAX))
-
-
 def _read_code(d: Dialect, inp, col: str) -> str:
     missing = inp.fill_code if inp.fill_code is not None else (
         inp.unknown_code if inp.unknown_code is not None else -1)
@@ -180,31 +174,32 @@ def _read_code(d: Dialect, inp, col: str) -> str:
 
 
 def _design_value(d: Dialect, inp, region, col: str) -> str:
-    """CASE WHEN the value is present THEN the plan's chain on it ELSE the design value
-    of a missing one (the chain on the fill, or 0.0), computed here in IEEE double
-    exactly as the engine would."""
+    """One CASE per numeric input. Inside [-B, B] the plan's chain runs on the value;
+    a finite value beyond the bound, a missing one (NULL; NaN, which PostgreSQL and
+    DuckDB order above every number; +-inf; text in SQLite, which orders above
+    numbers) take the chain's value on -B, B or the fill, computed here in IEEE
+    double exactly as the engine would compute it."""
     x = f"CAST({col} AS {d.double})"
     if region is not None:
         low, high = region
         x = (f"CASE WHEN {col} > {literal(d, low)} AND {col} < {literal(d, high)} "
              f"THEN {x} * {literal(d, 0.0)} ELSE {x} END")
-    # min(max(x, -B), B) as a CASE: the same result, ties included (B is never zero),
-    # and several times cheaper than LEAST/GREATEST in DuckDB.
-    low, high = literal(d, -inp.bound), literal(d, inp.bound)
-    v = f"CASE WHEN {low} > {x} THEN {low} WHEN {high} < {x} THEN {high} ELSE {x} END"
+    v = x
     for step in inp.steps:
         v = f"({v} {OP[step.op]} {literal(d, step.value)})"
     if inp.clip is not None:
         v = d.least.format(a=d.greatest.format(a=v, b=literal(d, inp.clip[0])),
                            b=literal(d, inp.clip[1]))
-    return f"CASE WHEN {_present(d, col)} THEN {v} ELSE {literal(d, missing_value(inp))} END"
+    b, top = literal(d, inp.bound), literal(d, DBL_MAX)
+    nb, ntop = literal(d, -inp.bound), literal(d, -DBL_MAX)
+    return (f"CASE WHEN {col} >= {nb} AND {col} <= {b} THEN {v} "
+            f"WHEN {col} < {nb} AND {col} >= {ntop} THEN {literal(d, chain(inp, -inp.bound))} "
+            f"WHEN {col} > {b} AND {col} <= {top} THEN {literal(d, chain(inp, inp.bound))} "
+            f"ELSE {literal(d, missing_value(inp))} END")
 
 
-def missing_value(inp) -> float:
-    """The design value of a missing input: the plan's chain applied to the fill."""
-    if inp.fill is None:
-        return 0.0
-    v = min(max(inp.fill, -inp.bound), inp.bound)
+def chain(inp, v: float) -> float:
+    """The plan's scaling steps and clip on a value already within the bound."""
     for step in inp.steps:
         c = step.value
         v = v - c if step.op == "subtract" else v / c if step.op == "divide" else \
@@ -212,6 +207,13 @@ def missing_value(inp) -> float:
     if inp.clip is not None:
         v = min(max(v, inp.clip[0]), inp.clip[1])
     return v
+
+
+def missing_value(inp) -> float:
+    """The design value of a missing input: the chain on the (clamped) fill, or 0.0."""
+    if inp.fill is None:
+        return 0.0
+    return chain(inp, min(max(inp.fill, -inp.bound), inp.bound))
 
 
 def _lookup(d: Dialect, table, code: str) -> str:

@@ -37,7 +37,6 @@ class Dialect:
     greatest_many: str          # n-argument maximum ({args}), ties keep the first
     nan_test: str | None        # is {x} (a number) NaN; None: the engine cannot hold NaN
     text_collate: str           # appended to text comparisons: byte-wise equality
-    finite_test: str            # {x} holds a finite number ({low}, {high}: -+DBL_MAX)
     passthrough: str            # how all input columns ride along: "lateral" or "rowid"
     fence: str                  # appended to each subquery so no layer is inlined twice
     raises_on_underflow: bool   # x * c or x / c that rounds to 0 raises an error
@@ -72,7 +71,6 @@ SQLITE = Dialect(
     greatest_many="max({args})",
     nan_test=None,
     text_collate=" COLLATE BINARY",
-    finite_test="{x} >= {low} AND {x} <= {high}",
     passthrough="rowid",
     fence=" LIMIT -1 OFFSET 0",
     raises_on_underflow=False,
@@ -100,7 +98,6 @@ POSTGRES = Dialect(
     greatest_many="GREATEST({args})",
     nan_test="{x} = CAST('NaN' AS DOUBLE PRECISION)",
     text_collate=' COLLATE "C"',
-    finite_test="{x} >= {low} AND {x} <= {high}",
     passthrough="lateral",
     fence=" OFFSET 0",
     raises_on_underflow=True,
@@ -129,7 +126,6 @@ DUCKDB = Dialect(
     greatest_many="GREATEST({args})",
     nan_test="isnan({x})",
     text_collate="",
-    finite_test="isfinite(CAST({x} AS DOUBLE))",
     passthrough="lateral",
     fence="",
     raises_on_underflow=False,
