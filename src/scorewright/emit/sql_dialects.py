@@ -53,10 +53,16 @@ class Dialect:
     function_call: str = ""     # a query scoring {table} through the function {name}({args})
     no_function_reason: str = ""
 
+    identifier_quote: str = '"'   # doubled inside a quoted name
+    backslash_escapes: bool = False  # string literals treat \\ as an escape character
+
     def quote(self, name: str) -> str:
-        return '"' + name.replace('"', '""') + '"'
+        q = self.identifier_quote
+        return q + name.replace(q, q + q) + q
 
     def string(self, value: str) -> str:
+        if self.backslash_escapes:
+            value = value.replace("\\", "\\\\")
         return "'" + value.replace("'", "''") + "'"
 
 
@@ -140,7 +146,36 @@ DUCKDB = Dialect(
     function_call="SELECT t.*, s.*\nFROM {table} AS t CROSS JOIN LATERAL {name}({args}) AS s;",
 )
 
-DIALECTS = {d.name: d for d in (SQLITE, POSTGRES, DUCKDB)}
+# Spark SQL: backtick names, backslash escapes in strings, NaN = NaN true and NaN above
+# every number; names match case-insensitively (spark.sql.caseSensitive=false).
+# ANSI mode (the default in Spark 4) raises on division by zero and invalid casts;
+# nothing here divides by a value that can be zero and every text read is try_cast.
+SPARK = Dialect(
+    name="spark",
+    double="DOUBLE",
+    text="STRING",
+    integer="BIGINT",
+    exact_decimal_literals=True,
+    greatest="GREATEST({a}, {b})",
+    least="LEAST({a}, {b})",
+    greatest_many="GREATEST({args})",
+    nan_test="isnan({x})",
+    text_collate="",
+    passthrough="lateral",
+    fence="",
+    raises_on_underflow=False,
+    fold_identifiers=True,
+    identifier_max_bytes=None,
+    view="CREATE OR REPLACE TEMPORARY VIEW {name} AS",
+    number_read="try_cast({x} AS DOUBLE)",
+    category_nan_test="isnan(try_cast({x} AS DOUBLE))",
+    function_form=None,
+    no_function_reason="the spark dialect has no function form; use --form select or view",
+    identifier_quote="`",
+    backslash_escapes=True,
+)
+
+DIALECTS = {d.name: d for d in (SQLITE, POSTGRES, DUCKDB, SPARK)}
 
 
 def dialect(name: str | None) -> Dialect:

@@ -244,4 +244,56 @@ class PostgreSQL:
             raise ScorewrightError(f"sql: PostgreSQL failed: {message}") from None
 
 
-ENGINES = {"sqlite": SQLite, "duckdb": DuckDB, "postgres": PostgreSQL}
+class Spark:
+    """A local Spark session (local[2]), one per process, kept for later runs;
+    options["ansi"] (default true, Spark 4's default) sets spark.sql.ansi.enabled."""
+
+    TYPES = {"double": "double", "integer": "bigint", "text": "string", "mixed": "string"}
+    mixed_cell = staticmethod(as_text)
+    _session = None
+
+    @classmethod
+    def session(cls):
+        if cls._session is None:
+            try:
+                from pyspark.sql import SparkSession
+            except ImportError:
+                raise ScorewrightError("sql: the spark dialect needs pyspark "
+                                       "(pip install pyspark) and a Java 17 runtime") from None
+            cls._session = (SparkSession.builder.master("local[2]")
+                            .appName("scorewright-verify")
+                            .config("spark.ui.enabled", "false")
+                            .config("spark.sql.shuffle.partitions", "2")
+                            .getOrCreate())
+            cls._session.sparkContext.setLogLevel("ERROR")
+        return cls._session
+
+    @classmethod
+    def execute(cls, options, d, name, table, setup, query):
+        from pyspark.errors import PySparkException
+        from pyspark.sql import types as T
+
+        spark = cls.session()
+        ansi = bool(options.get("ansi", True))
+        spark.conf.set("spark.sql.ansi.enabled", "true" if ansi else "false")
+        kinds = {"double": T.DoubleType(), "bigint": T.LongType(), "string": T.StringType()}
+        fields = [T.StructField(table.row_column, T.LongType())]
+        fields += [T.StructField(c, kinds[t]) for c, t in zip(table.columns, table.types)]
+        records = [[i] + [float(v) if t == "double" and v is not None else v
+                          for v, t in zip(r, table.types)] for i, r in enumerate(table.values)]
+        try:
+            frame = spark.createDataFrame(records, T.StructType(fields))
+            frame.createOrReplaceTempView(d.quote(name))
+            for statement in setup:
+                spark.sql(statement)
+            result = spark.sql(query)
+            names = result.columns
+            rows = [list(r) for r in result.collect()]
+        except PySparkException as exc:
+            first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+            raise ScorewrightError(f"sql: Spark failed: {first}") from None
+        mode = "ANSI on" if ansi else "ANSI off"
+        return names, rows, f"Spark {spark.version} local[2], {mode}"
+
+
+ENGINES = {"sqlite": SQLite, "duckdb": DuckDB, "postgres": PostgreSQL, "spark": Spark}
