@@ -13,6 +13,7 @@ have chromium || need+=(chromium)
 have arm-none-eabi-gcc || need+=(gcc-arm-none-eabi)
 dpkg -s libnewlib-arm-none-eabi >/dev/null 2>&1 || need+=(libnewlib-arm-none-eabi)
 have qemu-system-arm || need+=(qemu-system-arm)
+have java || need+=(openjdk-17-jre-headless)  # the local Spark session of the Spark tests
 if [ ${#need[@]} -gt 0 ]; then
   echo "installing system packages: ${need[*]}"
   export DEBIAN_FRONTEND=noninteractive
