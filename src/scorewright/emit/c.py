@@ -45,6 +45,9 @@ STEP = {
 # independent addition chains while each row keeps the plan's order.
 BATCH_BLOCK = 8
 
+# Terms per function of a wide model's row scorer (see row_parts).
+ROW_PART_TERMS = 64
+
 
 @dataclass(frozen=True)
 class Field:
@@ -124,6 +127,7 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         "batch_width": plan.n_outputs if plan.task == "multiclass" else 1,
         "tables": _tables(plan, prec, prefix),
         "row_lines": margin_lines(plan, prec, names, prefix),
+        "row_parts": row_parts(plan, prec, names, prefix),
         "row_locals": _locals(plan, prec),
         **batch_code(plan, prec, prefix),
         "guard": lit(plan.precision.exp_guard),
@@ -147,13 +151,16 @@ def _tables(plan: Plan, prec: CPrecision, prefix: str) -> list[dict]:
     return out
 
 
-def margin_lines(plan: Plan, prec: CPrecision, names: list[str], prefix: str) -> list[str]:
+def margin_lines(plan: Plan, prec: CPrecision, names: list[str], prefix: str,
+                 terms: tuple | None = None, started: list | None = None,
+                 intercepts: bool = True) -> list[str]:
     """The row scorer's statements: inputs from the struct `in`, margins into m[k], one
-    statement per plan step, in the plan's order."""
+    statement per plan step, in the plan's order (`terms`: a stretch of the plan's
+    terms; `started`: which margins earlier stretches have begun)."""
     lit = prec.literal
     lines: list[str] = []
-    started = [False] * plan.n_outputs
-    for term in plan.terms:
+    started = [False] * plan.n_outputs if started is None else started
+    for term in plan.terms if terms is None else terms:
         inp = plan.inputs[term.input]
         lines.append(f"/* input {inp.index}: {comment_text(inp.name)} */")
         if term.kind == "numeric":
@@ -167,17 +174,38 @@ def margin_lines(plan: Plan, prec: CPrecision, names: list[str], prefix: str) ->
                 t = f"{table_name(prefix, term.input)}[{k}][c]"
             lines.append(f"m[{k}] = m[{k}] + {t};" if started[k] else f"m[{k}] = {t};")
             started[k] = True
-    for k in range(plan.n_outputs):
-        b = lit(plan.intercepts[k])
-        lines.append(f"m[{k}] = m[{k}] + {b};" if started[k] else f"m[{k}] = {b};")
+    if intercepts:
+        for k in range(plan.n_outputs):
+            b = lit(plan.intercepts[k])
+            lines.append(f"m[{k}] = m[{k}] + {b};" if started[k] else f"m[{k}] = {b};")
     return lines
 
 
-def _locals(plan: Plan, prec: CPrecision) -> list[str]:
+def row_parts(plan: Plan, prec: CPrecision, names: list[str], prefix: str) -> list[dict]:
+    """A wide model's row scorer cut into functions of ROW_PART_TERMS terms, called in
+    order on the same m[]: the same statements in the same order (so the same bits),
+    but no single giant function (GCC takes minutes on one, and for Thumb-2 at -Os it
+    emits conditional branches beyond their range). One part: the plain row scorer."""
+    terms = plan.terms
+    if len(terms) <= ROW_PART_TERMS:
+        return []
+    started = [False] * plan.n_outputs
+    parts = []
+    for start in range(0, len(terms), ROW_PART_TERMS):
+        chunk = terms[start:start + ROW_PART_TERMS]
+        last = start + ROW_PART_TERMS >= len(terms)
+        parts.append({"name": f"{prefix}_row_part{len(parts)}",
+                      "locals": _locals(plan, prec, chunk),
+                      "lines": margin_lines(plan, prec, names, prefix, chunk, started, last)})
+    return parts
+
+
+def _locals(plan: Plan, prec: CPrecision, terms: tuple | None = None) -> list[str]:
     """The local variables of the row scorer's statements."""
-    numeric = [plan.inputs[t.input] for t in plan.terms if t.kind == "numeric"]
+    terms = plan.terms if terms is None else terms
+    numeric = [plan.inputs[t.input] for t in terms if t.kind == "numeric"]
     out = [f"{prec.real} v;"] if numeric else []
-    if any(t.kind == "categorical" for t in plan.terms):
+    if any(t.kind == "categorical" for t in terms):
         out.append("int c;")
     if any(inp.fill is None for inp in numeric):
         out.append("int ok;")
