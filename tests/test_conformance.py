@@ -20,9 +20,9 @@ import pytest
 from scorewright.emit import emitter
 from scorewright.model import load_model
 from scorewright.plan import build_plan
-from scorewright.verify.cases import rows_for_precision
 from scorewright.verify.compare import compare
-from scorewright.verify.harness import expected_outputs, verify_targets
+from scorewright.verify.harness import (expected_outputs, is_default_oracle, oracle,
+                                        verify_targets)
 from scorewright.verify.profiles import builtin_names, load_profile
 from scorewright.verify.runners import runner
 from scorewright.verify.vectors import load_vectors
@@ -77,12 +77,8 @@ def test_target_agrees_with_the_vectors(profile_name, name, tmp_path, request):
     model = load_model(VECTORS / f"{name}.model.json")
     plan = build_plan(model)
     labels, rows, expected = load_vectors(VECTORS / f"{name}.vectors.json", plan)
-    if profile.tolerance.precision != "double":
-        # A single-precision target runs the float plan on float32 inputs; the oracle is
-        # the reference evaluator of that plan on those inputs.
-        fplan = build_plan(model, profile.tolerance.precision)
-        rows = rows_for_precision(fplan, rows, profile.tolerance.precision)
-        expected = expected_outputs(fplan, rows)
+    if not is_default_oracle(profile.tolerance):
+        _, rows, expected = oracle(model, profile.tolerance, rows)
     first = _emit(model, profile, tmp_path)
     again = emitter(profile.emitter)(model, dict(profile.emit))
     assert [a.content for a in first] == [a.content for a in again], "emit is not deterministic"

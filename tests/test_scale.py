@@ -14,9 +14,9 @@ from scorewright.emit import emitter
 from scorewright.model import CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature
 from scorewright.model import ScalingStep
 from scorewright.plan import build_plan
-from scorewright.verify.cases import random_rows, rows_for_precision
+from scorewright.verify.cases import random_rows
 from scorewright.verify.compare import compare
-from scorewright.verify.harness import expected_outputs
+from scorewright.verify.harness import oracle
 from scorewright.verify.profiles import builtin_names, load_profile
 from scorewright.verify.runners import runner
 
@@ -65,15 +65,15 @@ def test_large_models_run_on_every_target(kind, profile_name, tmp_path, request)
     emitted = time.perf_counter() - t0
     for art in arts:
         (tmp_path / art.name).write_bytes(art.content)
-    plan = build_plan(model, profile.tolerance.precision)
-    rows = rows_for_precision(plan, random_rows(plan, 40, seed=3), profile.tolerance.precision)
+    plan, rows, expected = oracle(model, profile.tolerance,
+                                  random_rows(build_plan(model), 40, seed=3))
     options = profile.run_options
     if profile.runner == "sql" and options.get("dialect") == "postgres":
         options["dsn"] = request.getfixturevalue("postgres_dsn")
     t1 = time.perf_counter()
     got = runner(profile.runner)(tmp_path, model, rows, options)
     ran = time.perf_counter() - t1
-    result = compare(expected_outputs(plan, rows), got, profile.tolerance)
+    result = compare(expected, got, profile.tolerance)
     size = sum(len(a.content) for a in arts)
     tally.add(f"scale run: {kind} on {profile_name}: emit {emitted:.1f} s, build+run "
               f"{ran:.1f} s, artifact {size / 1e6:.2f} MB", 1)

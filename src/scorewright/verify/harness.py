@@ -100,6 +100,21 @@ def expected_outputs(plan: Plan, rows: list[dict]) -> dict:
     return out
 
 
+def is_default_oracle(tol) -> bool:
+    return tol.precision == "double" and tol.exp == "libm"
+
+
+def oracle(model: FrozenModel, tol, rows: list[dict]):
+    """(plan, rows, expected outputs) for a target with this stated tolerance.
+
+    A single-precision target runs the float plan (float guards and bounds) on float32
+    inputs; the oracle is the reference evaluator of that plan on those inputs. A target
+    carrying the portable exp is compared with a reference using the same exp."""
+    plan = build_plan(model, tol.precision, exp=tol.exp)
+    rows = rows_for_precision(plan, rows, tol.precision)
+    return plan, rows, expected_outputs(plan, rows)
+
+
 def artifact_names(model: FrozenModel, profile: Profile) -> list[str]:
     return [a.name for a in emitter(profile.emitter)(model, dict(profile.emit))]
 
@@ -153,14 +168,8 @@ def _verify_one(model, outdir, profile, rows, labels, expected, extra) -> Target
             return result
     options = profile.run_options
     options.update(extra.get(profile.runner, {}))
-    precision = profile.tolerance.precision
-    if precision != "double" or profile.tolerance.exp != "libm":
-        # A single-precision target runs the float plan (float guards and bounds) on
-        # float32 inputs; the oracle is the reference evaluator of that plan on those.
-        # A target carrying the portable exp is compared with a reference using it.
-        plan = build_plan(model, precision, exp=profile.tolerance.exp)
-        rows = rows_for_precision(plan, rows, precision)
-        expected = expected_outputs(plan, rows)
+    if not is_default_oracle(profile.tolerance):
+        _, rows, expected = oracle(model, profile.tolerance, rows)
     try:
         got = runner(profile.runner)(where, model, rows, options)
     except ScorewrightError as exc:
