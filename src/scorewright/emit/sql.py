@@ -19,8 +19,9 @@ from ..errors import ScorewrightError
 from ..model import FrozenModel
 from ..plan import Plan, build_plan, output_columns
 from . import Artifact, reject_options
+from .sql_columns import input_columns, name_key
 from .sql_dialects import Dialect, dialect as find_dialect
-from .sql_guards import underflow_region
+from .sql_guards import product_edge, underflow_region
 from .templating import render
 
 OPTIONS = ("dialect", "table", "keep", "columns", "form")
@@ -124,7 +125,6 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     it is read from; `extra` are (alias, expression) pairs carried to the top."""
     layers = Layers()
     carried = [alias for alias, _ in extra]
-    weights = {t.input: t.weights for t in plan.terms if t.kind == "numeric"}
     used = {t.input for t in plan.terms}
     read = []
     for inp in plan.inputs:
@@ -132,17 +132,18 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
             continue
         col = source[inp.name]
         if inp.kind == "numeric":
-            region = underflow_region(inp, weights[inp.index]) if d.raises_on_underflow else None
+            region = underflow_region(inp, ()) if d.raises_on_underflow else None
             read.append((f"v{inp.index}", _design_value(d, inp, region, col)))
         else:
             read.append((f"c{inp.index}", _read_code(d, inp, col)))
-    layers.add(list(extra) + read)
+    # A model with all-zero weights reads nothing; a SELECT needs a column all the same.
+    layers.add(list(extra) + read or [("z", literal(d, 0.0))])
     margins = []
     for k in range(plan.n_outputs):
         s = None
         for term in plan.terms:
             if term.kind == "numeric":
-                t = f"{literal(d, term.weights[k])} * {layers.ref}.v{term.input}"
+                t = f"{literal(d, term.weights[k])} * {_factor(d, term.weights[k], f'{layers.ref}.v{term.input}')}"
             else:
                 t = _lookup(d, term.tables[k], f"{layers.ref}.c{term.input}")
             s = t if s is None else f"({s} + {t})"
@@ -151,6 +152,16 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     layers.add(layers.carry(carried) + margins)
     outputs = _finish(plan, d, layers, carried)
     return Query(layers.render(innermost_from, d.fence), outputs)
+
+
+def _factor(d: Dialect, w: float, v: str) -> str:
+    """The design value as the factor of w * v; where that product would underflow
+    (and PostgreSQL raise), the signed zero IEEE gives (see sql_guards)."""
+    edge = product_edge(w) if d.raises_on_underflow else 0.0
+    if edge == 0.0:
+        return v
+    return (f"CASE WHEN {v} > {literal(d, -edge)} AND {v} < {literal(d, edge)} "
+            f"THEN {v} * {literal(d, 0.0)} ELSE {v} END")
 
 
 def _read_code(d: Dialect, inp, col: str) -> str:
@@ -168,7 +179,8 @@ def _read_code(d: Dialect, inp, col: str) -> str:
         value = f"CAST({col} AS {d.text}){d.text_collate}"
         is_missing = f"{col} IS NULL"
         whens = f"WHEN '' THEN {missing} " + " ".join(
-            f"WHEN {d.string(level)} THEN {code}" for code, level in enumerate(inp.levels))
+            f"WHEN {d.string(level)} THEN {code}" for code, level in enumerate(inp.levels)
+            if not unreachable(d, level))
     return (f"CASE WHEN {is_missing} THEN {missing} "
             f"ELSE CASE {value} {whens} ELSE {unseen} END END")
 
@@ -304,7 +316,8 @@ def settings(plan: Plan, options: dict) -> Settings:
     for feature in mapping:
         if feature not in plan.feature_names:
             raise ScorewrightError(f"--column {feature}=...: the model has no feature {feature!r}")
-    columns = {name: mapping.get(name, name) for name in plan.feature_names}
+    columns = input_columns(d, plan.feature_names, mapping,
+                            output_columns(plan) + d.reserved_columns, keep is None)
     s = Settings(d, form, table, keep, columns)
     _check_names(plan, s)
     return s
@@ -313,40 +326,27 @@ def settings(plan: Plan, options: dict) -> Settings:
 def _check_names(plan: Plan, s: Settings) -> None:
     d = s.dialect
     _check_text("the table name", s.table)
-    _check_text("the model name", plan.name)
-    for feature, column in s.columns.items():
-        _check_text("the column name", column)
     for inp in plan.inputs:
         if inp.kind == "categorical":
             for level in inp.levels:
-                if isinstance(level, str):
-                    _check_text(f"feature {inp.name!r}: the level", level)
-                elif abs(level) > 2 ** 53:
+                if not isinstance(level, str) and abs(level) > 2 ** 53:
                     raise ScorewrightError(f"feature {inp.name!r}: the integer level {level} is "
                                            "too large to compare exactly as a double")
     for label in plan.classes or ():
-        if isinstance(label, str):
-            _check_text("the class label", label)
-
-    def key(name: str) -> str:
-        if d.identifier_max_bytes is not None:
-            name = name.encode("utf-8")[:d.identifier_max_bytes].decode("utf-8", "ignore")
-        return name.lower() if d.fold_identifiers else name
-
-    why = ("differ only in case, which the engine treats as one name" if d.fold_identifiers
-           else f"agree in their first {d.identifier_max_bytes} bytes, where the engine cuts names")
-    seen: dict[str, str] = {}
-    for feature, column in s.columns.items():
-        other = seen.setdefault(key(column), column)
-        if other != column:
-            raise ScorewrightError(
-                f"{d.name}: columns {other!r} and {column!r} {why}; "
-                f"map one with --column FEATURE=COLUMN")
-    outputs = {key(c): c for c in output_columns(plan)}
+        if isinstance(label, str) and "\x00" in label and d.nul_char is None:
+            raise ScorewrightError(f"{d.name}: text cannot hold NUL, so the class label "
+                                   f"{label!r} cannot be returned")
+    outputs = {name_key(d, c) for c in output_columns(plan)}
     for column in s.keep or ():
         _check_text("the kept column", column)
-        if key(column) in outputs:
+        if name_key(d, column) in outputs:
             raise ScorewrightError(f"--keep {column!r}: the output has a column of that name")
+
+
+def unreachable(d: Dialect, level) -> bool:
+    """A text level no value in this engine can equal (it holds NUL, which the engine's
+    text cannot): left out of the lookup, where it could never match."""
+    return isinstance(level, str) and "\x00" in level and d.nul_char is None
 
 
 def object_name(plan: Plan) -> str:
@@ -429,13 +429,19 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
         lines += ["  " + line for line in function_call(plan, s).split("\n")]
     else:
         lines.append(f"Input table: {comment_text(s.table)}")
-        lines.append("Features (feature <- column):")
+        lines.append("Features (feature <- column; a name the engine cannot hold as a "
+                     "column of its own is renamed):")
         for inp in plan.inputs:
             lines.append(f"  {comment_text(inp.name)} <- {comment_text(s.columns[inp.name])}"
                          f" ({inp.kind})")
         kept = "every input column" if s.keep is None else \
             ", ".join(comment_text(c) for c in s.keep)
         lines.append(f"Returns: {kept}, then the outputs")
+    for inp in plan.inputs:
+        for level in getattr(inp, "levels", ()):
+            if unreachable(d, level):
+                lines.append(f"Level {comment_text(level)} of {comment_text(inp.name)} holds "
+                             f"NUL, which {d.name} text cannot: no value can match it")
     outputs = ", ".join(output_columns(plan))
     lines.append(f"Outputs: {outputs}")
     if plan.task == "binary":

@@ -14,8 +14,11 @@ engine it is writing for. Each flag names the trap it answers:
 - PostgreSQL raises on a float product or quotient that underflows to zero;
 - NaN: PostgreSQL and DuckDB hold it and call NaN = NaN true (so x <> x is no
   NaN test); SQLite stores NaN as NULL;
-- SQLite and DuckDB match identifiers case-insensitively even when quoted;
-  PostgreSQL truncates identifiers to 63 bytes.
+- SQLite and DuckDB match identifiers case-insensitively even when quoted
+  (ASCII letters only), Spark over all of unicode (`é` = `É`); PostgreSQL
+  truncates identifiers to 63 bytes (sql_columns derives names around these);
+- PostgreSQL text cannot hold NUL; the others can, but no raw NUL is written
+  into an artifact: a NUL inside a string literal is spelled as a function call.
 """
 
 from __future__ import annotations
@@ -55,12 +58,24 @@ class Dialect:
 
     identifier_quote: str = '"'   # doubled inside a quoted name
     backslash_escapes: bool = False  # string literals treat \\ as an escape character
+    fold_unicode: bool = False  # case folding covers all of unicode, not ASCII alone
+    identifier_forbidden: str = "\x00"  # characters no column name in an artifact holds
+    nul_char: str | None = None  # a NUL character as an expression; None: text cannot hold it
+    reserved_columns: tuple[str, ...] = ()  # names an input column must not take
 
     def quote(self, name: str) -> str:
         q = self.identifier_quote
         return q + name.replace(q, q + q) + q
 
     def string(self, value: str) -> str:
+        """A string literal; NULs are joined in as `nul_char` (callers check that the
+        dialect has one)."""
+        parts = [self._literal(part) for part in value.split("\x00")]
+        if len(parts) == 1:
+            return parts[0]
+        return "(" + f" || {self.nul_char} || ".join(parts) + ")"
+
+    def _literal(self, value: str) -> str:
         if self.backslash_escapes:
             value = value.replace("\\", "\\\\")
         return "'" + value.replace("'", "''") + "'"
@@ -89,6 +104,9 @@ SQLITE = Dialect(
                 "THEN CAST({x} AS INTEGER) END",
     category_nan_test=None,
     function_form=None,
+    nul_char="char(0)",
+    # A column of one of these names shadows the rowid the query joins on.
+    reserved_columns=("rowid", "_rowid_", "oid"),
     no_function_reason="SQLite cannot define a function in SQL (only through its C API); "
                        "use --form select or --form view",
 )
@@ -143,6 +161,7 @@ DUCKDB = Dialect(
     function_form="sql/function_duckdb.sql.j2",
     parameter="p{i}",
     parameter_decl="p{i}",
+    nul_char="chr(0)",
     function_call="SELECT t.*, s.*\nFROM {table} AS t CROSS JOIN LATERAL {name}({args}) AS s;",
 )
 
@@ -173,6 +192,8 @@ SPARK = Dialect(
     no_function_reason="the spark dialect has no function form; use --form select or view",
     identifier_quote="`",
     backslash_escapes=True,
+    fold_unicode=True,
+    nul_char="chr(0)",
 )
 
 DIALECTS = {d.name: d for d in (SQLITE, POSTGRES, DUCKDB, SPARK)}

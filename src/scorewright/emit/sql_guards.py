@@ -15,6 +15,13 @@ value), and no operation on a zero operand raises. The SQL therefore replaces
 such a raw value by `x * 0.0`. After an offset step every non-zero value is at
 least half an ULP of the offset, far from underflow for any sane constant; a
 model where that is not so is refused.
+
+The coefficient products are guarded per term, not per input: one input feeds
+every output's margin, and a tiny weight of one output must not zero the value
+the others read. A design value v with |v| below `product_edge(w)` gives
+w * v = signed zero in IEEE; the SQL multiplies w by `v * 0.0` there instead,
+which is that same signed zero without the error. This also covers a missing
+input's design value, a literal whose product with w may underflow.
 """
 
 from __future__ import annotations
@@ -130,3 +137,18 @@ def underflow_region(inp: NumericInput, weights: tuple[float, ...]):
     if neg == 0.0 and pos == 0.0:
         return None
     return (-neg if neg else -0.0, pos if pos else MIN_SUBNORMAL)
+
+
+def product_edge(w: float) -> float:
+    """The smallest v > 0 with w * v != 0 (0.0 when w * v never underflows)."""
+    w = abs(w)
+    if w == 0.0 or w * MIN_SUBNORMAL != 0.0:
+        return 0.0
+    lo, hi = _bits(MIN_SUBNORMAL), _bits(1.7976931348623157e308)
+    while hi - lo > 1:  # invariant: w * lo underflows, w * hi does not
+        mid = (lo + hi) // 2
+        if w * _from_bits(mid) == 0.0:
+            lo = mid
+        else:
+            hi = mid
+    return _from_bits(hi)

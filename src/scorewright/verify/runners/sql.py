@@ -111,9 +111,12 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     path = Path(artifact_dir) / f"{plan.stem}.{d.name}.sql"
     if not path.is_file():
         raise ScorewrightError(f"sql: artifact {path} is missing")
-    sql = path.read_text(encoding="utf-8")
+    # Bytes as written: universal newlines would turn a CR inside a quoted name into LF.
+    sql = path.read_bytes().decode("utf-8")
     engine = ENGINES[d.name]
     table = Table(plan, s, rows, engine.TYPES, engine.mixed_cell)
+    if not engine.HOLDS_NUL:
+        _refuse_nul(plan, table, engine.NAME)
     if s.form == "select":
         query = sql
     elif s.form == "view":
@@ -135,6 +138,15 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     return outputs_from_table(plan, [[r[i] for i in index] for r in result], version)
 
 
+def _refuse_nul(plan, table: Table, engine: str) -> None:
+    """A text value with NUL cannot enter an engine whose text cannot hold it."""
+    for i, values in enumerate(table.values):
+        for column, value in zip(table.columns, values):
+            if isinstance(value, str) and "\x00" in value:
+                raise ScorewrightError(f"sql: {engine} text cannot hold NUL, so row {i} "
+                                       f"(column {column!r} = {value!r}) cannot be loaded")
+
+
 def create_table(d, name: str, table: Table) -> str:
     cols = [f"{d.quote(table.row_column)} BIGINT"]
     cols += [f"{d.quote(c)} {t}".rstrip() for c, t in zip(table.columns, table.types)]
@@ -151,6 +163,8 @@ def _records(table: Table):
 
 
 class SQLite:
+    NAME = "SQLite"
+    HOLDS_NUL = True
     # No declared type: the column keeps integers, reals and text as they are.
     TYPES = {"double": "REAL", "integer": "INTEGER", "text": "TEXT", "mixed": ""}
     mixed_cell = staticmethod(lambda v: v)
@@ -175,6 +189,8 @@ class SQLite:
 
 
 class DuckDB:
+    NAME = "DuckDB"
+    HOLDS_NUL = True
     TYPES = {"double": "DOUBLE", "integer": "BIGINT", "text": "VARCHAR", "mixed": "VARCHAR"}
     mixed_cell = staticmethod(as_text)
 
@@ -199,6 +215,8 @@ class DuckDB:
 
 
 class PostgreSQL:
+    NAME = "PostgreSQL"
+    HOLDS_NUL = False
     TYPES = {"double": "DOUBLE PRECISION", "integer": "BIGINT", "text": "TEXT",
              "mixed": "TEXT"}
     mixed_cell = staticmethod(as_text)
@@ -248,6 +266,8 @@ class Spark:
     """A local Spark session (local[2]), one per process, kept for later runs;
     options["ansi"] (default true, Spark 4's default) sets spark.sql.ansi.enabled."""
 
+    NAME = "Spark"
+    HOLDS_NUL = True
     TYPES = {"double": "double", "integer": "bigint", "text": "string", "mixed": "string"}
     mixed_cell = staticmethod(as_text)
     _session = None
