@@ -12,9 +12,11 @@ thing; nothing here asks which engine it is.
 
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import dataclass
 
+from .. import __version__
 from ..errors import ScorewrightError
 from ..model import FrozenModel
 from ..plan import Plan, build_plan, output_columns
@@ -22,10 +24,11 @@ from . import Artifact, reject_options
 from .sql_columns import input_columns, name_key
 from .sql_dialects import Dialect, dialect as find_dialect
 from .sql_guards import product_edge, underflow_region
+from .sql_inline import output_expressions
 from .templating import render
 
 OPTIONS = ("dialect", "table", "keep", "columns", "form")
-FORMS = ("select", "view", "function")
+FORMS = ("select", "view", "function", "expressions")
 DBL_MAX = 1.7976931348623157e308
 OP = {"subtract": "-", "divide": "/", "multiply": "*", "add": "+"}
 
@@ -120,10 +123,11 @@ class Query:
 
 
 def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: str = "",
-                extra: list[tuple[str, str]] = ()) -> Query:
+                extra: list[tuple[str, str]] = (), layers=None) -> Query:
     """The layered scoring subquery. `source` maps each feature to the SQL expression
-    it is read from; `extra` are (alias, expression) pairs carried to the top."""
-    layers = Layers()
+    it is read from; `extra` are (alias, expression) pairs carried to the top;
+    `layers` collects the layers (default: rendered as nested SELECTs)."""
+    layers = Layers() if layers is None else layers
     carried = [alias for alias, _ in extra]
     used = {t.input for t in plan.terms}
     read = []
@@ -306,6 +310,14 @@ def settings(plan: Plan, options: dict) -> Settings:
         raise ScorewrightError(f"--form {form!r}: expected one of {', '.join(FORMS)}")
     if form == "function" and d.function_form is None:
         raise ScorewrightError(f"--form function: {d.no_function_reason}")
+    if form == "expressions":
+        if not d.expressions_form:
+            raise ScorewrightError("--form expressions: only the spark dialect has it "
+                                   "(one expression per output for DataFrame.selectExpr)")
+        for option in ("table", "keep"):
+            if options.get(option) is not None:
+                raise ScorewrightError(f"--{option} does not apply to --form expressions: "
+                                       "selectExpr('*', ...) keeps every column of the frame")
     table = options.get("table") or "input"
     keep = options.get("keep")
     if keep is not None:
@@ -450,6 +462,36 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
     return lines
 
 
+def artifact_name(plan: Plan, s: Settings) -> str:
+    if s.form == "expressions":
+        return f"{plan.stem}.{s.dialect.name}.expressions.json"
+    return f"{plan.stem}.{s.dialect.name}.sql"
+
+
+def expressions(plan: Plan, s: Settings) -> list[str]:
+    """One `<expression> AS <output>` per output column, for selectExpr("*", *these)."""
+    d = s.dialect
+    pairs = output_expressions(plan, d, _sources(s, ""), build_query)
+    return [f"{expr} AS {d.quote(name)}" for name, expr in pairs]
+
+
+def expressions_file(plan: Plan, s: Settings) -> str:
+    """JSON (ASCII only, so no user string can upset an editor or a loader)."""
+    document = {
+        "format": "scorewright selectExpr expressions",
+        "scorewright_version": __version__,
+        "model": plan.name,
+        "model_sha256": plan.sha256,
+        "dialect": s.dialect.name,
+        "usage": 'df.selectExpr("*", *expressions) appends the outputs to every row',
+        "features": [{"feature": inp.name, "column": s.columns[inp.name], "kind": inp.kind}
+                     for inp in plan.inputs],
+        "outputs": list(output_columns(plan)),
+        "expressions": expressions(plan, s),
+    }
+    return json.dumps(document, indent=1, ensure_ascii=True) + "\n"
+
+
 def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
     plan = build_plan(model)
     s = settings(plan, dict(options or {}))
@@ -466,8 +508,10 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
             returns=[(d.quote(n), t) for (n, _), t in zip(q.outputs, output_types(plan, d))],
             tag=_dollar_tag("\n".join(q.body)), quote=d.quote)
         text = render(d.function_form, **context)
+    elif s.form == "expressions":
+        text = expressions_file(plan, s)
     else:
         query = scoring_query(plan, s)
         prefix = "" if s.form == "select" else d.view.format(name=context["name"]) + "\n"
         text = render("sql/query.sql.j2", statement=prefix + query, **context)
-    return [Artifact(f"{plan.stem}.{d.name}.sql", text.encode("utf-8"))]
+    return [Artifact(artifact_name(plan, s), text.encode("utf-8"))]

@@ -62,6 +62,7 @@ class Dialect:
     identifier_forbidden: str = "\x00"  # characters no column name in an artifact holds
     nul_char: str | None = None  # a NUL character as an expression; None: text cannot hold it
     reserved_columns: tuple[str, ...] = ()  # names an input column must not take
+    expressions_form: bool = False  # --form expressions: one expression per output
 
     def quote(self, name: str) -> str:
         q = self.identifier_quote
@@ -194,6 +195,7 @@ SPARK = Dialect(
     backslash_escapes=True,
     fold_unicode=True,
     nul_char="chr(0)",
+    expressions_form=True,
 )
 
 DIALECTS = {d.name: d for d in (SQLITE, POSTGRES, DUCKDB, SPARK)}

@@ -8,13 +8,14 @@ PostgreSQL run uses `options["dsn"]` or starts a temporary server of its own.
 
 from __future__ import annotations
 
+import json
 import math
 import numbers
 import tempfile
 import uuid
 from pathlib import Path
 
-from ...emit.sql import OPTIONS, function_call, object_name, settings
+from ...emit.sql import OPTIONS, artifact_name, function_call, object_name, settings
 from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import build_plan, output_columns
@@ -108,7 +109,7 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     plan = build_plan(model)
     s = settings(plan, {k: v for k, v in options.items() if k in OPTIONS})
     d = s.dialect
-    path = Path(artifact_dir) / f"{plan.stem}.{d.name}.sql"
+    path = Path(artifact_dir) / artifact_name(plan, s)
     if not path.is_file():
         raise ScorewrightError(f"sql: artifact {path} is missing")
     # Bytes as written: universal newlines would turn a CR inside a quoted name into LF.
@@ -119,11 +120,13 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
         _refuse_nul(plan, table, engine.NAME)
     if s.form == "select":
         query = sql
+    elif s.form == "expressions":
+        query = json.loads(sql)["expressions"]  # a list: run through DataFrame.selectExpr
     elif s.form == "view":
         query = f"SELECT * FROM {d.quote(object_name(plan))}"
     else:
         query = function_call(plan, s)
-    setup = [] if s.form == "select" else [sql]
+    setup = [] if s.form in ("select", "expressions") else [sql]
     names, result, version = engine.execute(options, d, s.table, table, setup, query)
     cols = output_columns(plan)
     missing = [c for c in cols if c not in names]
@@ -306,7 +309,8 @@ class Spark:
             frame.createOrReplaceTempView(d.quote(name))
             for statement in setup:
                 spark.sql(statement)
-            result = spark.sql(query)
+            result = spark.sql(query) if isinstance(query, str) else \
+                frame.selectExpr("*", *query)
             names = result.columns
             rows = [list(r) for r in result.collect()]
         except PySparkException as exc:
