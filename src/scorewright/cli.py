@@ -196,7 +196,7 @@ def _parse_columns(pairs) -> dict[str, str]:
 @click.option("--keep", help="sql: comma-separated input columns to return (default: all).")
 @click.option("--column", "columns", multiple=True, metavar="FEATURE=COLUMN",
               help="sql: read FEATURE from COLUMN (repeatable).")
-@click.option("--form", help="sql: select, view or function.")
+@click.option("--form", help="sql: select, view, function or expressions (spark).")
 @click.option("--prefix", help="c: symbol and file prefix (default: from the model name).")
 @click.option("--precision", type=click.Choice(["double", "float"]),
               help="c, onnx: arithmetic precision (default double).")

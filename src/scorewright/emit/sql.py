@@ -483,7 +483,10 @@ def expressions_file(plan: Plan, s: Settings) -> str:
         "model": plan.name,
         "model_sha256": plan.sha256,
         "dialect": s.dialect.name,
-        "usage": 'df.selectExpr("*", *expressions) appends the outputs to every row',
+        "usage": ('df.selectExpr("*", *expressions) appends the outputs to every row. '
+                  "Use all of them, in order, in one selectExpr: later ones name the margins "
+                  "as lateral column aliases (Spark 3.4 or later); the frame must have no "
+                  "other column named like an output."),
         "features": [{"feature": inp.name, "column": s.columns[inp.name], "kind": inp.kind}
                      for inp in plan.inputs],
         "outputs": list(output_columns(plan)),

@@ -4,13 +4,18 @@ for DataFrame APIs that take expressions, not queries: `df.selectExpr("*", *expr
 No subquery is allowed there, so the layered query of emit/sql.py is built as it
 is and each layer's aliases are then substituted, innermost first, into the next
 layer's expressions (each in parentheses, so operation order is unchanged): the
-same operations in the same order as the query, only written out where the
-query names an intermediate. Layer references are written with a NUL-led token
-while building; no raw NUL ever reaches emitted text (names with NUL are
-renamed, string literals spell NUL as a function call), so a user string cannot
-look like a reference. Whether the engine computes a repeated sub-expression
-once is the engine's business (Spark eliminates common sub-expressions within a
-projection; bench/bench_sql_spark.py measures the cost).
+same operations in the same order as the query. A margin is written out once, as
+its own output; the outputs after it name it (`margin`, `margin_0`, ...) as a
+lateral column alias (Spark >= 3.4 resolves a name to an earlier alias of the
+same select list), so the margins, which hold every input's chain, are computed
+once per row. Writing them out everywhere instead made a 4-class, 30-feature
+model 2 MB of expressions that Spark could neither parse nor compile in time.
+Only the link's small steps (top, exp, total) repeat; Spark's common
+sub-expression elimination may share them (bench/bench_sql_spark_expressions.py).
+
+Layer references are written with a NUL-led token while building; no raw NUL
+ever reaches emitted text (names with NUL are renamed, string literals spell NUL
+as a function call), so a user string cannot look like a reference.
 """
 
 from __future__ import annotations
@@ -42,22 +47,32 @@ class InlineLayers:
     def render(self, innermost_from: str, fence: str) -> list[str]:
         return []
 
-    def resolve(self, alias: str) -> str:
-        """The top layer's `alias` with every reference written out."""
+    def resolve(self, alias: str, named: dict[str, str]) -> str:
+        """The top layer's `alias` with every reference written out, except references
+        to an alias in `named`, which become that name."""
         done: dict[tuple[int, str], str] = {}
+
+        def sub(match) -> str:
+            if match[2] in named:
+                return named[match[2]]
+            return "(" + expand(int(match[1]), match[2]) + ")"
 
         def expand(layer: int, name: str) -> str:
             key = (layer, name)
             if key not in done:
-                text = self.layers[layer][name]
-                done[key] = REF.sub(lambda m: "(" + expand(int(m[1]), m[2]) + ")", text)
+                done[key] = REF.sub(sub, self.layers[layer][name])
             return done[key]
 
         return expand(len(self.layers) - 1, alias)
 
 
 def output_expressions(plan: Plan, d: Dialect, source: dict[str, str], build_query):
-    """[(output column, expression)] computing what the query computes."""
+    """[(output column, expression)] computing what the query computes; the outputs
+    after the margins refer to the margins by their output names."""
     layers = InlineLayers()
     query = build_query(plan, d, source, layers=layers)
-    return [(name, layers.resolve(alias)) for name, alias in query.outputs]
+    margins = {alias: d.quote(name) for name, alias in query.outputs[:plan.n_outputs]}
+    out = []
+    for i, (name, alias) in enumerate(query.outputs):
+        out.append((name, layers.resolve(alias, {} if i < plan.n_outputs else margins)))
+    return out
