@@ -117,7 +117,8 @@ def test_sqlite_column_named_rowid_shadows_the_rowid(tmp_path):
 def test_user_mapping_wins_and_a_colliding_one_is_refused():
     model = _model(["Suction", "suction"])
     lines = _mapping(model, "duckdb", columns={"Suction": "s1"})
-    assert lines[:2] == ['--   "Suction" <- "s1" (numeric)', '--   "suction" <- "suction" (numeric)']
+    assert lines[:2] == ['--   "Suction" <- "s1" (numeric)',
+                         '--   "suction" <- "suction" (numeric)']
     for columns, message in (({"Suction": "x", "suction": "X"}, "same column as --column"),
                              ({"Suction": "suction"}, "")):
         if not message:

@@ -147,7 +147,8 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
         s = None
         for term in plan.terms:
             if term.kind == "numeric":
-                t = f"{literal(d, term.weights[k])} * {_factor(d, term.weights[k], f'{layers.ref}.v{term.input}')}"
+                v = _factor(d, term.weights[k], f"{layers.ref}.v{term.input}")
+                t = f"{literal(d, term.weights[k])} * {v}"
             else:
                 t = _lookup(d, term.tables[k], f"{layers.ref}.c{term.input}")
             s = t if s is None else f"({s} + {t})"
