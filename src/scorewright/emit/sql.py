@@ -234,6 +234,9 @@ def missing_value(inp) -> float:
 
 
 def _lookup(d: Dialect, table, code: str) -> str:
+    if d.lookup_list is not None and any(v != 0.0 for v in table):
+        values = ", ".join(literal(d, v) for v in table)
+        return d.lookup_list.format(values=values, code=code, zero=literal(d, 0.0))
     whens = [f"WHEN {j} THEN {literal(d, value)}" for j, value in enumerate(table)
              if not (value == 0.0 and math.copysign(1.0, value) > 0)]
     if not whens:

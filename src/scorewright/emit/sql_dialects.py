@@ -63,6 +63,10 @@ class Dialect:
     nul_char: str | None = None  # a NUL character as an expression; None: text cannot hold it
     reserved_columns: tuple[str, ...] = ()  # names an input column must not take
     expressions_form: bool = False  # --form expressions: one expression per output
+    # A category's contribution looked up from a list ({values}; {code} 0-based, -1: none)
+    # instead of a CASE: DuckDB expands `CASE c WHEN ...` into one copy of c per branch,
+    # which for a 5,000-level feature exhausted 24 GB of memory.
+    lookup_list: str | None = None
 
     def quote(self, name: str) -> str:
         q = self.identifier_quote
@@ -164,6 +168,7 @@ DUCKDB = Dialect(
     parameter_decl="p{i}",
     nul_char="chr(0)",
     function_call="SELECT t.*, s.*\nFROM {table} AS t CROSS JOIN LATERAL {name}({args}) AS s;",
+    lookup_list="COALESCE(list_extract([{values}], {code} + 1), {zero})",
 )
 
 # Spark SQL: backtick names, backslash escapes in strings, NaN = NaN true and NaN above
