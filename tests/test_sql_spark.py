@@ -2,8 +2,9 @@
 local[2], the image's Java 17). One session serves the whole test run.
 
 Margins must agree with the reference evaluator bit for bit; probabilities and the
-log-link value within the profile's stated 2 ULPs, because Spark's exp is Java's
-StrictMath.exp (fdlibm) rather than the C library's (shown below).
+log-link value within the profile's stated ULPs, because Spark's exp is Java's
+StrictMath.exp (fdlibm) rather than the C library's (shown below). The expressions
+form (selectExpr) must give the query's bits exactly.
 """
 
 from __future__ import annotations
