@@ -53,8 +53,5 @@ def artifact_size(name: str):
 
 
 def runner(name: str):
-    from ...errors import ScorewrightError
-
-    if name not in RUNNERS:
-        raise ScorewrightError(f"unknown runner {name!r}; known: {', '.join(sorted(RUNNERS))}")
-    return import_module(RUNNERS[name]).run
+    """The runner's `run` function."""
+    return runner_module(name).run
