@@ -91,7 +91,7 @@ def expected_outputs(plan: Plan, rows: list[dict]) -> dict:
     """The oracle: the step-by-step reference evaluator on every row."""
     scores = [score_row(plan, r) for r in rows]
     out = {"margins": np.array([s.margins for s in scores], dtype=np.float64)
-           .reshape(len(rows), plan.n_outputs), "cut": plan.cut}
+           .reshape(len(rows), plan.n_outputs), "cut": plan.cut, "link": plan.link}
     if plan.task == "regression":
         out["value"] = np.array([s.value for s in scores], dtype=np.float64)
     else:

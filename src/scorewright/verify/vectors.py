@@ -71,7 +71,7 @@ def load_vectors(path: Path, plan: Plan):
     rows = [_decode_row(plan, r) for r in doc["rows"]]
     exp = doc["expected"]
     out = {"margins": np.array([[float.fromhex(v) for v in e["margins"]] for e in exp]),
-           "cut": plan.cut}
+           "cut": plan.cut, "link": plan.link}
     if plan.task == "regression":
         out["value"] = np.array([float.fromhex(e["value"]) for e in exp])
     else:
