@@ -62,3 +62,33 @@ def test_killed_build_leaves_only_complete_files(sig, tmp_path):
             checked += 1
     tally.add(f"interrupted builds ({sig.name})", 4)
     assert checked > 0, "the build never got far enough to write anything"
+
+
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
+@pytest.mark.parametrize("moment", ["mkstemp", "fsync", "replace"])
+def test_signal_inside_an_atomic_write_waits_for_it(sig, moment, tmp_path, monkeypatch):
+    """A signal landing at any step of a write is held until the file is whole or gone."""
+    import os
+    import tempfile
+
+    from scorewright import cli, files
+
+    old = signal.signal(signal.SIGTERM, cli._terminate)
+    try:
+        where = {"mkstemp": tempfile, "fsync": os, "replace": os}[moment]
+        real = getattr(where, moment)
+
+        def interrupted(*args, **kwargs):
+            result = real(*args, **kwargs)
+            os.kill(os.getpid(), sig)  # arrives while the temporary exists
+            return result
+
+        monkeypatch.setattr(where, moment, interrupted)
+        target = tmp_path / "artifact.txt"
+        with pytest.raises(KeyboardInterrupt):
+            files.write_atomic(target, b"complete contents\n")
+        monkeypatch.undo()
+        assert [p.name for p in tmp_path.iterdir()] == ["artifact.txt"]
+        assert target.read_bytes() == b"complete contents\n"
+    finally:
+        signal.signal(signal.SIGTERM, old)
