@@ -30,6 +30,8 @@ from .templating import render
 OPTIONS = ("dialect", "table", "keep", "columns", "form")
 FORMS = ("select", "view", "function", "expressions")
 DBL_MAX = 1.7976931348623157e308
+# Terms one margin layer adds: expression depth stays far below every engine's limit.
+TERMS_PER_LAYER = 250
 OP = {"subtract": "-", "divide": "/", "multiply": "*", "add": "+"}
 
 
@@ -81,17 +83,19 @@ def _check_text(what: str, value: str) -> None:
 # ---------------------------------------------------------------- layers
 
 class Layers:
-    """Subqueries innermost first; each layer is a list of (alias, expression)."""
+    """Subqueries innermost first; each layer is a list of (alias, expression) and
+    what it reads from besides the layer below (a join, or for the first layer the
+    FROM clause)."""
 
     def __init__(self):
-        self.layers: list[list[tuple[str, str]]] = []
+        self.layers: list[tuple[list[tuple[str, str]], str]] = []
 
     @property
     def ref(self) -> str:
         return f"l{len(self.layers) - 1}"
 
-    def add(self, columns: list[tuple[str, str]]) -> None:
-        self.layers.append(columns)
+    def add(self, columns: list[tuple[str, str]], source: str = "") -> None:
+        self.layers.append((columns, source))
 
     def carry(self, aliases) -> list[tuple[str, str]]:
         return [(a, f"{self.ref}.{a}") for a in aliases]
@@ -100,13 +104,16 @@ class Layers:
         """The nested SELECTs as lines; a line may hold a newline inside a quoted name
         or string, so callers indent with `indent`, never by splitting on newlines."""
         lines: list[str] = []
-        for i, columns in enumerate(self.layers):
+        for i, (columns, source) in enumerate(self.layers):
             cols = [f"  {expr} AS {alias}," for alias, expr in columns]
             cols[-1] = cols[-1][:-1]
             if i == 0:
-                lines = ["SELECT"] + cols + ([f"FROM {innermost_from}"] if innermost_from else [])
+                source = source or innermost_from
+                lines = ["SELECT"] + cols + ([f"FROM {source}"] if source else [])
             else:
                 lines = ["SELECT"] + cols + ["FROM ("] + indent(lines) + [f") AS l{i - 1}"]
+                if source:
+                    lines.append(source)
             if i < len(self.layers) - 1 and fence:
                 lines[-1] += fence
         return lines
@@ -123,13 +130,52 @@ class Query:
 
 
 def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: str = "",
-                extra: list[tuple[str, str]] = (), layers=None) -> Query:
+                extra: list[tuple[str, str]] = (), layers=None, rejoin=None) -> Query:
     """The layered scoring subquery. `source` maps each feature to the SQL expression
     it is read from; `extra` are (alias, expression) pairs carried to the top;
-    `layers` collects the layers (default: rendered as nested SELECTs)."""
+    `layers` collects the layers (default: rendered as nested SELECTs).
+
+    A model of more than TERMS_PER_LAYER terms sums its margins over several layers,
+    each adding a block of terms to the sums of the layer below: the same additions
+    in the same order, so the same value, while no expression nests deeper than the
+    engines accept (SQLite and DuckDB refuse depth 1000). With `rejoin(ref)`, the
+    join clause that brings the input back beside layer `ref` (by a row key carried
+    in `extra`), each block's layer reads its own inputs; without it, the first
+    layer reads every input and later layers carry the values not yet summed."""
     layers = Layers() if layers is None else layers
     carried = [alias for alias, _ in extra]
-    used = {t.input for t in plan.terms}
+    terms = list(plan.terms)
+    blocks = [terms[i:i + TERMS_PER_LAYER] for i in range(0, len(terms), TERMS_PER_LAYER)]
+    if rejoin is not None and len(blocks) > 1:
+        for b, block in enumerate(blocks):
+            reads = dict(_reads(plan, d, source, {t.input for t in block}))
+            sums = _sums(plan, d, block, lambda alias: f"({reads[alias]})",
+                         None if b == 0 else layers.ref, b == len(blocks) - 1)
+            if b == 0:
+                layers.add(list(extra) + sums)
+            else:
+                layers.add(layers.carry(carried) + sums, rejoin(layers.ref))
+    else:
+        # A model with all-zero weights reads nothing; a SELECT needs a column all the same.
+        layers.add(list(extra) + _reads(plan, d, source, {t.input for t in terms})
+                   or [("z", literal(d, 0.0))])
+        for b, block in enumerate(blocks or [[]]):
+            ref = layers.ref
+            later = {t.input for rest in blocks[b + 1:] for t in rest}
+            values = [_alias(inp) for inp in plan.inputs if inp.index in later]
+            sums = _sums(plan, d, block, lambda alias: f"{ref}.{alias}",
+                         None if b == 0 else ref, b >= len(blocks) - 1)
+            layers.add(layers.carry(carried + values) + sums)
+    outputs = _finish(plan, d, layers, carried)
+    return Query(layers.render(innermost_from, d.fence), outputs)
+
+
+def _alias(inp) -> str:
+    return f"{'v' if inp.kind == 'numeric' else 'c'}{inp.index}"
+
+
+def _reads(plan: Plan, d: Dialect, source: dict[str, str], used) -> list[tuple[str, str]]:
+    """(alias, expression) of each used input's design value or category code."""
     read = []
     for inp in plan.inputs:
         if inp.index not in used:
@@ -137,26 +183,33 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
         col = source[inp.name]
         if inp.kind == "numeric":
             region = underflow_region(inp, ()) if d.raises_on_underflow else None
-            read.append((f"v{inp.index}", _design_value(d, inp, region, col)))
+            read.append((_alias(inp), _design_value(d, inp, region, col)))
         else:
-            read.append((f"c{inp.index}", _read_code(d, inp, col)))
-    # A model with all-zero weights reads nothing; a SELECT needs a column all the same.
-    layers.add(list(extra) + read or [("z", literal(d, 0.0))])
-    margins = []
+            read.append((_alias(inp), _read_code(d, inp, col)))
+    return read
+
+
+def _sums(plan: Plan, d: Dialect, block, value, below: str | None, last: bool):
+    """(m<k>, expression): the sums of layer `below` (none: start from the first
+    term) plus the block's terms, left to right, and the intercept if `last`.
+    `value(alias)` spells an input's design value or code."""
+    out = []
     for k in range(plan.n_outputs):
-        s = None
-        for term in plan.terms:
+        s = None if below is None else f"{below}.m{k}"
+        for term in block:
             if term.kind == "numeric":
-                v = _factor(d, term.weights[k], f"{layers.ref}.v{term.input}")
-                t = f"{literal(d, term.weights[k])} * {v}"
+                v = value(f"v{term.input}")
+                t = f"{literal(d, term.weights[k])} * {_factor(d, term.weights[k], v)}"
             else:
-                t = _lookup(d, term.tables[k], f"{layers.ref}.c{term.input}")
-            s = t if s is None else f"({s} + {t})"
-        b = literal(d, plan.intercepts[k])
-        margins.append((f"m{k}", b if s is None else f"{s} + {b}"))
-    layers.add(layers.carry(carried) + margins)
-    outputs = _finish(plan, d, layers, carried)
-    return Query(layers.render(innermost_from, d.fence), outputs)
+                t = _lookup(d, term.tables[k], value(f"c{term.input}"))
+            # `+` is left-associative in SQL: the tree of full parentheses, without
+            # the parentheses SQLite's parser cannot nest 100 deep.
+            s = t if s is None else f"{s} + {t}"
+        if last:
+            b = literal(d, plan.intercepts[k])
+            s = b if s is None else f"{s} + {b}"
+        out.append((f"m{k}", s))
+    return out
 
 
 def _factor(d: Dialect, w: float, v: str) -> str:
@@ -183,6 +236,11 @@ def _read_code(d: Dialect, inp, col: str) -> str:
     else:
         value = f"CAST({col} AS {d.text}){d.text_collate}"
         is_missing = f"{col} IS NULL"
+        if d.code_list is not None and not any(unreachable(d, lv) for lv in inp.levels):
+            levels = ", ".join(d.string(level) for level in inp.levels)
+            position = d.code_list.format(levels=levels, value=value)
+            return (f"CASE WHEN {is_missing} THEN {missing} WHEN {value} = '' THEN {missing} "
+                    f"ELSE COALESCE(NULLIF({position}, 0) - 1, {unseen}) END")
         whens = f"WHEN '' THEN {missing} " + " ".join(
             f"WHEN {d.string(level)} THEN {code}" for code, level in enumerate(inp.levels)
             if not unreachable(d, level))
@@ -374,19 +432,26 @@ def scoring_query(plan: Plan, s: Settings) -> str:
     d = s.dialect
     table = d.quote(s.table)
     sources = _sources(s, "t.")
+    # A wide model on an engine with row ids reads its inputs a block at a time,
+    # joining the table again by rowid (carrying thousands of values through the
+    # layers instead made DuckDB take minutes to plan a 1,000-feature query).
+    wide = d.rowid is not None and len(plan.terms) > TERMS_PER_LAYER
+    rowid = f"t.{d.rowid}"
+    rejoin = (lambda ref: f"JOIN {table} AS t ON {rowid} = {ref}.rid") if wide else None
     if s.keep is not None:
         extra = [(f"k{j}", f"t.{d.quote(c)}") for j, c in enumerate(s.keep)]
-        q = build_query(plan, d, sources, f"{table} AS t", extra)
+        extra += [("rid", rowid)] if wide else []
+        q = build_query(plan, d, sources, f"{table} AS t", extra, rejoin=rejoin)
         cols = [f"s.k{j} AS {d.quote(c)}" for j, c in enumerate(s.keep)]
         open_, close = "FROM (", ") AS s"
-    elif d.passthrough == "lateral":
+    elif d.passthrough == "lateral" and not wide:
         q = build_query(plan, d, sources)
         cols = ["t.*"]
         open_, close = f"FROM {table} AS t CROSS JOIN LATERAL (", ") AS s"
     else:
-        q = build_query(plan, d, sources, f"{table} AS t", [("rid", "t.rowid")])
+        q = build_query(plan, d, sources, f"{table} AS t", [("rid", rowid)], rejoin=rejoin)
         cols = ["t.*"]
-        open_, close = f"FROM {table} AS t JOIN (", ") AS s ON s.rid = t.rowid"
+        open_, close = f"FROM {table} AS t JOIN (", f") AS s ON s.rid = {rowid}"
     cols += [f"s.{alias} AS {d.quote(name)}" for name, alias in q.outputs]
     lines = ["SELECT"] + [f"  {c}," for c in cols]
     lines[-1] = lines[-1][:-1]

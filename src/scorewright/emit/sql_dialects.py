@@ -67,6 +67,13 @@ class Dialect:
     # instead of a CASE: DuckDB expands `CASE c WHEN ...` into one copy of c per branch,
     # which for a 5,000-level feature exhausted 24 GB of memory.
     lookup_list: str | None = None
+    # A text category's 1-based position in a list of its levels ({levels}; 0: none)
+    # instead of a CASE over the levels: Spark's optimizer exhausted a 6 GB heap on a
+    # 5,000-branch CASE.
+    code_list: str | None = None
+    # The pseudo-column naming a table row, if the engine has one: a model of more than
+    # a few hundred terms reads its inputs in blocks joined back by it (emit/sql.py).
+    rowid: str | None = None
 
     def quote(self, name: str) -> str:
         q = self.identifier_quote
@@ -98,6 +105,7 @@ SQLITE = Dialect(
     nan_test=None,
     text_collate=" COLLATE BINARY",
     passthrough="rowid",
+    rowid="rowid",
     fence=" LIMIT -1 OFFSET 0",
     raises_on_underflow=False,
     fold_identifiers=True,
@@ -156,6 +164,7 @@ DUCKDB = Dialect(
     nan_test="isnan({x})",
     text_collate="",
     passthrough="lateral",
+    rowid="rowid",
     fence="",
     raises_on_underflow=False,
     fold_identifiers=True,
@@ -201,6 +210,9 @@ SPARK = Dialect(
     fold_unicode=True,
     nul_char="chr(0)",
     expressions_form=True,
+    lookup_list=("CASE WHEN {code} >= 0 THEN element_at(array({values}), CAST({code} + 1 AS INT)) "
+                 "ELSE {zero} END"),
+    code_list="array_position(array({levels}), {value})",
 )
 
 DIALECTS = {d.name: d for d in (SQLITE, POSTGRES, DUCKDB, SPARK)}

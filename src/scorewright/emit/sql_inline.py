@@ -38,7 +38,8 @@ class InlineLayers:
     def ref(self) -> str:
         return f"\x00L{len(self.layers) - 1}"
 
-    def add(self, columns: list[tuple[str, str]]) -> None:
+    def add(self, columns: list[tuple[str, str]], source: str = "") -> None:
+        assert not source, "an expression cannot join"
         self.layers.append(dict(columns))
 
     def carry(self, aliases) -> list[tuple[str, str]]:
