@@ -197,6 +197,11 @@ def _parse_columns(pairs) -> dict[str, str]:
 @click.option("--column", "columns", multiple=True, metavar="FEATURE=COLUMN",
               help="sql: read FEATURE from COLUMN (repeatable).")
 @click.option("--form", help="sql: select, view, function or expressions (spark).")
+@click.option("--layout", type=click.Choice(["wide", "long"]),
+              help="sql: a column per feature (wide, default) or a row per (key, feature).")
+@click.option("--long-columns", metavar="KEY,FEATURE,VALUE,LEVEL",
+              help="sql --layout long: the long table's columns "
+                   "(default: row_id,feature,value,level).")
 @click.option("--prefix", help="c: symbol and file prefix (default: from the model name).")
 @click.option("--precision", type=click.Choice(["double", "float"]),
               help="c, onnx: arithmetic precision (default double).")
@@ -206,14 +211,16 @@ def _parse_columns(pairs) -> dict[str, str]:
 @click.option("--portable-exp", is_flag=True, help="c: carry an exp of its own (no libm).")
 @click.option("--report", is_flag=True, help="c: print flash, RAM and stack of the scorer.")
 @click.option("--force", is_flag=True, help="Overwrite existing artifacts.")
-def emit(model_file, target, outdir, dialect, table, keep, columns, form, prefix, precision,
-         input_layout, decision_only, portable_exp, report, force):
+def emit(model_file, target, outdir, dialect, table, keep, columns, form, layout, long_columns,
+         prefix, precision, input_layout, decision_only, portable_exp, report, force):
     """Emit the scoring code for one target family into OUTDIR."""
     from .emit import emitter
     from .files import check_writable, write_atomic
 
     options = {
-        "dialect": dialect, "table": table, "form": form, "prefix": prefix,
+        "dialect": dialect, "table": table, "form": form, "prefix": prefix, "layout": layout,
+        "long_columns": None if long_columns is None else
+        [c.strip() for c in long_columns.split(",")],
         "keep": None if keep is None else [c.strip() for c in keep.split(",")],
         "columns": _parse_columns(columns), "precision": precision, "inputs": input_layout,
         "decision_only": decision_only, "portable_exp": portable_exp, "report": report,

@@ -24,10 +24,12 @@ from . import Artifact, reject_options
 from .sql_columns import input_columns, name_key
 from .sql_dialects import Dialect, dialect as find_dialect
 from .sql_guards import product_edge, underflow_region
+from . import sql_long
 from .sql_inline import output_expressions
 from .templating import render
 
-OPTIONS = ("dialect", "table", "keep", "columns", "form")
+OPTIONS = ("dialect", "table", "keep", "columns", "form", "layout", "long_columns")
+LAYOUTS = ("wide", "long")
 FORMS = ("select", "view", "function", "expressions")
 DBL_MAX = 1.7976931348623157e308
 # Terms one margin layer adds: expression depth stays far below every engine's limit.
@@ -138,23 +140,25 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     A model of more than TERMS_PER_LAYER terms sums its margins over several layers,
     each adding a block of terms to the sums of the layer below: the same additions
     in the same order, so the same value, while no expression nests deeper than the
-    engines accept (SQLite and DuckDB refuse depth 1000). With `rejoin(ref)`, the
+    engines accept (SQLite and DuckDB refuse depth 1000). With `rejoin(ref, used)`, the
     join clause that brings the input back beside layer `ref` (by a row key carried
-    in `extra`), each block's layer reads its own inputs; without it, the first
-    layer reads every input and later layers carry the values not yet summed."""
+    in `extra`; `ref` None: the first layer's FROM source), each block's layer reads
+    its own inputs (`used`, input indices); without it, the first layer reads every
+    input and later layers carry the values not yet summed."""
     layers = Layers() if layers is None else layers
     carried = [alias for alias, _ in extra]
     terms = list(plan.terms)
     blocks = [terms[i:i + TERMS_PER_LAYER] for i in range(0, len(terms), TERMS_PER_LAYER)]
-    if rejoin is not None and len(blocks) > 1:
+    if rejoin is not None:
+        blocks = blocks or [[]]
         for b, block in enumerate(blocks):
-            reads = dict(_reads(plan, d, source, {t.input for t in block}))
-            sums = _sums(plan, d, block, lambda alias: f"({reads[alias]})",
-                         None if b == 0 else layers.ref, b == len(blocks) - 1)
-            if b == 0:
-                layers.add(list(extra) + sums)
-            else:
-                layers.add(layers.carry(carried) + sums, rejoin(layers.ref))
+            used = {t.input for t in block}
+            reads = dict(_reads(plan, d, source, used))
+            below = None if b == 0 else layers.ref
+            sums = _sums(plan, d, block, lambda alias: f"({reads[alias]})", below,
+                         b == len(blocks) - 1)
+            layers.add((list(extra) if b == 0 else layers.carry(carried)) + sums,
+                       rejoin(below, used))
     else:
         # A model with all-zero weights reads nothing; a SELECT needs a column all the same.
         layers.add(list(extra) + _reads(plan, d, source, {t.input for t in terms})
@@ -361,7 +365,9 @@ class Settings:
     form: str
     table: str
     keep: tuple[str, ...] | None   # None: every input column
-    columns: dict                  # feature -> column
+    columns: dict                  # feature -> column (long layout: name in the table)
+    layout: str = "wide"
+    long_columns: tuple[str, ...] = ()
 
 
 def settings(plan: Plan, options: dict) -> Settings:
@@ -381,20 +387,37 @@ def settings(plan: Plan, options: dict) -> Settings:
                 raise ScorewrightError(f"--{option} does not apply to --form expressions: "
                                        "selectExpr('*', ...) keeps every column of the frame")
     table = options.get("table") or "input"
+    layout = options.get("layout", "wide")
+    if layout not in LAYOUTS:
+        raise ScorewrightError(f"--layout {layout!r}: expected one of {', '.join(LAYOUTS)}")
+    if layout == "wide" and options.get("long_columns") is not None:
+        raise ScorewrightError("--long-columns applies only to --layout long")
+    if layout == "long":
+        long_columns = sql_long.check(None, d, form, options)
+        mapping = _mapping(plan, options)
+        s = Settings(d, form, table, None, sql_long.names(plan, d, mapping), layout,
+                     long_columns)
+        _check_names(plan, s)
+        return s
     keep = options.get("keep")
     if keep is not None:
         keep = tuple(keep)
         if not keep or any(c == "" for c in keep):
             raise ScorewrightError("--keep: expected comma-separated column names")
-    mapping = dict(options.get("columns") or {})
-    for feature in mapping:
-        if feature not in plan.feature_names:
-            raise ScorewrightError(f"--column {feature}=...: the model has no feature {feature!r}")
+    mapping = _mapping(plan, options)
     columns = input_columns(d, plan.feature_names, mapping,
                             output_columns(plan) + d.reserved_columns, keep is None)
     s = Settings(d, form, table, keep, columns)
     _check_names(plan, s)
     return s
+
+
+def _mapping(plan: Plan, options: dict) -> dict:
+    mapping = dict(options.get("columns") or {})
+    for feature in mapping:
+        if feature not in plan.feature_names:
+            raise ScorewrightError(f"--column {feature}=...: the model has no feature {feature!r}")
+    return mapping
 
 
 def _check_names(plan: Plan, s: Settings) -> None:
@@ -411,6 +434,11 @@ def _check_names(plan: Plan, s: Settings) -> None:
             raise ScorewrightError(f"{d.name}: text cannot hold NUL, so the class label "
                                    f"{label!r} cannot be returned")
     outputs = {name_key(d, c) for c in output_columns(plan)}
+    if s.layout == "long":
+        _check_text("the table name", s.table)
+        if name_key(d, s.long_columns[0]) in outputs:
+            raise ScorewrightError(f"--long-columns: the key {s.long_columns[0]!r} is "
+                                   "named like an output column")
     for column in s.keep or ():
         _check_text("the kept column", column)
         if name_key(d, column) in outputs:
@@ -430,6 +458,14 @@ def object_name(plan: Plan) -> str:
 def scoring_query(plan: Plan, s: Settings) -> str:
     """The SELECT statement (no terminator) for the select and view forms."""
     d = s.dialect
+    if s.layout == "long":
+        body, outputs = sql_long.query(plan, s, build_query)
+        cols = [f"s.rk AS {d.quote(s.long_columns[0])}"] + [
+            f"CASE WHEN s.nd = 0 THEN s.{alias} END AS {d.quote(name)}"
+            for name, alias in outputs]
+        lines = ["SELECT"] + [f"  {c}," for c in cols]
+        lines[-1] = lines[-1][:-1]
+        return "\n".join(lines + ["FROM ("] + indent(body) + [") AS s"])
     table = d.quote(s.table)
     sources = _sources(s, "t.")
     # A wide model on an engine with row ids reads its inputs a block at a time,
@@ -437,7 +473,8 @@ def scoring_query(plan: Plan, s: Settings) -> str:
     # layers instead made DuckDB take minutes to plan a 1,000-feature query).
     wide = d.rowid is not None and len(plan.terms) > TERMS_PER_LAYER
     rowid = f"t.{d.rowid}"
-    rejoin = (lambda ref: f"JOIN {table} AS t ON {rowid} = {ref}.rid") if wide else None
+    rejoin = (lambda ref, used: f"{table} AS t" if ref is None else
+              f"JOIN {table} AS t ON {rowid} = {ref}.rid") if wide else None
     if s.keep is not None:
         extra = [(f"k{j}", f"t.{d.quote(c)}") for j, c in enumerate(s.keep)]
         extra += [("rid", rowid)] if wide else []
@@ -501,13 +538,15 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
     d = s.dialect
     lines = [f"Model: {comment_text(plan.name)}",
              f"Model SHA-256: {plan.sha256}",
-             f"Dialect: {d.name}; form: {s.form}"]
+             f"Dialect: {d.name}; form: {s.form}; layout: {s.layout}"]
     if s.form == "function":
         lines.append("Arguments, in order (feature: SQL type):")
         for inp, typ in zip(plan.inputs, parameter_types(plan, d)):
             lines.append(f"  {comment_text(inp.name)}: {typ}")
         lines.append("Call it on a table (here: the default table and column names):")
         lines += ["  " + line for line in function_call(plan, s).split("\n")]
+    elif s.layout == "long":
+        lines += sql_long.header_lines(plan, s, comment_text)
     else:
         lines.append(f"Input table: {comment_text(s.table)}")
         lines.append("Features (feature <- column; a name the engine cannot hold as a "
@@ -534,7 +573,8 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
 def artifact_name(plan: Plan, s: Settings) -> str:
     if s.form == "expressions":
         return f"{plan.stem}.{s.dialect.name}.expressions.json"
-    return f"{plan.stem}.{s.dialect.name}.sql"
+    layout = ".long" if s.layout == "long" else ""
+    return f"{plan.stem}.{s.dialect.name}{layout}.sql"
 
 
 def expressions(plan: Plan, s: Settings) -> list[str]:

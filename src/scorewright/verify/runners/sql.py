@@ -104,6 +104,43 @@ class Table:
             self.row_column += "_"
         self.types = [types[k] for k in self.kinds]
 
+    def records(self):
+        return [[i] + r for i, r in enumerate(self.values)]
+
+
+class LongTable:
+    """The input table in the long layout: numbers in the value column, category
+    levels as text in the level column. A missing value is left out on even rows
+    and given as NULL on odd ones, so both spellings of missing are run; a row
+    with nothing given keeps one NULL pair (a key with no pair is no row)."""
+
+    def __init__(self, plan, s, rows, types: dict):
+        key, feature, value, level = s.long_columns
+        self.row_column, self.columns = key, [feature, value, level]
+        self.types = [types["text"], types["double"], types["text"]]
+        self.values = []
+        named = {}
+        for inp in plan.inputs:
+            named.setdefault(s.columns[inp.name], inp)
+        for i, row in enumerate(rows):
+            for name, inp in named.items():
+                raw = row.get(inp.name)
+                if inp.kind == "numeric":
+                    cell = numeric_cell(raw)
+                    pair = [name, cell, None]
+                else:
+                    cell = as_text(integer_level_cell(raw)) if inp.integer_levels \
+                        else text_cell(raw)
+                    pair = [name, None, cell]
+                if cell is not None or i % 2:
+                    self.values.append([i] + pair)
+            if not self.values or self.values[-1][0] != i:
+                name, inp = next(iter(named.items()))
+                self.values.append([i, name, None, None])
+
+    def records(self):
+        return [list(r) for r in self.values]
+
 
 def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict) -> RunOutput:
     plan = build_plan(model)
@@ -115,7 +152,8 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     # Bytes as written: universal newlines would turn a CR inside a quoted name into LF.
     sql = path.read_bytes().decode("utf-8")
     engine = ENGINES[d.name]
-    table = Table(plan, s, rows, engine.TYPES, engine.mixed_cell)
+    table = LongTable(plan, s, rows, engine.TYPES) if s.layout == "long" else \
+        Table(plan, s, rows, engine.TYPES, engine.mixed_cell)
     if not engine.HOLDS_NUL:
         _refuse_nul(plan, table, engine.NAME)
     if s.form == "select":
@@ -141,12 +179,12 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     return outputs_from_table(plan, [[r[i] for i in index] for r in result], version)
 
 
-def _refuse_nul(plan, table: Table, engine: str) -> None:
+def _refuse_nul(plan, table, engine: str) -> None:
     """A text value with NUL cannot enter an engine whose text cannot hold it."""
-    for i, values in enumerate(table.values):
-        for column, value in zip(table.columns, values):
+    for record in table.records():
+        for column, value in zip([table.row_column] + table.columns, record):
             if isinstance(value, str) and "\x00" in value:
-                raise ScorewrightError(f"sql: {engine} text cannot hold NUL, so row {i} "
+                raise ScorewrightError(f"sql: {engine} text cannot hold NUL, so row {record[0]} "
                                        f"(column {column!r} = {value!r}) cannot be loaded")
 
 
@@ -161,8 +199,8 @@ def insert(d, name: str, table: Table, marker: str) -> str:
     return f"INSERT INTO {d.quote(name)} VALUES ({marks})"
 
 
-def _records(table: Table):
-    return [[i] + r for i, r in enumerate(table.values)]
+def _records(table):
+    return table.records()
 
 
 class SQLite:
@@ -302,8 +340,8 @@ class Spark:
         kinds = {"double": T.DoubleType(), "bigint": T.LongType(), "string": T.StringType()}
         fields = [T.StructField(table.row_column, T.LongType())]
         fields += [T.StructField(c, kinds[t]) for c, t in zip(table.columns, table.types)]
-        records = [[i] + [float(v) if t == "double" and v is not None else v
-                          for v, t in zip(r, table.types)] for i, r in enumerate(table.values)]
+        records = [[r[0]] + [float(v) if t == "double" and v is not None else v
+                             for v, t in zip(r[1:], table.types)] for r in table.records()]
         try:
             frame = spark.createDataFrame(records, T.StructType(fields))
             frame.createOrReplaceTempView(d.quote(name))
