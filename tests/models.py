@@ -189,3 +189,22 @@ BUILDERS = {
 @lru_cache(maxsize=None)
 def build(name: str) -> TestModel:
     return BUILDERS[name]()
+
+
+def wide_model(n: int, prefix: str = "sensor", spread: float = 0.02) -> FrozenModel:
+    """An invented all-numeric binary model of n standardized features (seeded by n):
+    the shape that tests how far each target scales."""
+    import random
+
+    from scorewright.model import DesignColumn, Head, NumericFeature, ScalingStep
+
+    rng = random.Random(n)
+    width = max(3, len(str(n - 1)))
+    feats = tuple(NumericFeature(f"{prefix}_{i:0{width}d}", rng.uniform(-1, 1),
+                                 (ScalingStep("subtract", rng.uniform(-5, 5)),
+                                  ScalingStep("divide", rng.uniform(0.5, 3.0))))
+                  for i in range(n))
+    head = Head("binary", "logit", ("ok", "fault"), (-0.3,),
+                (tuple(rng.gauss(0, spread) for _ in range(n)),), 0.0)
+    return FrozenModel(f"wide_{n}", feats, tuple(DesignColumn(f.name) for f in feats), head,
+                       {"scorewright_version": "test", "source": "scale test"}).sealed()

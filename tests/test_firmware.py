@@ -21,6 +21,8 @@ import mpmath
 import numpy as np
 import pytest
 
+import models
+
 from scorewright import portable_exp
 from scorewright.emit import emitter
 from scorewright.model import DesignColumn, FrozenModel, Head, NumericFeature, load_model
@@ -428,20 +430,6 @@ def test_edge_rows_run_on_the_board_without_a_fault(tmp_path):
     assert "mps2-an385" in got.runtime and "Cortex-M3" in got.runtime
 
 
-def _wide_model(n: int) -> FrozenModel:
-    from scorewright.model import ScalingStep
-
-    rng = random.Random(n)
-    feats = tuple(NumericFeature(f"probe_{i:03d}", rng.uniform(-1, 1),
-                                 (ScalingStep("subtract", rng.uniform(-5, 5)),
-                                  ScalingStep("divide", rng.uniform(0.5, 3.0))))
-                  for i in range(n))
-    head = Head("binary", "logit", ("ok", "fault"), (-0.3,),
-                (tuple(rng.gauss(0, 0.2) for _ in range(n)),), 0.0)
-    return FrozenModel(f"wide_{n}", feats, tuple(DesignColumn(f.name) for f in feats), head,
-                       {"scorewright_version": "test", "source": "wide probe"}).sealed()
-
-
 @pytest.mark.parametrize("profile_name", BOARDS)
 def test_a_wide_models_row_scorer_in_parts_keeps_the_bits(profile_name, tmp_path):
     """Past ROW_PART_TERMS terms the row scorer is cut into functions (one giant function
@@ -451,7 +439,7 @@ def test_a_wide_models_row_scorer_in_parts_keeps_the_bits(profile_name, tmp_path
     from scorewright.verify.cases import random_rows
 
     _require()
-    model = _wide_model(2 * ROW_PART_TERMS + 7)
+    model = models.wide_model(2 * ROW_PART_TERMS + 7, prefix="probe", spread=0.2)
     plan = build_plan(model, exp="portable")
     rows = [r for _, r in edge_rows(plan)] + random_rows(plan, 40, seed=2)
     where = _emit(model, {"portable_exp": True}, tmp_path / "art")

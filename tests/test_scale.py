@@ -9,6 +9,7 @@ import time
 
 import pytest
 
+import models
 import tally
 from scorewright.errors import ScorewrightError
 from scorewright.emit import emitter
@@ -22,19 +23,6 @@ from scorewright.verify.profiles import builtin_names, load_profile
 from scorewright.verify.runners import runner
 
 FIGURES: dict = {}
-
-
-def wide_model(n: int) -> FrozenModel:
-    rng = random.Random(n)
-    feats = tuple(NumericFeature(f"sensor_{i:05d}", rng.uniform(-1, 1),
-                                 (ScalingStep("subtract", rng.uniform(-5, 5)),
-                                  ScalingStep("divide", rng.uniform(0.5, 3.0))))
-                  for i in range(n))
-    design = tuple(DesignColumn(f.name) for f in feats)
-    coefs = tuple(rng.gauss(0, 0.02) for _ in range(n))
-    return FrozenModel(f"wide_{n}", feats, design,
-                       Head("binary", "logit", ("ok", "fault"), (-0.3,), (coefs,), 0.0),
-                       {"scorewright_version": "test", "source": "scale test"}).sealed()
 
 
 def many_levels_model(n_levels: int) -> FrozenModel:
@@ -58,7 +46,7 @@ ENGINE_LIMITS = {"sql-sqlite": "too many columns", "sql-postgres": "at most 1600
                  "sql-duckdb": "expression depth"}
 NOT_RUN = {"sql-spark": "Java heap exhausted in local mode (default driver memory)"}
 
-MODELS = {"10,000 numeric features": lambda: wide_model(10_000),
+MODELS = {"10,000 numeric features": lambda: models.wide_model(10_000),
           "one categorical with 5,000 levels": lambda: many_levels_model(5_000)}
 
 

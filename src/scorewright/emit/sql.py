@@ -32,8 +32,6 @@ OPTIONS = ("dialect", "table", "keep", "columns", "form", "layout", "long_column
 LAYOUTS = ("wide", "long")
 FORMS = ("select", "view", "function", "expressions")
 DBL_MAX = 1.7976931348623157e308
-# Terms one margin layer adds: expression depth stays far below every engine's limit.
-TERMS_PER_LAYER = 250
 OP = {"subtract": "-", "divide": "/", "multiply": "*", "add": "+"}
 
 
@@ -121,6 +119,25 @@ class Layers:
         return lines
 
 
+    def render_with(self, name, fence: str) -> list[str]:
+        """The layers as a flat WITH list, `name(i)` naming layer i (each read as l<i>):
+        no nesting for the parser to track however many layers there are (SQLite's
+        parser stack held about 40 nested subqueries)."""
+        lines: list[str] = []
+        for i, (columns, source) in enumerate(self.layers):
+            cols = [f"  {expr} AS {alias}," for alias, expr in columns]
+            cols[-1] = cols[-1][:-1]
+            below = [source] if i == 0 else [f"FROM {name(i - 1)} AS l{i - 1}"] + (
+                [source] if source else [])
+            if i == 0:
+                below = [f"FROM {source}"]
+            body = ["SELECT"] + cols + below
+            if fence:
+                body[-1] += fence
+            lines += [("WITH " if i == 0 else ", ") + f"{name(i)} AS ("] + indent(body) + [")"]
+        return lines
+
+
 def indent(lines: list[str], by: str = "  ") -> list[str]:
     return [by + line for line in lines]
 
@@ -129,6 +146,7 @@ def indent(lines: list[str], by: str = "  ") -> list[str]:
 class Query:
     body: list[str]             # the scoring subquery's lines: output aliases, keeps, rowid
     outputs: list[tuple[str, str]]  # (output column name, alias in the body)
+    layers: object = None
 
 
 def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: str = "",
@@ -137,7 +155,7 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     it is read from; `extra` are (alias, expression) pairs carried to the top;
     `layers` collects the layers (default: rendered as nested SELECTs).
 
-    A model of more than TERMS_PER_LAYER terms sums its margins over several layers,
+    A model of more than the dialect's terms_per_layer terms sums its margins over several layers,
     each adding a block of terms to the sums of the layer below: the same additions
     in the same order, so the same value, while no expression nests deeper than the
     engines accept (SQLite and DuckDB refuse depth 1000). With `rejoin(ref, used)`, the
@@ -148,7 +166,8 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     layers = Layers() if layers is None else layers
     carried = [alias for alias, _ in extra]
     terms = list(plan.terms)
-    blocks = [terms[i:i + TERMS_PER_LAYER] for i in range(0, len(terms), TERMS_PER_LAYER)]
+    per = d.terms_per_layer
+    blocks = [terms[i:i + per] for i in range(0, len(terms), per)]
     if rejoin is not None:
         blocks = blocks or [[]]
         for b, block in enumerate(blocks):
@@ -171,7 +190,7 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
                          None if b == 0 else ref, b >= len(blocks) - 1)
             layers.add(layers.carry(carried + values) + sums)
     outputs = _finish(plan, d, layers, carried)
-    return Query(layers.render(innermost_from, d.fence), outputs)
+    return Query(layers.render(innermost_from, d.fence), outputs, layers)
 
 
 def _alias(inp) -> str:
@@ -459,19 +478,13 @@ def scoring_query(plan: Plan, s: Settings) -> str:
     """The SELECT statement (no terminator) for the select and view forms."""
     d = s.dialect
     if s.layout == "long":
-        body, outputs = sql_long.query(plan, s, build_query)
-        cols = [f"s.rk AS {d.quote(s.long_columns[0])}"] + [
-            f"CASE WHEN s.nd = 0 THEN s.{alias} END AS {d.quote(name)}"
-            for name, alias in outputs]
-        lines = ["SELECT"] + [f"  {c}," for c in cols]
-        lines[-1] = lines[-1][:-1]
-        return "\n".join(lines + ["FROM ("] + indent(body) + [") AS s"])
+        return sql_long.statement(plan, s, build_query, indent)
     table = d.quote(s.table)
     sources = _sources(s, "t.")
     # A wide model on an engine with row ids reads its inputs a block at a time,
     # joining the table again by rowid (carrying thousands of values through the
     # layers instead made DuckDB take minutes to plan a 1,000-feature query).
-    wide = d.rowid is not None and len(plan.terms) > TERMS_PER_LAYER
+    wide = d.rowid is not None and len(plan.terms) > d.terms_per_layer
     rowid = f"t.{d.rowid}"
     rejoin = (lambda ref, used: f"{table} AS t" if ref is None else
               f"JOIN {table} AS t ON {rowid} = {ref}.rid") if wide else None

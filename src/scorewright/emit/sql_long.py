@@ -6,7 +6,7 @@ data usually lives in long form anyway. The long table has four columns (names
 set by --long-columns): the row key, the feature name, `value` (double) for a
 numeric feature and `level` (text) for a categorical one.
 
-The query reads the features a block of TERMS_PER_LAYER at a time: each block
+The query reads the features a block of the dialect's terms_per_layer at a time: each block
 pivots its own features out of the table (one GROUP BY over the block's rows)
 and is joined to the running margin sums by the key, so no layer holds more than
 a few hundred columns and the sums keep the plan's order (emit/sql.py). A pair
@@ -54,12 +54,17 @@ def names(plan, d: Dialect, mapping: dict) -> dict[str, str]:
     return out
 
 
-def query(plan, s, build_query) -> tuple[list[str], list[tuple[str, str]]]:
-    """(the SELECT's lines, (output column, alias) pairs) over the long table."""
+def statement(plan, s, build_query, indent) -> str:
+    """The SELECT over the long table: the layers as a WITH list, then the key and the
+    outputs (NULL for a key with a feature given twice)."""
     d = s.dialect
     key, feature, value, level = (d.quote(c) for c in s.long_columns)
     table = d.quote(s.table)
     by_index = {inp.index: inp for inp in plan.inputs}
+    # Layer names no table name can shadow: a WITH name hides a table of that name.
+    prefix = "sw_"
+    while s.table.lower().startswith(prefix):
+        prefix += "_"
 
     def pivot(used) -> str:
         picked = [by_index[i] for i in sorted(used)]
@@ -79,9 +84,14 @@ def query(plan, s, build_query) -> tuple[list[str], list[tuple[str, str]]]:
         return f"LEFT JOIN {pivot(used)} AS t ON t.k = {ref}.rk" if used else ""
 
     sources = {inp.name: f"t.r{inp.index}" for inp in plan.inputs}
-    q = build_query(plan, d, sources, extra=[("rk", "ks.k"), ("nd", "ks.nd")],
-                    rejoin=rejoin)
-    return q.body, q.outputs
+    q = build_query(plan, d, sources, extra=[("rk", "ks.k"), ("nd", "ks.nd")], rejoin=rejoin)
+    last = len(q.layers.layers) - 1
+    cols = [f"s.rk AS {key}"] + [f"CASE WHEN s.nd = 0 THEN s.{alias} END AS {d.quote(name)}"
+                                 for name, alias in q.outputs]
+    lines = q.layers.render_with(lambda i: f"{prefix}l{i}", d.fence)
+    lines += ["SELECT"] + [f"  {c}," for c in cols]
+    lines[-1] = lines[-1][:-1]
+    return "\n".join(lines + [f"FROM {prefix}l{last} AS s"])
 
 
 def header_lines(plan, s, comment_text) -> list[str]:
