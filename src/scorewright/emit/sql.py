@@ -155,14 +155,16 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     it is read from; `extra` are (alias, expression) pairs carried to the top;
     `layers` collects the layers (default: rendered as nested SELECTs).
 
-    A model of more than the dialect's terms_per_layer terms sums its margins over several layers,
-    each adding a block of terms to the sums of the layer below: the same additions
-    in the same order, so the same value, while no expression nests deeper than the
-    engines accept (SQLite and DuckDB refuse depth 1000). With `rejoin(ref, used)`, the
-    join clause that brings the input back beside layer `ref` (by a row key carried
-    in `extra`; `ref` None: the first layer's FROM source), each block's layer reads
-    its own inputs (`used`, input indices); without it, the first layer reads every
-    input and later layers carry the values not yet summed."""
+    A model of more than the dialect's terms_per_layer terms sums its margins over
+    several layers, each adding a block of terms to the sums of the layer below: the
+    same additions in the same order, so the same value, while no expression nests
+    deeper than the engines accept (SQLite and DuckDB refuse depth 1000).
+
+    With `rejoin(ref, used)`, the join clause that brings the input back beside
+    layer `ref` (by a row key carried in `extra`; `ref` None: the first layer's FROM
+    source), each block's layer reads its own inputs (`used`, input indices); without
+    it, the first layer reads every input and later layers carry the values not yet
+    summed."""
     layers = Layers() if layers is None else layers
     carried = [alias for alias, _ in extra]
     terms = list(plan.terms)
