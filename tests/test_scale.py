@@ -46,6 +46,8 @@ ENGINE_LIMITS = {"sql-sqlite": "too many columns", "sql-postgres": "at most 1600
 NOT_RUN = {
     ("sql-spark", "10,000 numeric features"):
         "Java heap exhausted in local mode (default 1 GB driver memory)",
+    ("sql-spark-long", "10,000 numeric features"):
+        "Java heap exhausted in local mode (default 1 GB driver memory)",
     # 2,100 features run in tests/test_sql_layouts.py; 4,000 took 82 s and a 5 GB backend.
     ("sql-postgres-long", "10,000 numeric features"):
         "the server process grew past 13 GB within minutes",
