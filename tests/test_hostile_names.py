@@ -126,7 +126,10 @@ def test_hostile_strings_reach_every_target_safely(profile_name, tmp_path_factor
                 return
             # PostgreSQL text cannot hold NUL (a value, never a name): such a level cannot be
             # loaded and such a class label cannot be returned; both are refused in one line.
+            # In the long layout feature names are values too (the feature column).
             values = list(model.features[2].levels) + list(model.head.classes or ())
+            if profile.emit.get("layout") == "long":
+                values += [f.name for f in model.features]
             if _nul_values_refused(profile, values, exc):
                 refused.append(1)
                 return
