@@ -107,7 +107,10 @@ def test_hostile_strings_reach_every_target_safely(profile_name, tmp_path_factor
     examples = EXAMPLES * (10 if request.config.getoption("--runslow") else 1)
     seen, refused = [], []
 
-    @settings(max_examples=examples, deadline=None, database=None,
+    # The CI run draws the same examples every time (a failure there is reproducible);
+    # the opt-in long run draws new ones.
+    slow = request.config.getoption("--runslow")
+    @settings(max_examples=examples, deadline=None, database=None, derandomize=not slow,
               suppress_health_check=list(HealthCheck))
     @given(model=hostile_models())
     def check(model):
