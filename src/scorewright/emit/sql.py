@@ -105,8 +105,7 @@ class Layers:
         or string, so callers indent with `indent`, never by splitting on newlines."""
         lines: list[str] = []
         for i, (columns, source) in enumerate(self.layers):
-            cols = [f"  {expr} AS {alias}," for alias, expr in columns]
-            cols[-1] = cols[-1][:-1]
+            cols = _select_list(columns)
             if i == 0:
                 source = source or innermost_from
                 lines = ["SELECT"] + cols + ([f"FROM {source}"] if source else [])
@@ -125,17 +124,21 @@ class Layers:
         parser stack held about 40 nested subqueries)."""
         lines: list[str] = []
         for i, (columns, source) in enumerate(self.layers):
-            cols = [f"  {expr} AS {alias}," for alias, expr in columns]
-            cols[-1] = cols[-1][:-1]
-            below = [source] if i == 0 else [f"FROM {name(i - 1)} AS l{i - 1}"] + (
-                [source] if source else [])
             if i == 0:
                 below = [f"FROM {source}"]
-            body = ["SELECT"] + cols + below
+            else:
+                below = [f"FROM {name(i - 1)} AS l{i - 1}"] + ([source] if source else [])
+            body = ["SELECT"] + _select_list(columns) + below
             if fence:
                 body[-1] += fence
             lines += [("WITH " if i == 0 else ", ") + f"{name(i)} AS ("] + indent(body) + [")"]
         return lines
+
+
+def _select_list(columns: list[tuple[str, str]]) -> list[str]:
+    cols = [f"  {expr} AS {alias}," for alias, expr in columns]
+    cols[-1] = cols[-1][:-1]
+    return cols
 
 
 def indent(lines: list[str], by: str = "  ") -> list[str]:
@@ -414,7 +417,7 @@ def settings(plan: Plan, options: dict) -> Settings:
     if layout == "wide" and options.get("long_columns") is not None:
         raise ScorewrightError("--long-columns applies only to --layout long")
     if layout == "long":
-        long_columns = sql_long.check(None, d, form, options)
+        long_columns = sql_long.check(form, options)
         mapping = _mapping(plan, options)
         s = Settings(d, form, table, None, sql_long.names(plan, d, mapping), layout,
                      long_columns)

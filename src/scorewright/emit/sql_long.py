@@ -24,7 +24,7 @@ DEFAULT_COLUMNS = ("row_id", "feature", "value", "level")
 FORMS = ("select", "view")
 
 
-def check(plan, d: Dialect, form: str, options: dict) -> tuple[str, ...]:
+def check(form: str, options: dict) -> tuple[str, ...]:
     """The long-layout column names, after refusing what the layout cannot do."""
     if form not in FORMS:
         raise ScorewrightError(f"--layout long: --form {form} is not available "
