@@ -483,7 +483,7 @@ def scoring_query(plan: Plan, s: Settings) -> str:
     """The SELECT statement (no terminator) for the select and view forms."""
     d = s.dialect
     if s.layout == "long":
-        return sql_long.statement(plan, s, build_query, indent)
+        return sql_long.statement(plan, s, build_query, _select_list)
     table = d.quote(s.table)
     sources = _sources(s, "t.")
     # A wide model on an engine with row ids reads its inputs a block at a time,

@@ -6,8 +6,8 @@ data usually lives in long form anyway. The long table has four columns (names
 set by --long-columns): the row key, the feature name, `value` (double) for a
 numeric feature and `level` (text) for a categorical one.
 
-The query reads the features a block of the dialect's terms_per_layer at a time: each block
-pivots its own features out of the table (one GROUP BY over the block's rows)
+The query reads the features a block (the dialect's terms_per_layer) at a time: each
+block pivots its own features out of the table (one GROUP BY over the block's rows)
 and is joined to the running margin sums by the key, so no layer holds more than
 a few hundred columns and the sums keep the plan's order (emit/sql.py). A pair
 that is absent, or present with NULL, is a missing value. A key with any feature
@@ -54,7 +54,7 @@ def names(plan, d: Dialect, mapping: dict) -> dict[str, str]:
     return out
 
 
-def statement(plan, s, build_query, indent) -> str:
+def statement(plan, s, build_query, select_list) -> str:
     """The SELECT over the long table: the layers as a WITH list, then the key and the
     outputs (NULL for a key with a feature given twice)."""
     d = s.dialect
@@ -86,11 +86,10 @@ def statement(plan, s, build_query, indent) -> str:
     sources = {inp.name: f"t.r{inp.index}" for inp in plan.inputs}
     q = build_query(plan, d, sources, extra=[("rk", "ks.k"), ("nd", "ks.nd")], rejoin=rejoin)
     last = len(q.layers.layers) - 1
-    cols = [f"s.rk AS {key}"] + [f"CASE WHEN s.nd = 0 THEN s.{alias} END AS {d.quote(name)}"
-                                 for name, alias in q.outputs]
+    cols = [(key, "s.rk")] + [(d.quote(name), f"CASE WHEN s.nd = 0 THEN s.{alias} END")
+                              for name, alias in q.outputs]
     lines = q.layers.render_with(lambda i: f"{prefix}l{i}", d.fence)
-    lines += ["SELECT"] + [f"  {c}," for c in cols]
-    lines[-1] = lines[-1][:-1]
+    lines += ["SELECT"] + select_list(cols)
     return "\n".join(lines + [f"FROM {prefix}l{last} AS s"])
 
 
