@@ -108,13 +108,21 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
     lit = prec.literal
     uses_exp = not decision_only and (plan.task != "regression" or plan.link == "log")
     routine = exp_routine(prefix) if portable and uses_exp else None
-    exp_fn = prec.exp if routine is None else \
-        routine["float_name" if prec.real == "float" else "name"]
+    libm_exp = None
+    if routine is not None:
+        exp_fn = routine["float_name" if prec.real == "float" else "name"]
+    elif uses_exp:
+        # libm's exp behind a wrapper the compiler cannot fold (see the template)
+        libm_exp = {"name": f"{prefix}_libm_{prec.exp}", "call": prec.exp}
+        exp_fn = libm_exp["name"]
+    else:
+        exp_fn = prec.exp
     return {
         "prefix": prefix,
         "decision_only": decision_only,
         "portable_exp": routine,
         "exp_fn": exp_fn,
+        "libm_exp": libm_exp,
         "sha256": plan.sha256,
         "model_name": comment_text(plan.name),
         "task": plan.task,
