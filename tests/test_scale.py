@@ -48,9 +48,6 @@ NOT_RUN = {
         "Java heap exhausted in local mode (default 1 GB driver memory)",
     ("sql-spark-long", "10,000 numeric features"):
         "Java heap exhausted in local mode (default 1 GB driver memory)",
-    # 2,100 features run in tests/test_sql_layouts.py; 4,000 took 82 s and a 5 GB backend.
-    ("sql-postgres-long", "10,000 numeric features"):
-        "the server process grew past 13 GB within minutes",
 }
 
 MODELS = {"10,000 numeric features": lambda: models.wide_model(10_000),

@@ -28,6 +28,7 @@ from scorewright.emit.sql_dialects import DIALECTS
 from scorewright.errors import ScorewrightError
 from scorewright.plan import build_plan
 from scorewright.reference import score_row
+from scorewright.verify.cases import random_rows
 from scorewright.verify.runners import sql as sql_runner
 
 DIALECT_NAMES = ("sqlite", "postgres", "duckdb")
@@ -49,7 +50,8 @@ def options_for(dialect: str, name: str, **extra) -> dict:
 
 
 def run_sql(tmp_path, model, rows, options, dsn):
-    art = emit(model, options)[0]
+    """Emit with `options` and run on the dialect's engine (`settings`: the runner's)."""
+    art = emit(model, {k: v for k, v in options.items() if k != "settings"})[0]
     out = tmp_path / f"{options['dialect']}-{options.get('form', 'select')}"
     out.mkdir(exist_ok=True)
     (out / art.name).write_bytes(art.content)
@@ -268,6 +270,42 @@ def test_trap_postgres_raises_on_exp_and_underflow(tmp_path, postgres_dsn):
         assert_agrees(tm.model, rows, got)
     sql = emit(models.build("spector").model, {"dialect": "postgres"})[0].content.decode()
     assert "* CAST('0.0' AS DOUBLE PRECISION) ELSE" in sql  # the underflow guard is there
+
+
+# Every JIT threshold at zero: each query is compiled, inlined and optimized by LLVM.
+FORCED_JIT = {"jit": "on", "jit_above_cost": "0", "jit_inline_above_cost": "0",
+              "jit_optimize_above_cost": "0"}
+
+
+def test_trap_postgres_jit_gives_the_same_bits(tmp_path, postgres_dsn):
+    """PostgreSQL compiles expressions with LLVM when a query costs enough (jit is on by
+    default where the server is built with LLVM). Compiled code could contract a
+    multiply and an add or reorder operations; forced on for every query, it gives
+    the same bits on every test model and on a model summed over several layers in
+    both layouts. (The PostgreSQL profiles verify with jit off, for time.)"""
+    with psycopg.connect(postgres_dsn, autocommit=True) as con:
+        assert con.execute("SELECT pg_jit_available()").fetchone()[0], \
+            "this PostgreSQL server has no JIT (Debian: the llvmjit library of the package)"
+        for k, v in FORCED_JIT.items():
+            con.execute("SELECT set_config(%s, %s, false)", (k, v))
+        plan = "\n".join(r[0] for r in con.execute(
+            "EXPLAIN ANALYZE SELECT exp(x * 0.5) FROM generate_series(1, 3) AS x"))
+        assert "JIT:" in plan and "Inlining true, Optimization true" in plan, plan
+    for name in MODEL_NAMES:
+        tm = models.build(name)
+        rows = edge_rows(name, n_frame=50)
+        got = run_sql(tmp_path, tm.model, rows, options_for("postgres", name,
+                                                            settings=FORCED_JIT), postgres_dsn)
+        assert got.runtime.endswith("jit_optimize_above_cost=0"), got.runtime
+        assert_agrees(tm.model, rows, got)
+    # Compiling is slow (260 features: 19 s wide, 95 s long), so the long layout runs
+    # on a model of one layer.
+    for n, layout in ((260, "wide"), (40, "long")):
+        wide = models.wide_model(n, prefix="jit", spread=0.3)
+        rows = random_rows(build_plan(wide), 12, seed=n)
+        got = run_sql(tmp_path, wide, rows, {"dialect": "postgres", "layout": layout,
+                                             "settings": FORCED_JIT}, postgres_dsn)
+        assert_agrees(wide, rows, got)
 
 
 def test_trap_nan(tmp_path, postgres_dsn):

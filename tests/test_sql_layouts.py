@@ -11,6 +11,7 @@ but a row must fit one 8 kB page, which holds about 1,000 double precision value
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import sqlite3
 
@@ -40,6 +41,48 @@ def test_a_model_as_wide_as_the_table_allows(tmp_path, postgres_dsn, dialect, n)
     if n > DIALECTS[dialect].terms_per_layer and dialect != "postgres":
         assert "t.rowid = l" in sql
     assert_agrees(model, rows, run_sql(tmp_path, model, rows, {"dialect": dialect},
+                                       postgres_dsn))
+
+
+@pytest.mark.parametrize("dialect,n", [("duckdb", 260), ("sqlite", 910)])
+def test_a_feature_named_rowid_does_not_shadow_the_join(tmp_path, postgres_dsn, dialect, n):
+    """A wide model on SQLite and DuckDB joins the table back by rowid; a column named
+    rowid would shadow that pseudo-column (both engines then read the user's column),
+    so a feature of that name is read from a renamed column, as the header says."""
+    model = models.wide_model(n)
+    first = dataclasses.replace(model.features[0], name="RowID")
+    model = dataclasses.replace(
+        model, features=(first,) + model.features[1:],
+        design=(dataclasses.replace(model.design[0], feature="RowID"),) + model.design[1:],
+        sha256="").sealed()
+    sql = emit(model, {"dialect": dialect})[0].content.decode()
+    assert '--   "RowID" <- "RowID_' in sql and '"RowID" <- "RowID"' not in sql
+    # repeated and missing values: joined on them, rows would multiply or vanish
+    rows = [dict(r, RowID=[1.5, 1.5, None][i % 3])
+            for i, r in enumerate(random_rows(build_plan(model), 20, seed=6))]
+    assert_agrees(model, rows, run_sql(tmp_path, model, rows, {"dialect": dialect},
+                                       postgres_dsn))
+
+
+def test_trap_postgres_memoize_over_a_lateral_subquery(tmp_path, postgres_dsn, monkeypatch):
+    """For a LATERAL subquery PostgreSQL (14 and later) may add a Memoize node keyed on
+    every outer reference the subquery makes, and past 1,664 keys the query fails
+    ("number of columns exceeds limit"). It chose one for 251 features on rows with
+    few distinct values (random rows did not show it). The emitted PostgreSQL query
+    carries the input row as one composite value instead of a LATERAL join."""
+    model = models.wide_model(251, prefix="memo", spread=0.3)
+    names = build_plan(model).feature_names
+    rows = [{f: (i * 7 + j) % 13 - 6.5 if (i + j) % 5 else None for j, f in enumerate(names)}
+            for i in range(12)]
+    lateral = dataclasses.replace(DIALECTS["postgres"], passthrough="lateral")
+    with monkeypatch.context() as patch:
+        patch.setitem(DIALECTS, "postgres", lateral)
+        assert "CROSS JOIN LATERAL" in emit(model, {"dialect": "postgres"})[0].content.decode()
+        with pytest.raises(ScorewrightError, match="number of columns .* exceeds limit"):
+            run_sql(tmp_path, model, rows, {"dialect": "postgres"}, postgres_dsn)
+    sql = emit(model, {"dialect": "postgres"})[0].content.decode()
+    assert "LATERAL" not in sql and "(s.rw).*" in sql
+    assert_agrees(model, rows, run_sql(tmp_path, model, rows, {"dialect": "postgres"},
                                        postgres_dsn))
 
 

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import json
 import math
+import textwrap
 from dataclasses import dataclass
 
 from .. import __version__
@@ -429,8 +430,10 @@ def settings(plan: Plan, options: dict) -> Settings:
         if not keep or any(c == "" for c in keep):
             raise ScorewrightError("--keep: expected comma-separated column names")
     mapping = _mapping(plan, options)
-    columns = input_columns(d, plan.feature_names, mapping,
-                            output_columns(plan) + d.reserved_columns, keep is None)
+    # A column named like the rowid the query joins on would shadow it.
+    reserved = d.reserved_columns + ((d.rowid,) if rowid_joined(plan, d) else ())
+    columns = input_columns(d, plan.feature_names, mapping, output_columns(plan) + reserved,
+                            keep is None)
     s = Settings(d, form, table, keep, columns)
     _check_names(plan, s)
     return s
@@ -479,6 +482,13 @@ def object_name(plan: Plan) -> str:
     return f"score_{plan.stem}"[:63]
 
 
+def rowid_joined(plan: Plan, d: Dialect) -> bool:
+    """A wide model on an engine with row ids reads its inputs a block at a time,
+    joining the table again by rowid (carrying thousands of values through the
+    layers instead made DuckDB take minutes to plan a 1,000-feature query)."""
+    return d.rowid is not None and len(plan.terms) > d.terms_per_layer
+
+
 def scoring_query(plan: Plan, s: Settings) -> str:
     """The SELECT statement (no terminator) for the select and view forms."""
     d = s.dialect
@@ -486,10 +496,7 @@ def scoring_query(plan: Plan, s: Settings) -> str:
         return sql_long.statement(plan, s, build_query, _select_list)
     table = d.quote(s.table)
     sources = _sources(s, "t.")
-    # A wide model on an engine with row ids reads its inputs a block at a time,
-    # joining the table again by rowid (carrying thousands of values through the
-    # layers instead made DuckDB take minutes to plan a 1,000-feature query).
-    wide = d.rowid is not None and len(plan.terms) > d.terms_per_layer
+    wide = rowid_joined(plan, d)
     rowid = f"t.{d.rowid}"
     rejoin = (lambda ref, used: f"{table} AS t" if ref is None else
               f"JOIN {table} AS t ON {rowid} = {ref}.rid") if wide else None
@@ -503,6 +510,10 @@ def scoring_query(plan: Plan, s: Settings) -> str:
         q = build_query(plan, d, sources)
         cols = ["t.*"]
         open_, close = f"FROM {table} AS t CROSS JOIN LATERAL (", ") AS s"
+    elif d.passthrough == "row":
+        q = build_query(plan, d, sources, f"{table} AS t", [("rw", "t")])
+        cols = ["(s.rw).*"]
+        open_, close = "FROM (", ") AS s"
     else:
         q = build_query(plan, d, sources, f"{table} AS t", [("rid", rowid)], rejoin=rejoin)
         cols = ["t.*"]
@@ -585,6 +596,8 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
     if plan.task == "binary":
         lines.append(f"probability is that of class {comment_text(str(plan.classes[1]))}")
     lines.append("Missing: NULL, NaN and +-inf numbers; NULL or '' categories.")
+    if d.large_query_note and len(plan.terms) > d.terms_per_layer:
+        lines += textwrap.wrap(d.large_query_note, 86)
     return lines
 
 

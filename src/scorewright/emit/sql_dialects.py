@@ -40,7 +40,8 @@ class Dialect:
     greatest_many: str          # n-argument maximum ({args}), ties keep the first
     nan_test: str | None        # is {x} (a number) NaN; None: the engine cannot hold NaN
     text_collate: str           # appended to text comparisons: byte-wise equality
-    passthrough: str            # how all input columns ride along: "lateral" or "rowid"
+    passthrough: str            # how all input columns ride along: "lateral", "rowid" or
+                                # "row" (the whole row as one composite value)
     fence: str                  # appended to each subquery so no layer is inlined twice
     raises_on_underflow: bool   # x * c or x / c that rounds to 0 raises an error
     fold_identifiers: bool      # quoted identifiers match case-insensitively
@@ -79,6 +80,8 @@ class Dialect:
     # larger blocks: fewer layers prepared faster (6,000 features in long layout:
     # 65 s in blocks of 250, 42 s in blocks of 900).
     terms_per_layer: int = 250
+    # A header note for a model summed over more than one layer (engine advice).
+    large_query_note: str | None = None
 
     def quote(self, name: str) -> str:
         q = self.identifier_quote
@@ -141,7 +144,10 @@ POSTGRES = Dialect(
     greatest_many="GREATEST({args})",
     nan_test="{x} = CAST('NaN' AS DOUBLE PRECISION)",
     text_collate=' COLLATE "C"',
-    passthrough="lateral",
+    # Not LATERAL: for a lateral subquery PostgreSQL may choose a Memoize node keyed on
+    # every input reference, which fails past 1,664 keys ("number of columns exceeds
+    # limit", measured from 250 features on rows with few distinct values).
+    passthrough="row",
     fence=" OFFSET 0",
     raises_on_underflow=True,
     fold_identifiers=False,
@@ -156,6 +162,12 @@ POSTGRES = Dialect(
     parameter_decl="{type}",
     typed_parameters=True,
     function_call="SELECT t.*, s.*\nFROM {table} AS t CROSS JOIN LATERAL {name}({args}) AS s;",
+    # Measured on PostgreSQL 15 (2,000 features, long layout, 40 rows).
+    large_query_note="PostgreSQL: with jit on (its default where built with LLVM), "
+                     "compiling a query this large can take far longer than running it "
+                     "(2,000 features, long layout, 40 rows: 31 s, 3 s with jit off). The "
+                     "results are the same bits either way: SET jit = off in the session "
+                     "that runs it.",
 )
 
 DUCKDB = Dialect(

@@ -264,17 +264,29 @@ class PostgreSQL:
 
     @classmethod
     def execute(cls, options, d, name, table, setup, query):
+        params = cls.session_settings(options)
         dsn = options.get("dsn")
         if dsn:
-            return cls._execute(dsn, d, name, table, setup, query)
+            return cls._execute(dsn, d, name, table, setup, query, params)
         from ..postgres import TemporaryServer
 
         with tempfile.TemporaryDirectory(prefix="scorewright-pg-") as tmp:
             with TemporaryServer(Path(tmp) / "pg") as server:
-                return cls._execute(server.dsn, d, name, table, setup, query)
+                return cls._execute(server.dsn, d, name, table, setup, query, params)
 
     @staticmethod
-    def _execute(dsn, d, name, table, setup, query):
+    def session_settings(options) -> dict[str, str]:
+        """The profile's [verify] settings (server parameters for the scoring session)."""
+        given = options.get("settings") or {}
+        if not isinstance(given, dict) or not all(
+                isinstance(k, str) and isinstance(v, (str, int, float))
+                for k, v in given.items()):
+            raise ScorewrightError("sql: [verify] settings must be a table of parameter = value")
+        return {k: str(v).lower() if isinstance(v, bool) else str(v)
+                for k, v in given.items()}
+
+    @staticmethod
+    def _execute(dsn, d, name, table, setup, query, params):
         import psycopg
 
         schema = d.quote(f"scorewright_{uuid.uuid4().hex[:12]}")
@@ -295,13 +307,16 @@ class PostgreSQL:
                     con.execute(f"ANALYZE {d.quote(name)}")
                     for statement in setup:
                         con.execute(statement)
+                    for parameter, value in params.items():
+                        con.execute("SELECT set_config(%s, %s, false)", (parameter, value))
                     cur = con.execute(query)
                     names = [c.name for c in cur.description]
                     result = cur.fetchall()
                     version = con.execute("SHOW server_version").fetchone()[0]
                 finally:
                     con.execute(f"DROP SCHEMA {schema} CASCADE")
-            return names, result, f"PostgreSQL {version.split()[0]}"
+            given = "".join(f", {k}={v}" for k, v in params.items())
+            return names, result, f"PostgreSQL {version.split()[0]}{given}"
         except psycopg.Error as exc:
             message = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
             raise ScorewrightError(f"sql: PostgreSQL failed: {message}") from None
