@@ -482,11 +482,16 @@ def object_name(plan: Plan) -> str:
     return f"score_{plan.stem}"[:63]
 
 
+def layered(plan: Plan, d: Dialect) -> bool:
+    """The margins are summed over more than one layer (build_query)."""
+    return len(plan.terms) > d.terms_per_layer
+
+
 def rowid_joined(plan: Plan, d: Dialect) -> bool:
     """A wide model on an engine with row ids reads its inputs a block at a time,
     joining the table again by rowid (carrying thousands of values through the
     layers instead made DuckDB take minutes to plan a 1,000-feature query)."""
-    return d.rowid is not None and len(plan.terms) > d.terms_per_layer
+    return d.rowid is not None and layered(plan, d)
 
 
 def scoring_query(plan: Plan, s: Settings) -> str:
@@ -596,7 +601,7 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
     if plan.task == "binary":
         lines.append(f"probability is that of class {comment_text(str(plan.classes[1]))}")
     lines.append("Missing: NULL, NaN and +-inf numbers; NULL or '' categories.")
-    if d.large_query_note and len(plan.terms) > d.terms_per_layer:
+    if d.large_query_note and layered(plan, d):
         lines += textwrap.wrap(d.large_query_note, 86)
     return lines
 
