@@ -42,16 +42,6 @@ def many_levels_model(n_levels: int) -> FrozenModel:
 # (1,600): the wide run must fail loudly with the engine's own reason (never a wrong
 # answer); their long-layout profiles (sql-*-long) score the same model.
 ENGINE_LIMITS = {"sql-sqlite": "too many columns", "sql-postgres": "at most 1600 columns"}
-# Measured, not run in every test run (the README states each limit):
-# Spark in local mode, measured with a 6 GB driver heap and 256 MB thread stacks as
-# well: planning and code generation for the 10,000-feature query filled the heap
-# (wide: over 6 minutes, then stopped; long, adaptive execution off: failed after 5).
-NOT_RUN = {
-    ("sql-spark", "10,000 numeric features"):
-        "Java heap exhausted in local mode (1 GB default; 6 GB also filled)",
-    ("sql-spark-long", "10,000 numeric features"):
-        "Java heap exhausted in local mode (1 GB default; 6 GB also filled)",
-}
 
 MODELS = {"10,000 numeric features": lambda: models.wide_model(10_000),
           "one categorical with 5,000 levels": lambda: many_levels_model(5_000)}
@@ -64,10 +54,6 @@ def test_large_models_run_on_every_target(kind, profile_name, tmp_path, request)
     lacks = profile.missing_requirements()
     assert not lacks, f"{profile_name} cannot run here: lacks {lacks}"
     wide = kind.startswith("10,000")
-    if (profile_name, kind) in NOT_RUN:
-        tally.add(f"scale run: {kind} not run on {profile_name}: "
-                  f"{NOT_RUN[profile_name, kind]}", 1)
-        return
     model = MODELS[kind]()
     t0 = time.perf_counter()
     arts = emitter(profile.emitter)(model, dict(profile.emit))

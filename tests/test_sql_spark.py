@@ -24,6 +24,7 @@ from scorewright.emit.sql_dialects import DIALECTS
 from scorewright.errors import ScorewrightError
 from scorewright.plan import build_plan
 from scorewright.reference import score_row
+from scorewright.verify.cases import random_rows
 from scorewright.verify.runners import sql as sql_runner
 
 PROFILE = tomllib.loads((Path(__file__).parent.parent / "targets" / "sql-spark.toml")
@@ -129,6 +130,24 @@ def test_identifiers_fold_case_over_unicode(tmp_path, spark):
     got = run(tmp_path, tm.model, rows, {"dialect": "spark"}, True)
     ref = [score_row(build_plan(tm.model), row) for row in rows]
     assert bits(got.margins[:, 0]).tolist() == bits([s.margins[0] for s in ref]).tolist()
+
+
+def test_a_model_of_many_terms_sums_flat(tmp_path, spark):
+    """Past 250 terms a margin is one aggregate() over an array of its terms, added left
+    to right (the same additions in the same order), not a chain of `+` 250 deep per
+    layer: for 1,000 features the chain overflowed the default JVM thread stack
+    (measured by hand; a stack overflow can also drop the session's connection, so it
+    is not re-run here). Both the query and the expressions give the reference's bits."""
+    model = models.wide_model(1_000, prefix="flat")
+    plan = build_plan(model)
+    rows = random_rows(plan, 12, seed=8) + [{f: None for f in plan.feature_names}]
+    ref = [score_row(plan, row) for row in rows]
+    for form in ("select", "expressions"):
+        text = emit(model, {"dialect": "spark", "form": form})[0].content.decode()
+        assert text.count("aggregate(") == 1 and "LATERAL" not in text
+        got = run(tmp_path / form, model, rows, {"dialect": "spark", "form": form}, True)
+        assert bits(got.margins[:, 0]).tolist() == bits([s.margins[0] for s in ref]).tolist()
+        assert ulp_gap(got.probabilities, [s.probabilities for s in ref]) <= ULPS
 
 
 def test_no_function_form():

@@ -172,7 +172,13 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     layers = Layers() if layers is None else layers
     carried = [alias for alias, _ in extra]
     terms = list(plan.terms)
-    per = d.terms_per_layer
+    # Layers bound how deep a chain of `+` nests and, with `rejoin`, how many inputs
+    # one layer reads; flat sums without rejoin need neither.
+    flat = flat_sums(plan, d)
+    if rejoin is not None:
+        per = d.terms_per_join or d.terms_per_layer
+    else:
+        per = len(terms) if flat else d.terms_per_layer
     blocks = [terms[i:i + per] for i in range(0, len(terms), per)]
     if rejoin is not None:
         blocks = blocks or [[]]
@@ -181,7 +187,7 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
             reads = dict(_reads(plan, d, source, used))
             below = None if b == 0 else layers.ref
             sums = _sums(plan, d, block, lambda alias: f"({reads[alias]})", below,
-                         b == len(blocks) - 1)
+                         b == len(blocks) - 1, flat)
             layers.add((list(extra) if b == 0 else layers.carry(carried)) + sums,
                        rejoin(below, used))
     else:
@@ -193,7 +199,7 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
             later = {t.input for rest in blocks[b + 1:] for t in rest}
             values = [_alias(inp) for inp in plan.inputs if inp.index in later]
             sums = _sums(plan, d, block, lambda alias: f"{ref}.{alias}",
-                         None if b == 0 else ref, b >= len(blocks) - 1)
+                         None if b == 0 else ref, b >= len(blocks) - 1, flat)
             layers.add(layers.carry(carried + values) + sums)
     outputs = _finish(plan, d, layers, carried)
     return Query(layers.render(innermost_from, d.fence), outputs, layers)
@@ -218,26 +224,30 @@ def _reads(plan: Plan, d: Dialect, source: dict[str, str], used) -> list[tuple[s
     return read
 
 
-def _sums(plan: Plan, d: Dialect, block, value, below: str | None, last: bool):
+def _sums(plan: Plan, d: Dialect, block, value, below: str | None, last: bool, flat: bool):
     """(m<k>, expression): the sums of layer `below` (none: start from the first
-    term) plus the block's terms, left to right, and the intercept if `last`.
-    `value(alias)` spells an input's design value or code."""
+    term) plus the block's terms, left to right, and the intercept if `last`;
+    `flat`: as the dialect's sum_list. `value(alias)` spells an input's design value
+    or code."""
     out = []
     for k in range(plan.n_outputs):
-        s = None if below is None else f"{below}.m{k}"
+        parts = [] if below is None else [f"{below}.m{k}"]
         for term in block:
             if term.kind == "numeric":
                 v = value(f"v{term.input}")
-                t = f"{literal(d, term.weights[k])} * {_factor(d, term.weights[k], v)}"
+                parts.append(f"{literal(d, term.weights[k])} * {_factor(d, term.weights[k], v)}")
             else:
-                t = _lookup(d, term.tables[k], value(f"c{term.input}"))
+                parts.append(_lookup(d, term.tables[k], value(f"c{term.input}")))
+        if last:
+            parts.append(literal(d, plan.intercepts[k]))
+        if not parts:
+            out.append((f"m{k}", None))
+        elif flat and len(parts) > 2:
+            out.append((f"m{k}", d.sum_list.format(start=parts[0], rest=", ".join(parts[1:]))))
+        else:
             # `+` is left-associative in SQL: the tree of full parentheses, without
             # the parentheses SQLite's parser cannot nest 100 deep.
-            s = t if s is None else f"{s} + {t}"
-        if last:
-            b = literal(d, plan.intercepts[k])
-            s = b if s is None else f"{s} + {b}"
-        out.append((f"m{k}", s))
+            out.append((f"m{k}", " + ".join(parts)))
     return out
 
 
@@ -482,9 +492,16 @@ def object_name(plan: Plan) -> str:
     return f"score_{plan.stem}"[:63]
 
 
+def flat_sums(plan: Plan, d: Dialect) -> bool:
+    """The margins are summed by the dialect's sum_list: a model of more terms than a
+    layer holds, on an engine where a long chain of `+` is the trouble (Spark: a
+    stack overflow at 1,000 terms in 250-term layers, a full heap at 10,000)."""
+    return d.sum_list is not None and len(plan.terms) > d.terms_per_layer
+
+
 def layered(plan: Plan, d: Dialect) -> bool:
-    """The margins are summed over more than one layer (build_query)."""
-    return len(plan.terms) > d.terms_per_layer
+    """The wide layout's margins are summed over more than one layer (build_query)."""
+    return len(plan.terms) > d.terms_per_layer and not flat_sums(plan, d)
 
 
 def rowid_joined(plan: Plan, d: Dialect) -> bool:
@@ -516,8 +533,8 @@ def scoring_query(plan: Plan, s: Settings) -> str:
         cols = ["t.*"]
         open_, close = f"FROM {table} AS t CROSS JOIN LATERAL (", ") AS s"
     elif d.passthrough == "row":
-        q = build_query(plan, d, sources, f"{table} AS t", [("rw", "t")])
-        cols = ["(s.rw).*"]
+        q = build_query(plan, d, sources, f"{table} AS t", [("rw", d.row_value)])
+        cols = [d.row_columns]
         open_, close = "FROM (", ") AS s"
     else:
         q = build_query(plan, d, sources, f"{table} AS t", [("rid", rowid)], rejoin=rejoin)

@@ -6,10 +6,10 @@ data usually lives in long form anyway. The long table has four columns (names
 set by --long-columns): the row key, the feature name, `value` (double) for a
 numeric feature and `level` (text) for a categorical one.
 
-The query reads the features a block (the dialect's terms_per_layer) at a time: each
+The query reads the features a block (the dialect's terms_per_join) at a time: each
 block pivots its own features out of the table (one GROUP BY over the block's rows)
 and is joined to the running margin sums by the key, so no layer holds more than
-a few hundred columns and the sums keep the plan's order (emit/sql.py). A pair
+one block of columns and the sums keep the plan's order (emit/sql.py). A pair
 that is absent, or present with NULL, is a missing value. A key with any feature
 given twice gets NULL outputs (it is never scored from one of the two values); a
 NULL key is left out.

@@ -344,12 +344,16 @@ class Spark:
                             .appName("scorewright-verify")
                             .config("spark.ui.enabled", "false")
                             .config("spark.sql.shuffle.partitions", "2")
+                            # Planning a 10,000-feature query needs more than the
+                            # 1 GB default heap (measured: 2 GB ran out, 4 GB did not).
+                            .config("spark.driver.memory", "4g")
                             .getOrCreate())
             cls._session.sparkContext.setLogLevel("ERROR")
         return cls._session
 
     @classmethod
     def execute(cls, options, d, name, table, setup, query):
+        from py4j.protocol import Py4JJavaError
         from pyspark.errors import PySparkException
         from pyspark.sql import types as T
 
@@ -373,8 +377,19 @@ class Spark:
         except PySparkException as exc:
             first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
             raise ScorewrightError(f"sql: Spark failed: {first}") from None
+        except Py4JJavaError as exc:  # a JVM error (stack overflow, heap) is no PySparkException
+            raise ScorewrightError(f"sql: Spark failed: {_java_error(exc)}") from None
         mode = "ANSI on" if ansi else "ANSI off"
         return names, rows, f"Spark {spark.version} local[2], {mode}"
+
+
+def _java_error(exc) -> str:
+    """The innermost cause of a JVM error, as `class: message` on one line."""
+    error = exc.java_exception
+    while error.getCause() is not None:
+        error = error.getCause()
+    text = str(error.toString()).strip()
+    return text.splitlines()[0] if text else "a Java error"
 
 
 ENGINES = {"sqlite": SQLite, "duckdb": DuckDB, "postgres": PostgreSQL, "spark": Spark}
