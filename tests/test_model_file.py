@@ -91,3 +91,22 @@ def test_parse_model_names_the_field():
     d["features"][1]["missing"]["policy"] = "guess"
     with pytest.raises(ModelFileError, match=r"features\[1\]\.missing\.policy"):
         parse_model(json.dumps(_resealed(d)))
+
+
+def test_boolean_flag_round_trips_and_is_absent_when_false(tmp_path):
+    from scorewright.model import NumericFeature
+    import dataclasses
+    model = models.build("fault_binary").model
+    assert all(not f.boolean for f in model.features if isinstance(f, NumericFeature))
+    assert '"boolean"' not in model.to_json()  # older files keep their hash
+    first = next(f for f in model.features if isinstance(f, NumericFeature))
+    flagged = dataclasses.replace(model, features=tuple(
+        dataclasses.replace(f, boolean=True) if f is first else f for f in model.features)).sealed()
+    path = tmp_path / "b.json"
+    flagged.write(path)
+    again = load_model(path)
+    assert again.feature(first.name).boolean is True and again == flagged
+    doc = json.loads(path.read_text())
+    doc["features"][[f["name"] for f in doc["features"]].index(first.name)]["boolean"] = "yes"
+    with pytest.raises(ModelFileError, match=r"\.boolean: expected true"):
+        parse_model(json.dumps(_resealed(doc)))

@@ -39,12 +39,18 @@ class ScalingStep:
 @dataclass(frozen=True)
 class NumericFeature:
     """A numeric input. `fill` replaces a missing value before scaling; with no
-    fill a missing value makes the feature's design column exactly 0.0."""
+    fill a missing value makes the feature's design column exactly 0.0.
+
+    `boolean` says the source model was fitted on a boolean column, which it read
+    as 0.0/1.0: every target then also takes true/false (a SQL BOOLEAN column, the
+    text 'true'/'false') as 1.0/0.0. Written to the file only when true, so files
+    without it keep their hash."""
 
     name: str
     fill: float | None
     scaling: tuple[ScalingStep, ...] = ()
     clip: tuple[float, float] | None = None
+    boolean: bool = False
     kind: str = field(default="numeric", init=False)
 
 
@@ -138,6 +144,8 @@ def _document_body(model: FrozenModel) -> dict:
                 "scaling": [{"op": s.op, "value": s.value} for s in feat.scaling],
                 "clip": None if feat.clip is None else list(feat.clip),
             })
+            if feat.boolean:
+                feats[-1]["boolean"] = True
         else:
             feats.append({
                 "name": feat.name,
@@ -344,7 +352,7 @@ def _read_feature(value, path) -> Feature:
         raise ModelFileError(f"{path}: expected an object, got {_kind(value)}")
     kind = value.get("kind")
     if kind == "numeric":
-        r.obj(value, path, ("name", "kind", "missing", "scaling", "clip"))
+        r.obj(value, path, ("name", "kind", "missing", "scaling", "clip"), optional=("boolean",))
         name = r.string(value["name"], f"{path}.name")
         missing = r.obj(value["missing"], f"{path}.missing", ("policy",), optional=("value",))
         policy = missing["policy"]
@@ -377,7 +385,10 @@ def _read_feature(value, path) -> Feature:
             if not lo <= hi:
                 raise ModelFileError(f"{path}.clip: low {lo!r} is above high {hi!r}")
             clip = (lo, hi)
-        return NumericFeature(name, fill, tuple(steps), clip)
+        boolean = value.get("boolean", False)
+        if boolean is not True and "boolean" in value:
+            raise ModelFileError(f"{path}.boolean: expected true (or no key), got {_kind(boolean)}")
+        return NumericFeature(name, fill, tuple(steps), clip, boolean)
     if kind == "categorical":
         r.obj(value, path, ("name", "kind", "levels", "missing", "unknown"))
         name = r.string(value["name"], f"{path}.name")
