@@ -1,0 +1,111 @@
+"""The scoring program against the reference evaluator: the same bits, row by row and for
+many rows, on every test model and every conformance vector."""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import models
+from scorewright.model import load_model
+from scorewright.plan import build_plan
+from scorewright.program import PRIMITIVES, Const, lower, run_matrix, run_row
+from scorewright.reference import encode_rows, score_matrix, score_row
+from scorewright.verify.cases import edge_rows, random_rows
+
+CONFORMANCE = Path(__file__).resolve().parent.parent / "shared" / "conformance"
+
+
+def _bits(x) -> str:
+    return float(x).hex()
+
+
+def _as_score(program, out):
+    plan = program.plan
+    margins = [out[f"margin_{k}"] for k in range(plan.n_outputs)]
+    if plan.task == "regression":
+        return margins, None, None, out["value"]
+    probs = [out[f"probability_{j}"] for j in range(len(plan.classes))]
+    return margins, probs, out["class_index"], None
+
+
+def _check_rows(plan, rows):
+    program = lower(plan)
+    for row in rows:
+        want = score_row(plan, row)
+        margins, probs, cls, value = _as_score(program, run_row(program, row))
+        assert [_bits(m) for m in margins] == [_bits(m) for m in want.margins], row
+        if want.probabilities is not None:
+            assert [_bits(p) for p in probs] == [_bits(p) for p in want.probabilities], row
+            assert cls == want.class_index, row
+        else:
+            assert _bits(value) == _bits(want.value), row
+    matrix = encode_rows(plan, rows)
+    want = score_matrix(plan, matrix)
+    got = run_matrix(program, matrix)
+    margins, probs, cls, value = _as_score(program, got)
+    for k, col in enumerate(margins):
+        assert col.tobytes() == want["margins"][:, k].tobytes()
+    if "probabilities" in want:
+        for j, col in enumerate(probs):
+            assert col.tobytes() == want["probabilities"][:, j].tobytes()
+        assert np.array_equal(cls, want["class_index"])
+    else:
+        assert value.tobytes() == want["value"].tobytes()
+
+
+@pytest.mark.parametrize("name", sorted(models.BUILDERS))
+@pytest.mark.parametrize("precision,exp", [("double", "libm"), ("double", "portable"),
+                                           ("float", "libm")])
+def test_program_gives_the_reference_bits(name, precision, exp):
+    plan = build_plan(models.build(name).model, precision, exp)
+    rows = [r for _, r in edge_rows(plan)] + random_rows(plan, 60, seed=3)
+    _check_rows(plan, rows)
+
+
+@pytest.mark.parametrize("path", sorted(CONFORMANCE.glob("*.model.json")), ids=lambda p: p.name)
+def test_program_reproduces_the_conformance_vectors(path):
+    """The committed vectors (shared/conformance/, made by the reference evaluator) are the
+    outside record: the program reproduces every expected output bit for bit."""
+    model = load_model(path)
+    plan = build_plan(model)
+    doc = json.loads(path.with_name(path.name.replace(".model.", ".vectors.")).read_text())
+    program = lower(plan)
+    checked = 0
+    for case, expected in zip(doc["rows"], doc["expected"], strict=True):
+        row = {inp.name: (float.fromhex(v) if inp.kind == "numeric" and v is not None else v)
+               for inp in plan.inputs for v in [case.get(inp.name)]}
+        margins, probs, cls, value = _as_score(program, run_row(program, row))
+        assert [_bits(m) for m in margins] == expected["margins"]
+        if "probabilities" in expected:
+            assert [_bits(p) for p in probs] == expected["probabilities"]
+            assert cls == expected["class_index"]
+        else:
+            assert _bits(value) == expected["value"]
+        checked += 1
+    assert checked > 100
+
+
+def test_every_operation_is_a_primitive_in_single_assignment_form():
+    for name in sorted(models.BUILDERS):
+        program = lower(build_plan(models.build(name).model))
+        seen: set[str] = set()
+        for op in program.ops:
+            assert op.op in PRIMITIVES
+            for arg in op.args:
+                assert isinstance(arg, Const) or arg in seen, (op, "reads a later name")
+            assert op.dest not in seen
+            seen.add(op.dest)
+        assert [op.attr for op in program.ops if op.op == "output"] == list(program.outputs)
+
+
+def test_an_input_no_term_uses_is_not_read():
+    plan = build_plan(models.build("fault_binary").model)
+    program = lower(plan)
+    used = {t.input for t in plan.terms}
+    read = {op.attr for op in program.ops if op.op.startswith("read_")}
+    assert read == used
