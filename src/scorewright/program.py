@@ -12,7 +12,7 @@ Primitives (`PRIMITIVES` lists each with its operand and result types):
                           rules of `values.numeric_value`)
   read_code(feature)      the raw value's level code: 0..L-1, MISSING_CODE or
                           UNSEEN_CODE (the rules of `values.category_code`)
-  is_missing(x)           x is NaN
+  is_missing(x)           x is not a finite number (NaN, +-inf)
   add sub mul div         one IEEE operation each
   min max                 a selection: max(a, b) is a unless b > a (and min alike)
   neg abs                 exact
@@ -244,13 +244,25 @@ def _lookup(code, table):
 
 
 SCALAR = {
-    "is_missing": lambda x: math.isnan(x),
+    "is_missing": lambda x: not math.isfinite(x),
     "add": lambda a, b: a + b, "sub": lambda a, b: a - b,
     "mul": lambda a, b: a * b, "div": lambda a, b: a / b,
     "min": _py_min, "max": _py_max, "neg": lambda a: -a, "abs": abs,
     "gt": lambda a, b: a > b, "ge": lambda a, b: a >= b, "eq": lambda a, b: a == b,
     "select": lambda f, a, b: a if f else b, "sum": _sum_left,
 }
+
+
+def run_numeric(inp: NumericInput, raw: float) -> float:
+    """One numeric input's design value from its raw real (NaN: missing), by the same
+    lowering and op table as `run_row`."""
+    b = _Builder()
+    v = _lower_numeric(b, inp)
+    env: dict[str, Any] = {}
+    for op in b.ops:
+        args = [a.value if isinstance(a, Const) else env[a] for a in op.args]
+        env[op.dest] = raw if op.op == "read_real" else SCALAR[op.op](*args)
+    return env[v]
 
 
 def run_row(program: Program, row: Mapping) -> dict[str, Any]:
@@ -299,7 +311,7 @@ def _np_lookup(codes: np.ndarray, table) -> np.ndarray:
 
 
 VECTOR = {
-    "is_missing": np.isnan, "add": np.add, "sub": np.subtract, "mul": np.multiply,
+    "is_missing": lambda x: ~np.isfinite(x), "add": np.add, "sub": np.subtract, "mul": np.multiply,
     "div": np.divide, "neg": np.negative, "abs": np.abs,
     # max(a, b) is a unless b > a, as the scalar selection (and NaN-free here).
     "max": lambda a, b: np.where(np.greater(b, a), b, a),
@@ -320,8 +332,7 @@ def run_matrix(program: Program, matrix: np.ndarray) -> dict[str, np.ndarray]:
     for op in program.ops:
         args = [a.value if isinstance(a, Const) else env[a] for a in op.args]
         if op.op == "read_real":
-            col = matrix[:, op.attr]
-            value = np.where(np.isfinite(col), col, np.nan)
+            value = matrix[:, op.attr]
         elif op.op == "read_code":
             value = _np_codes(matrix[:, op.attr], len(plan.inputs[op.attr].levels))
         elif op.op == "exp":
