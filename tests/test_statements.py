@@ -39,4 +39,4 @@ def test_an_op_a_language_cannot_spell_is_one_error():
     ops = dict(PYTHON.ops)
     del ops["exp"]
     with pytest.raises(ScorewrightError, match="target python cannot express op exp"):
-        render(lower(plan), dataclasses.replace(PYTHON, ops=ops))
+        render(lower(plan), dataclasses.replace(PYTHON, ops=ops), {i.index: "x" for i in plan.inputs})

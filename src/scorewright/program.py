@@ -143,15 +143,21 @@ def output_names(plan: Plan) -> tuple[str, ...]:
     return margins + probs + ("class_index",)
 
 
-def _live(ops: list[Op]) -> tuple[Op, ...]:
-    """The operations an output depends on (an input with no term reads nothing)."""
+def _live(ops, outputs=None) -> tuple[Op, ...]:
+    """The operations the outputs (all, or those named) depend on: an input with no term
+    reads nothing, and a decision alone computes no exp."""
     needed: set[str] = set()
     kept = []
     for op in reversed(ops):
-        if op.op == "output" or op.dest in needed:
+        if (op.op == "output" and (outputs is None or op.attr in outputs)) or op.dest in needed:
             kept.append(op)
             needed.update(a for a in op.args if isinstance(a, str))
     return tuple(reversed(kept))
+
+
+def prune(program: Program, outputs) -> tuple[Op, ...]:
+    """The program's operations that the named outputs need, in order."""
+    return _live(program.ops, set(outputs))
 
 
 def _lower_numeric(b: _Builder, inp: NumericInput) -> str:

@@ -22,28 +22,18 @@ from dataclasses import dataclass
 
 from ..errors import ScorewrightError
 from ..model import FrozenModel
-from ..plan import CategoricalInput, NumericInput, Plan, build_plan
+from ..plan import Plan, build_plan
+from ..program import lower, output_names, prune
 from .. import portable_exp
 from . import Artifact, reject_options
 from .c_batch import batch_code, table_name
 from .c_precision import PRECISIONS, CPrecision
 from .c_syntax import check_prefix, comment_text, default_prefix, field_names, string_literal
+from .statements import Renderer, Spelling, split_margins
 from .templating import render
 
 OPTIONS = ("prefix", "precision", "decision_only", "portable_exp", "report")
 
-
-# plan scaling op -> C statement on the design value v
-STEP = {
-    "subtract": "v = v - {c};",
-    "divide": "v = v / {c};",
-    "multiply": "v = v * {c};",
-    "add": "v = v + {c};",
-}
-
-# Rows scored per pass of the batch loop: independent rows give the CPU
-# independent addition chains while each row keeps the plan's order.
-BATCH_BLOCK = 8
 
 # Terms per function of a wide model's row scorer (see row_parts).
 ROW_PART_TERMS = 64
@@ -105,7 +95,6 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
             fields.append(Field(inp.index, name, comment_text(inp.name), "int", "categorical",
                                 tuple((string_literal(lv), len(lv.encode("utf-8")))
                                       for lv in levels)))
-    lit = prec.literal
     uses_exp = not decision_only and (plan.task != "regression" or plan.link == "log")
     routine = exp_routine(prefix) if portable and uses_exp else None
     libm_exp = None
@@ -134,15 +123,8 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         "n_outputs": plan.n_outputs,
         "batch_width": plan.n_outputs if plan.task == "multiclass" else 1,
         "tables": _tables(plan, prec, prefix),
-        "row_lines": margin_lines(plan, prec, names, prefix),
-        "row_parts": row_parts(plan, prec, names, prefix),
-        "row_locals": _locals(plan, prec),
+        **program_code(plan, prec, names, prefix, exp_fn, decision_only),
         **batch_code(plan, prec, prefix),
-        "guard": lit(plan.precision.exp_guard),
-        "log_max": lit(plan.precision.log_link_max),
-        "cut": None if plan.cut is None else lit(plan.cut),
-        "one": lit(1.0),
-        "zero": lit(0.0),
     }
 
 
@@ -159,103 +141,86 @@ def _tables(plan: Plan, prec: CPrecision, prefix: str) -> list[dict]:
     return out
 
 
-def margin_lines(plan: Plan, prec: CPrecision, names: list[str], prefix: str,
-                 terms: tuple | None = None, started: list | None = None,
-                 intercepts: bool = True) -> list[str]:
-    """The row scorer's statements: inputs from the struct `in`, margins into m[k], one
-    statement per plan step, in the plan's order (`terms`: a stretch of the plan's
-    terms; `started`: which margins earlier stretches have begun)."""
-    lit = prec.literal
-    lines: list[str] = []
-    started = [False] * plan.n_outputs if started is None else started
-    for term in plan.terms if terms is None else terms:
-        inp = plan.inputs[term.input]
-        lines.append(f"/* input {inp.index}: {comment_text(inp.name)} */")
-        if term.kind == "numeric":
-            lines += _numeric_lines(inp, prec, f"in->{names[inp.index]}")
-        else:
-            lines += _code_lines(inp, f"in->{names[inp.index]}")
-        for k in range(plan.n_outputs):
-            if term.kind == "numeric":
-                t = f"{lit(term.weights[k])} * v"
-            else:
-                t = f"{table_name(prefix, term.input)}[{k}][c]"
-            lines.append(f"m[{k}] = m[{k}] + {t};" if started[k] else f"m[{k}] = {t};")
-            started[k] = True
-    if intercepts:
-        for k in range(plan.n_outputs):
-            b = lit(plan.intercepts[k])
-            lines.append(f"m[{k}] = m[{k}] + {b};" if started[k] else f"m[{k}] = {b};")
-    return lines
+def c_spelling(prec: CPrecision, exp_fn: str) -> Spelling:
+    """C's spellings of the program's primitives in one precision."""
+    types = {"real": prec.real, "code": "int", "flag": "int"}
+    return Spelling(
+        language="c",
+        real=prec.literal,
+        code=str,
+        assign=lambda name, type_, value: f"{types[type_]} {name} = {value};",
+        reassign=lambda name, value: f"{name} = {value};",
+        # a trailing underscore: no local can meet a libm name (y0, y1, j0...)
+        name=lambda name: name + "_",
+        ops={
+            "read_real": "{src}",
+            # any int the caller passes: a level code, -1 missing, anything else unseen
+            "read_code": "(({src} >= 0 && {src} < {n}) ? {src} : ({src} == -1 ? -1 : -2))",
+            # isfinite is a quiet test: no FP flag on NaN; no ordered comparison ever
+            # meets a NaN, because a select replaces a missing value before any use
+            "is_missing": "!isfinite({0})",
+            "add": "{0} + {1}", "sub": "{0} - {1}", "mul": "{0} * {1}", "div": "{0} / {1}",
+            "max": "(({1} > {0}) ? {1} : {0})",
+            "min": "(({1} < {0}) ? {1} : {0})",
+            "neg": "-{0}", "abs": prec.fabs + "({0})",
+            "gt": "({0} > {1})", "ge": "({0} >= {1})", "eq": "({0} == {1})",
+            "select": "({0} ? {1} : {2})",
+            "exp": exp_fn + "({0})",
+            "lookup": "(({0} >= 0) ? {table}[{0}] : " + prec.literal(0.0) + ")",
+            "sum": " + ",
+        },
+    )
 
 
-def row_parts(plan: Plan, prec: CPrecision, names: list[str], prefix: str) -> list[dict]:
-    """A wide model's row scorer cut into functions of ROW_PART_TERMS terms, called in
-    order on the same m[]: the same statements in the same order (so the same bits),
-    but no single giant function (GCC takes minutes on one, and for Thumb-2 at -Os it
-    emits conditional branches beyond their range). One part: the plain row scorer."""
-    terms = plan.terms
-    if len(terms) <= ROW_PART_TERMS:
-        return []
-    started = [False] * plan.n_outputs
+def program_code(plan: Plan, prec: CPrecision, names: list[str], prefix: str, exp_fn: str,
+                 decision_only: bool) -> dict:
+    """The row scorer's margins (one part, or parts of ROW_PART_TERMS terms for a wide
+    model: the same statements in the same order, so the same bits, but no giant
+    function: GCC takes minutes on one, and for Thumb-2 at -Os it emits conditional
+    branches beyond their range), the link and the decision, all rendered from the
+    scoring program."""
+    program = lower(plan)
+    split = split_margins(program)
+    sources = {inp.index: f"in->{names[inp.index]}" for inp in plan.inputs}
+    rename = {m: f"m[{k}]" for k, m in enumerate(split.margins) if isinstance(m, str)}
+    r = Renderer(program, c_spelling(prec, exp_fn), sources, rename)
+    r.tables.update(_table_names(plan, prefix))
     parts = []
-    for start in range(0, len(terms), ROW_PART_TERMS):
-        chunk = terms[start:start + ROW_PART_TERMS]
-        last = start + ROW_PART_TERMS >= len(terms)
-        parts.append({"name": f"{prefix}_row_part{len(parts)}",
-                      "locals": _locals(plan, prec, chunk),
-                      "lines": margin_lines(plan, prec, names, prefix, chunk, started, last)})
-    return parts
+    started = [False] * plan.n_outputs
+    for start in range(0, max(len(split.groups), 1), ROW_PART_TERMS):
+        lines = []
+        for cone, terms in split.groups[start:start + ROW_PART_TERMS]:
+            lines += r.lines(cone)
+            lines += [_accumulate(k, r.operand(t), started) for k, t in terms]
+        parts.append(lines)
+    parts[-1] += [_accumulate(k, r.operand(b), started) for k, b in enumerate(split.intercepts)]
+    code = {"row_parts": [{"name": f"{prefix}_row_part{i}", "lines": lines}
+                          for i, lines in enumerate(parts)] if len(parts) > 1 else [],
+            "row_lines": parts[0] if len(parts) == 1 else []}
+    margin_part = {op.dest for cone, _ in split.groups for op in cone}
+    margin_part |= set(rename)
+    outputs = output_names(plan)
+    linked = [o for o in outputs if o.startswith(("probability_", "value"))]
+    code["link_lines"] = None
+    if linked and not decision_only:
+        ops = [op for op in prune(program, linked) if op.dest not in margin_part]
+        lines = r.lines(ops)
+        code["link_lines"] = lines + [f"out[{j}] = {r.outputs[o]};" for j, o in enumerate(linked)]
+    code["decide_lines"] = None
+    if plan.task != "regression":
+        ops = [op for op in prune(program, ["class_index"]) if op.dest not in margin_part]
+        code["decide_lines"] = r.lines(ops) + [f"return {r.outputs['class_index']};"]
+    return code
 
 
-def _locals(plan: Plan, prec: CPrecision, terms: tuple | None = None) -> list[str]:
-    """The local variables of the row scorer's statements."""
-    terms = plan.terms if terms is None else terms
-    numeric = [plan.inputs[t.input] for t in terms if t.kind == "numeric"]
-    out = [f"{prec.real} v;"] if numeric else []
-    if any(t.kind == "categorical" for t in terms):
-        out.append("int c;")
-    if any(inp.fill is None for inp in numeric):
-        out.append("int ok;")
-    return out
+def _accumulate(k: int, term: str, started: list[bool]) -> str:
+    line = f"m[{k}] = m[{k}] + {term};" if started[k] else f"m[{k}] = {term};"
+    started[k] = True
+    return line
 
 
-def _numeric_lines(inp: NumericInput, prec: CPrecision, src: str) -> list[str]:
-    """A numeric input's design value into v.
-
-    One quiet test (`islessequal` raises no FP flag on NaN) sends the rare values,
-    missing (NaN, +-inf) or beyond the guard, off the common path. Clamping is a pure
-    selection: a value beyond the guard becomes +-bound, and the fill is clamped here
-    at emit time exactly as the plan would at run time. No NaN or infinity is ever
-    computed with.
-    """
-    lit = prec.literal
-    bound, zero = lit(inp.bound), lit(0.0)
-    test = f"if (!islessequal({prec.fabs}(v), {bound})) {{"
-    beyond = f"(v > {zero}) ? {bound} : -{bound}"
-    lines = [f"v = {src};"]
-    if inp.fill is not None:
-        fill = lit(prec.clamped(inp.fill, inp.bound))
-        lines += [test, f"    v = isfinite(v) ? ({beyond}) : {fill};", "}"]
-    else:
-        lines += ["ok = 1;", test, "    ok = isfinite(v);", f"    v = ok ? ({beyond}) : {zero};",
-                  "}"]
-    lines += [STEP[s.op].format(c=lit(s.value)) for s in inp.steps]
-    if inp.clip is not None:
-        lo, hi = lit(inp.clip[0]), lit(inp.clip[1])
-        lines += [f"v = ({lo} > v) ? {lo} : v;", f"v = ({hi} < v) ? {hi} : v;"]
-    if inp.fill is None:
-        # without a fill, a missing input's design value is exactly 0.0
-        lines.append(f"v = ok ? v : {zero};")
-    return lines
-
-
-def _code_lines(inp: CategoricalInput, src: str) -> list[str]:
-    """A struct's code as a resolved level code in c (n, one past the last level, is the
-    table's 0.0 slot for "no level")."""
-    n = len(inp.levels)
-    unseen = inp.unknown_code if inp.unknown_code is not None else n
-    missing = inp.fill_code if inp.fill_code is not None else unseen
-    if missing == unseen:
-        return [f"c = {src};", f"c = (c >= 0 && c < {n}) ? c : {unseen};"]
-    return [f"c = {src};", f"c = (c >= 0 && c < {n}) ? c : (c == -1 ? {missing} : {unseen});"]
+def _table_names(plan: Plan, prefix: str) -> dict[tuple, str]:
+    """Each lookup table of the program as a row of the categorical term's table."""
+    return {table: f"{table_name(prefix, term.input)}[{k}]"
+            for term in plan.terms if term.kind == "categorical"
+            for k, table in enumerate(term.tables)}

@@ -29,9 +29,8 @@ PYTHON = Spelling(
     reassign=lambda name, value: f"{name} = {value}",
     ops={
         # _number gives None for a missing value; a select replaces it before any use.
-        "read_real": "_number(row.get(FEATURES[{inp.index}]))",
-        "read_code": "_code(_LEVELS_{inp.index}, {inp.integer_levels}, "
-                     "row.get(FEATURES[{inp.index}]))",
+        "read_real": "_number({src})",
+        "read_code": "_code(_LEVELS_{inp.index}, {inp.integer_levels}, {src})",
         "is_missing": "{0} is None",
         "add": "{0} + {1}", "sub": "{0} - {1}", "mul": "{0} * {1}", "div": "{0} / {1}",
         # the program's max(a, b): a unless b > a (what builtins max does, without a call)
@@ -56,7 +55,8 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
 
 def context(plan: Plan) -> dict:
     program = lower(plan)
-    code = render_statements(program, PYTHON)
+    sources = {inp.index: f"row.get(FEATURES[{inp.index}])" for inp in plan.inputs}
+    code = render_statements(program, PYTHON, sources)
     tables = []
     for inp in plan.inputs:
         if inp.kind == "categorical":

@@ -1,12 +1,12 @@
 """One renderer for statement languages: the scoring program as one assignment per
 operation, spelled from a language's record.
 
-A language is data: a `Spelling` of literals, the assignment form and one text per
-primitive (`{0}`, `{1}`... are the operands, already spelled; `{inp}` the plan's input
-a read takes; `{table}` the name the renderer gave a lookup table; for the ordered
-sum, the text that joins its operands left to right). The walk over the program
-is written once here; a primitive a language has no spelling for is one error that
-names both.
+A language is data: a `Spelling` of literals, names, the assignment forms and one text
+per primitive (`{0}`, `{1}`... are the operands, already spelled; `{src}` the text a
+read takes its raw value from; `{n}` a read's number of levels; `{table}` the name the
+renderer gave a lookup table; for the ordered sum, the text that joins its operands
+left to right). The walk over the program is written once here; a primitive a
+language has no spelling for is one error that names both.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 from ..errors import ScorewrightError
-from ..program import Const, Program
+from ..program import Const, Op, Program
 
 
 @dataclass(frozen=True)
@@ -26,57 +26,138 @@ class Spelling:
     assign: Callable[[str, str, str], str]  # (name, type, value) -> declaring statement
     reassign: Callable[[str, str], str]     # (name, value) -> a statement updating it
     ops: dict[str, str]                # primitive -> text with {0}, {1}, ... operands
+    name: Callable[[str], str] = str   # a program name as the language's local name
     table_name: str = "_T{n}"          # lookup tables, numbered in order of first use
     # the most operands one statement of an ordered sum may hold (a compiler's parser
     # recurses per operator); a longer sum continues on its own name, left to right
     sum_chunk: int = 100
 
 
+class Renderer:
+    """Renders operations of one program; lookup tables are shared by every call."""
+
+    def __init__(self, program: Program, spelling: Spelling, sources: dict[int, str],
+                 rename: dict[str, str] | None = None):
+        self.program = program
+        self.spelling = spelling
+        self.sources = sources          # input index -> the text holding its raw value
+        self.rename = dict(rename or {})  # program name -> text (e.g. an array element)
+        self.tables: dict[tuple, str] = {}
+        self.outputs: dict[str, str] = {}
+
+    @property
+    def table_list(self) -> list[tuple[str, tuple]]:
+        return [(name, values) for values, name in self.tables.items()]
+
+    def operand(self, arg) -> str:
+        if isinstance(arg, Const):
+            sp = self.spelling
+            return sp.code(arg.value) if isinstance(arg.value, int) else sp.real(arg.value)
+        return self.rename.get(arg) or self.spelling.name(arg)
+
+    def lines(self, ops) -> list[str]:
+        out: list[str] = []
+        for op in ops:
+            args = [self.operand(a) for a in op.args]
+            if op.op == "output":
+                self.outputs[op.attr] = args[0]
+                continue
+            text = self.spelling.ops.get(op.op)
+            if text is None:
+                raise ScorewrightError(
+                    f"target {self.spelling.language} cannot express op {op.op}")
+            if op.op == "sum":
+                out += self._sum_lines(op, args, text)
+                continue
+            dest = self.spelling.name(op.dest)
+            out.append(self.spelling.assign(dest, op.type, text.format(*args, **self._fields(op))))
+        return out
+
+    def _fields(self, op: Op) -> dict:
+        if op.op.startswith("read_"):
+            inp = self.program.plan.inputs[op.attr]
+            return {"src": self.sources[op.attr], "inp": inp,
+                    "n": len(inp.levels) if inp.kind == "categorical" else 0}
+        if op.op == "lookup":
+            if op.attr not in self.tables:
+                self.tables[op.attr] = self.spelling.table_name.format(n=len(self.tables))
+            return {"table": self.tables[op.attr]}
+        return {}
+
+    def _sum_lines(self, op, args: list[str], joiner: str) -> list[str]:
+        """((a + b) + c) + ...: the first chunk assigns the name, each further chunk adds
+        to it, so the additions and their order are the program's."""
+        sp = self.spelling
+        dest = sp.name(op.dest)
+        chunk = sp.sum_chunk
+        lines = [sp.assign(dest, op.type, joiner.join(args[:chunk]))]
+        for start in range(chunk, len(args), chunk - 1):
+            lines.append(sp.reassign(dest, joiner.join([dest, *args[start:start + chunk - 1]])))
+        return lines
+
+
 @dataclass(frozen=True)
 class Rendered:
     lines: list[str]                   # the statements, in the program's order
     tables: list[tuple[str, tuple]]    # (name, values) of every lookup table
-    outputs: dict[str, str]            # output name -> the name holding it
+    outputs: dict[str, str]            # output name -> the text holding it
 
 
-def render(program: Program, spelling: Spelling) -> Rendered:
-    lines: list[str] = []
-    tables: dict[tuple, str] = {}
-    outputs: dict[str, str] = {}
-    for op in program.ops:
-        args = [_operand(a, spelling) for a in op.args]
-        if op.op == "output":
-            outputs[op.attr] = args[0]
-            continue
-        text = spelling.ops.get(op.op)
-        if text is None:
-            raise ScorewrightError(f"target {spelling.language} cannot express op {op.op}")
-        fields = {}
-        if op.op.startswith("read_"):
-            fields["inp"] = program.plan.inputs[op.attr]
-        if op.op == "lookup":
-            if op.attr not in tables:
-                tables[op.attr] = spelling.table_name.format(n=len(tables))
-            fields["table"] = tables[op.attr]
-        if op.op == "sum":
-            lines += _sum_lines(op, args, text, spelling)
-            continue
-        lines.append(spelling.assign(op.dest, op.type, text.format(*args, **fields)))
-    return Rendered(lines, [(name, values) for values, name in tables.items()], outputs)
+def render(program: Program, spelling: Spelling, sources: dict[int, str]) -> Rendered:
+    """The whole program, top to bottom."""
+    r = Renderer(program, spelling, sources)
+    lines = r.lines(program.ops)
+    return Rendered(lines, r.table_list, r.outputs)
 
 
-def _sum_lines(op, args: list[str], joiner: str, spelling: Spelling) -> list[str]:
-    """((a + b) + c) + ...: the first chunk assigns the name, each further chunk adds to it,
-    so the additions and their order are the program's."""
-    chunk = spelling.sum_chunk
-    lines = [spelling.assign(op.dest, op.type, joiner.join(args[:chunk]))]
-    for start in range(chunk, len(args), chunk - 1):
-        rest = [op.dest, *args[start:start + chunk - 1]]
-        lines.append(spelling.reassign(op.dest, joiner.join(rest)))
-    return lines
+@dataclass(frozen=True)
+class MarginSplit:
+    """The program cut where the margins are complete: per term position, the operations
+    that compute it (first needed there) and the term of each margin; then the constant
+    last operand (the intercept) of each margin; then the rest (the link)."""
+
+    groups: list[tuple[list[Op], list[tuple[int, str]]]]
+    intercepts: list[Const]
+    margins: list[str | Const]   # what each margin is: a sum's name, or a constant
+    rest: list[Op]
 
 
-def _operand(arg, spelling: Spelling) -> str:
-    if isinstance(arg, Const):
-        return spelling.code(arg.value) if isinstance(arg.value, int) else spelling.real(arg.value)
-    return arg
+def split_margins(program: Program) -> MarginSplit:
+    """For languages that accumulate each margin term by term (m[k] = m[k] + t), so a
+    wide model's terms can be cut into parts: the same additions in the same order."""
+    n = program.plan.n_outputs
+    by_dest = {op.dest: op for op in program.ops}
+    margin_ops = [by_dest.get(_output_arg(program, f"margin_{k}")) for k in range(n)]
+    sums = [op if op is not None and op.op == "sum" else None for op in margin_ops]
+    width = max((len(s.args) - 1 for s in sums if s is not None), default=0)
+    position = {op.dest: i for i, op in enumerate(program.ops)}
+    done: set[str] = set()
+    groups = []
+    for j in range(width):
+        cone: list[Op] = []
+        terms = []
+        for k, s in enumerate(sums):
+            if s is not None and j < len(s.args) - 1:
+                _cone(s.args[j], by_dest, done, cone)
+                terms.append((k, s.args[j]))
+        groups.append((sorted(cone, key=lambda op: position[op.dest]), terms))
+    intercepts = [s.args[-1] if s is not None else _output_arg(program, f"margin_{k}")
+                  for k, s in enumerate(sums)]
+    margins = [s.dest if s is not None else intercepts[k] for k, s in enumerate(sums)]
+    used = done | {s.dest for s in sums if s is not None}
+    rest = [op for op in program.ops if op.dest not in used]
+    return MarginSplit(groups, intercepts, margins, rest)
+
+
+def _output_arg(program: Program, name: str):
+    return next(op.args[0] for op in program.ops if op.op == "output" and op.attr == name)
+
+
+def _cone(name, by_dest, done: set[str], out: list[Op]) -> None:
+    if not isinstance(name, str) or name in done:
+        return
+    done.add(name)
+    op = by_dest[name]
+    for arg in op.args:
+        _cone(arg, by_dest, done, out)
+    out.append(op)
