@@ -23,13 +23,13 @@ from dataclasses import dataclass
 from ..errors import ScorewrightError
 from ..model import FrozenModel
 from ..plan import Plan, build_plan
-from ..program import lower, output_names, prune
+from ..program import Program, lower, output_names, prune
 from .. import portable_exp
 from . import Artifact, reject_options
-from .c_batch import batch_code, table_name
+from .c_batch import batch_code, batch_spelling, table_name
 from .c_precision import PRECISIONS, CPrecision
 from .c_syntax import check_prefix, comment_text, default_prefix, field_names, string_literal
-from .statements import Renderer, Spelling, split_margins
+from .statements import MarginSplit, Renderer, Spelling, split_margins
 from .templating import render
 
 OPTIONS = ("prefix", "precision", "decision_only", "portable_exp", "report")
@@ -106,6 +106,10 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         exp_fn = libm_exp["name"]
     else:
         exp_fn = prec.exp
+    program = lower(plan)
+    split = split_margins(program)
+    spelling = c_spelling(prec, exp_fn)
+    tables = _table_names(plan, prefix)
     return {
         "prefix": prefix,
         "decision_only": decision_only,
@@ -123,8 +127,8 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         "n_outputs": plan.n_outputs,
         "batch_width": plan.n_outputs if plan.task == "multiclass" else 1,
         "tables": _tables(plan, prec, prefix),
-        **program_code(plan, prec, names, prefix, exp_fn, decision_only),
-        **batch_code(plan, prec, prefix),
+        **program_code(program, split, spelling, names, prefix, tables, decision_only),
+        **batch_code(program, split, batch_spelling(spelling, prec), prec, prefix, tables),
     }
 
 
@@ -172,19 +176,18 @@ def c_spelling(prec: CPrecision, exp_fn: str) -> Spelling:
     )
 
 
-def program_code(plan: Plan, prec: CPrecision, names: list[str], prefix: str, exp_fn: str,
-                 decision_only: bool) -> dict:
+def program_code(program: Program, split: MarginSplit, spelling: Spelling, names: list[str],
+                 prefix: str, tables: dict, decision_only: bool) -> dict:
     """The row scorer's margins (one part, or parts of ROW_PART_TERMS terms for a wide
     model: the same statements in the same order, so the same bits, but no giant
     function: GCC takes minutes on one, and for Thumb-2 at -Os it emits conditional
     branches beyond their range), the link and the decision, all rendered from the
     scoring program."""
-    program = lower(plan)
-    split = split_margins(program)
+    plan = program.plan
     sources = {inp.index: f"in->{names[inp.index]}" for inp in plan.inputs}
     rename = {m: f"m[{k}]" for k, m in enumerate(split.margins) if isinstance(m, str)}
-    r = Renderer(program, c_spelling(prec, exp_fn), sources, rename)
-    r.tables.update(_table_names(plan, prefix))
+    r = Renderer(program, spelling, sources, rename)
+    r.tables.update(tables)
     parts = []
     started = [False] * plan.n_outputs
     for start in range(0, max(len(split.groups), 1), ROW_PART_TERMS):

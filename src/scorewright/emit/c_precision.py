@@ -16,6 +16,10 @@ class CPrecision:
     suffix: str   # literal suffix
     exp: str
     fabs: str
+    # A batch row's double as this precision: a finite double beyond float range
+    # saturates (narrowed it would be an infinity, read as missing), so a batch row is
+    # clamped as the row scorer's saturating driver does; quiet tests, no FP flag on NaN.
+    batch_read: str = "{src}"
 
     def rounded(self, x: float) -> float:
         """`x` rounded to nearest in this precision."""
@@ -41,5 +45,8 @@ class CPrecision:
 
 PRECISIONS = {
     "double": CPrecision("double", "double", "", "exp", "fabs"),
-    "float": CPrecision("float", "float", "f", "expf", "fabsf"),
+    "float": CPrecision("float", "float", "f", "expf", "fabsf",
+                        "(float)(!isfinite({src}) ? {src} : isgreater({src}, 0x1.fffffep+127) ? "
+                        "0x1.fffffep+127 : isless({src}, -0x1.fffffep+127) ? -0x1.fffffep+127 "
+                        ": {src})"),
 }
