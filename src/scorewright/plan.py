@@ -1,6 +1,8 @@
-"""The scoring plan: a frozen model lowered to an ordered list of arithmetic steps.
+"""The scoring plan: a frozen model's inputs, terms, guards and head, per precision.
 
-The plan *is* the semantics every target implements. Evaluation, in order:
+`program.lower` turns the plan into the scoring program, the ordered list of typed
+operations every target renders; the rules below are what that lowering writes out.
+Evaluation, in order:
 
 1. Inputs, in feature order.
    Numeric: a value that is absent, null, NaN, +-inf or not a number is
