@@ -426,3 +426,58 @@ def test_fit_is_deterministic(tmp_path):
     first = fit_file(data, opts, progress=False).model
     second = fit_file(data, opts, progress=False).model
     assert first.to_json() == second.to_json()
+
+
+# ---------------------------------------------------------------- rows without a label
+
+def _labelled_rows(n: int, empty: int) -> str:
+    """A 0/1 label whose first `empty` cells are empty (invented readings)."""
+    rng = np.random.default_rng(15)
+    lines = ["a,b,zone,y"]
+    for i in range(n):
+        a, b = rng.normal(), rng.normal()
+        zone = ("north", "south", "east")[i % 3]
+        y = int(rng.random() < 1.0 / (1.0 + math.exp(b - a)))
+        lines.append(f"{a:.4f},{b:.4f},{zone},{'' if i < empty else y}")
+    return "\n".join(lines) + "\n"
+
+
+def _string_modes():
+    """pandas' two readings of text: its string dtype (the default from pandas 3, opt-in
+    with future.infer_string in pandas 2) and plain object columns (the default before
+    pandas 3; still selectable in 3.x, with a deprecation warning)."""
+    import warnings
+
+    modes = [True]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        before = pd.options.future.infer_string
+        try:
+            pd.options.future.infer_string = False
+            modes.append(False)
+        except (ValueError, pd.errors.OptionError):
+            pass
+        pd.options.future.infer_string = before
+    return modes
+
+
+@pytest.mark.filterwarnings("ignore:.*infer_string")
+@pytest.mark.parametrize("infer_string", _string_modes())
+@pytest.mark.parametrize("empty", [1, 20])
+def test_rows_without_a_label_are_left_out_and_counted(tmp_path, monkeypatch, empty,
+                                                       infer_string):
+    """An empty label cell is no class: one gave a traceback, twenty a class 'nan'."""
+    monkeypatch.setattr(pd.options.future, "infer_string", infer_string)
+    data = _write(tmp_path / "data.csv", _labelled_rows(200, empty))
+    out = tmp_path / "model.json"
+    result = CliRunner().invoke(cli, ["fit", str(data), "-o", str(out), "--label", "y",
+                                      "--cv", "3", "--report", str(tmp_path / "rep")])
+    assert result.exit_code == 0, result.output
+    assert f"left out {empty} of 200 rows with no label 'y'" in result.output
+    model = json.loads(out.read_text())
+    assert model["head"]["classes"] == [0, 1]
+    data_prov = model["provenance"]["inputs"]["data"]
+    assert data_prov["rows_without_label"] == empty
+    assert data_prov["rows_train"] + data_prov["rows_test"] == 200 - empty
+    html = (tmp_path / "rep" / "report.html").read_text()
+    assert f"<tr><th>rows without a label (left out)</th><td>{empty}</td></tr>" in html
