@@ -84,7 +84,7 @@ def score_row(plan: Plan, row: Mapping) -> Score:
     for inp in plan.inputs:
         raw = row.get(inp.name)
         if inp.kind == "numeric":
-            codes.append(design_value(inp, numeric_value(raw)))
+            codes.append(design_value(inp, numeric_value(raw, inp.boolean)))
         else:
             codes.append(resolve_code(inp, category_code(inp.levels, raw)))
     return score_design(plan, codes)
@@ -145,7 +145,7 @@ def encode_rows(plan: Plan, rows) -> np.ndarray:
         for inp in plan.inputs:
             raw = row.get(inp.name)
             if inp.kind == "numeric":
-                v = numeric_value(raw)
+                v = numeric_value(raw, inp.boolean)
                 out[r, inp.index] = math.nan if v is None else v
             else:
                 out[r, inp.index] = category_code(inp.levels, raw)

@@ -88,7 +88,7 @@ def context(plan: Plan) -> dict:
 
 
 def _numeric_lines(inp, v: str, get: str) -> list[str]:
-    lines = [f"{v} = _number({get})"]
+    lines = [f"{v} = _number({get}, True)" if inp.boolean else f"{v} = _number({get})"]
     body = [f"{v} = min(max({v}, {literal(-inp.bound)}), {literal(inp.bound)})"]
     body += [STEP[s.op].format(v=v, c=literal(s.value)) for s in inp.steps]
     if inp.clip is not None:

@@ -1,0 +1,302 @@
+"""The self-check: the frozen model against the estimator it was frozen from.
+
+Verify proves that artifacts equal the frozen model; this proves that the frozen
+model equals what the user fitted. Rows (the user's, plus rows derived from the
+model: missing values in both spellings, unseen levels, every level, booleans,
+extremes) are scored by the source estimator itself (predict_proba / predict)
+and by the frozen model's reference evaluator. Any probability that differs by
+more than 1e-12 (absolute), or any value by more than 1e-12 (relative), refuses
+the model, naming the first differing row.
+
+Rows the source estimator cannot score (it raises, e.g. on an unseen level with
+handle_unknown='error' or on a missing value with no imputer, or it overflows)
+have no answer to compare with; they are counted, not compared.
+
+One known difference is stated instead of failed: scikit-learn's SimpleImputer
+imputes NaN but not None in an object (text) column (`_get_mask` compares with
+NaN through `_object_dtype_isnan`, which None is not), so the source model reads
+a None category as unseen where it imputes a NaN. The frozen model reads both as
+missing; a row that differs only through that spelling is reported as a note.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import ScorewrightError
+from ..model import CategoricalFeature, FrozenModel, NumericFeature
+
+TOLERANCE = 1e-12
+UNSEEN_TEXT = "\u2063unseen level"   # an invisible separator: no real level starts so
+EXTREME = 100.0                      # times the feature's own scale, see _extremes
+
+
+class FreezeMismatch(ScorewrightError):
+    """The frozen model does not score like its source estimator."""
+
+
+@dataclass
+class CheckResult:
+    compared: int = 0        # rows both sides scored and compared
+    derived: int = 0         # of which rows derived from the model
+    unscored: int = 0        # rows the source estimator could not score
+    notes: list[str] = field(default_factory=list)
+
+    def summary(self) -> str:
+        line = (f"self-check: the frozen model scores {self.compared} rows "
+                f"({self.derived} derived from the model) like the source estimator "
+                f"(within {TOLERANCE:g})")
+        if self.unscored:
+            line += f"; {self.unscored} rows the source estimator cannot score were skipped"
+        return line
+
+
+def feature_order(model: FrozenModel) -> list[str]:
+    """The source estimator's input columns, in its order."""
+    names = model.provenance.get("inputs", {}).get("feature_names")
+    return list(names) if names else [f.name for f in model.features]
+
+
+def check_model(estimator, model: FrozenModel, frame=None) -> CheckResult:
+    """Score `frame` (a DataFrame of raw inputs, may be None) and derived rows with
+    both sides; raise FreezeMismatch at the first row that differs."""
+    names = feature_order(model)
+    result = CheckResult()
+    batches = []
+    if frame is not None and len(frame):
+        batches.append(("data row", _user_frame(frame, names)))
+    base = _base_row(model, batches[0][1] if batches else None)
+    derived = _derived_frames(model, names, base)
+    batches += [("derived row", f) for f in derived]
+    for what, batch in batches:
+        compared = result.compared
+        _check_batch(estimator, model, names, batch, what, result)
+        if what == "derived row":
+            result.derived += result.compared - compared
+    return result
+
+
+# ---------------------------------------------------------------- rows
+
+def _user_frame(frame, names):
+    missing = [n for n in names if n not in frame.columns]
+    if missing:
+        raise ScorewrightError(f"the check data has no column {missing[0]!r} (the model "
+                               f"takes {', '.join(map(repr, names[:6]))}"
+                               f"{', ...' if len(names) > 6 else ''})")
+    return frame[names].reset_index(drop=True)
+
+
+def _plain(value):
+    """A cell as a plain Python value (pandas' NA and NaT as None)."""
+    import pandas as pd
+
+    if isinstance(value, np.generic):
+        value = value.item()
+    try:
+        if value is pd.NA or value is pd.NaT:
+            return None
+    except AttributeError:
+        pass
+    return value
+
+
+def _base_row(model: FrozenModel, frame) -> dict:
+    """The row derived rows vary one cell of: the first data row, else each feature's
+    fill (or a plain value)."""
+    if frame is not None:
+        return {k: _plain(v) for k, v in frame.iloc[0].items()}
+    row = {}
+    for feat in model.features:
+        if isinstance(feat, NumericFeature):
+            row[feat.name] = feat.fill if feat.fill is not None else 0.0
+            if feat.boolean:
+                row[feat.name] = False
+        else:
+            row[feat.name] = feat.fill if feat.fill is not None else feat.levels[0]
+    return row  # inputs the estimator drops stay absent (None)
+
+
+def _extremes(feat: NumericFeature) -> list[float]:
+    """Far readings on the feature's own scale (its scaling steps' size), both signs:
+    a hundred spreads out, beyond any clip, yet inside the range where neither side
+    saturates (the frozen model's guards then change nothing)."""
+    size = max([abs(s.value) for s in feat.scaling] + [1.0])
+    return [EXTREME * size, -EXTREME * size]
+
+
+def _derived_frames(model: FrozenModel, names, base) -> list:
+    """Rows that each change one cell of the base row. Numeric columns are float64
+    (a missing value is NaN, as pandas stores it); categorical columns are object,
+    so None and NaN stay two spellings. Booleans come in their own frame, as a bool
+    column (the dtype the source model was fitted on)."""
+    rows: list[dict] = []
+    bool_rows: list[dict] = []
+    for feat in model.features:
+        if isinstance(feat, NumericFeature):
+            if feat.boolean:
+                bool_rows += [dict(base, **{feat.name: v}) for v in (True, False)]
+                continue
+            for value in [math.nan] + _extremes(feat):
+                rows.append(dict(base, **{feat.name: value}))
+        else:
+            unseen = (max(feat.levels) + 1000 if isinstance(feat.levels[0], int)
+                      else UNSEEN_TEXT)
+            for value in (None, math.nan, unseen) + tuple(feat.levels):
+                rows.append(dict(base, **{feat.name: value}))
+    frames = []
+    kinds = {f.name: f for f in model.features}
+    if rows:
+        frames.append(_typed_frame(rows, names, kinds, booleans_as_bool=False))
+    if bool_rows:
+        frames.append(_typed_frame(bool_rows, names, kinds, booleans_as_bool=True))
+    return frames
+
+
+def _typed_frame(rows, names, kinds, booleans_as_bool):
+    """Numeric and integer-level columns as float64 (NaN for missing, as pandas holds
+    a column of numbers with gaps); text-level columns as object."""
+    import pandas as pd
+
+    from ..values import numeric_value
+
+    columns = {}
+    for name in names:
+        feat = kinds.get(name)
+        values = [row.get(name) for row in rows]
+        if feat is None:  # an input the estimator drops: any value does
+            columns[name] = pd.Series(values, dtype=object)
+        elif isinstance(feat, NumericFeature) and feat.boolean and booleans_as_bool:
+            columns[name] = pd.Series([bool(v) for v in values], dtype=bool)
+        elif isinstance(feat, NumericFeature) or isinstance(feat.levels[0], int):
+            numbers = [numeric_value(v, getattr(feat, "boolean", False)) for v in values]
+            columns[name] = pd.Series([math.nan if v is None else v for v in numbers],
+                                      dtype=np.float64)
+        else:
+            columns[name] = pd.Series(values, dtype=object)
+    return pd.DataFrame(columns)
+
+
+# ---------------------------------------------------------------- scoring
+
+def _records(frame) -> list[dict]:
+    cols = list(frame.columns)
+    return [{c: _plain(v) for c, v in zip(cols, row)}
+            for row in frame.itertuples(index=False, name=None)]
+
+
+def _reference(model: FrozenModel, records) -> np.ndarray:
+    from ..plan import build_plan
+    from ..reference import encode_rows, score_matrix
+
+    plan = build_plan(model)
+    out = score_matrix(plan, encode_rows(plan, records))
+    if model.head.task == "regression":
+        return out["value"].reshape(-1, 1)
+    return out["probabilities"]
+
+
+def _source(estimator, frame, classifier: bool) -> np.ndarray:
+    """The source estimator's outputs, one row per input row; NaN rows where it
+    cannot score a row (found by halving a batch that raises)."""
+    n = len(frame)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # unseen levels: warned about, then encoded
+            x = frame if getattr(estimator, "feature_names_in_", None) is not None \
+                else frame.to_numpy()
+            out = estimator.predict_proba(x) if classifier else estimator.predict(x)
+        out = np.asarray(out, dtype=np.float64)
+        return out.reshape(n, -1)
+    except Exception:
+        if n == 1:
+            return np.full((1, 1), math.nan)
+        half = n // 2
+        first = _source(estimator, frame.iloc[:half], classifier)
+        second = _source(estimator, frame.iloc[half:], classifier)
+        width = max(first.shape[1], second.shape[1])
+        return np.vstack([_widen(first, width), _widen(second, width)])
+
+
+def _widen(block, width):
+    if block.shape[1] == width:
+        return block
+    return np.full((block.shape[0], width), math.nan)
+
+
+def _differs(model: FrozenModel, source: np.ndarray, ref: np.ndarray) -> np.ndarray:
+    gap = np.abs(source - ref)
+    if model.head.task == "regression":
+        scale = np.maximum(np.abs(source), np.abs(ref))
+        return np.any(gap > TOLERANCE * scale, axis=1)
+    return np.any(gap > TOLERANCE, axis=1)
+
+
+def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> None:
+    classifier = model.head.task != "regression"
+    records = _records(frame)
+    ref = _reference(model, records)
+    source = _source(estimator, frame, classifier)
+    if source.shape[1] != ref.shape[1]:
+        scored = np.isfinite(source).all(axis=1)
+        if scored.any():
+            raise FreezeMismatch(f"self-check: the source estimator gives {source.shape[1]} "
+                                 f"outputs per row, the frozen model {ref.shape[1]}")
+        result.unscored += len(frame)
+        return
+    scored = np.isfinite(source).all(axis=1)
+    result.unscored += int((~scored).sum())
+    result.compared += int(scored.sum())
+    bad = scored & _differs(model, source, ref)
+    for i in np.flatnonzero(bad):
+        note = _spelling_note(estimator, model, frame.iloc[[int(i)]], ref[i], classifier)
+        if note is None:
+            raise FreezeMismatch(_mismatch_message(model, what, int(i), records[i],
+                                                   source[i], ref[i]))
+        if note not in result.notes:
+            result.notes.append(note)
+
+
+def _spelling_note(estimator, model, row_frame, ref_row, classifier) -> str | None:
+    """A note when the row differs only because the source model reads None in a
+    text column differently from NaN; None when the difference is real."""
+    known = {f.name for f in model.features}
+    cols = [c for c in row_frame.columns if c in known and row_frame[c].dtype == object
+            and row_frame[c].iloc[0] is None]
+    if not cols:
+        return None
+    fixed = row_frame.copy()
+    for c in cols:
+        fixed[c] = np.array([math.nan], dtype=object)
+    source = _source(estimator, fixed, classifier)[0]
+    if not np.all(np.isfinite(source)) or _differs(model, source[None, :], ref_row[None, :])[0]:
+        return None
+    rules = "; ".join(_missing_rule(model.feature(c)) for c in cols)
+    return (f"the source model reads None in column {', '.join(map(repr, cols))} differently "
+            "from NaN (scikit-learn's SimpleImputer imputes NaN but not None in a text "
+            f"column, so None scores as an unseen level there); the frozen model reads both "
+            f"as missing: {rules}")
+
+
+def _missing_rule(feat) -> str:
+    if isinstance(feat, CategoricalFeature) and feat.fill is not None:
+        return f"{feat.name!r} missing takes the level {feat.fill!r}"
+    return f"{feat.name!r} missing is treated as an unseen level"
+
+
+def _mismatch_message(model, what, index, record, source, ref) -> str:
+    shown = ", ".join(f"{k}={v!r}" for k, v in list(record.items())[:8])
+    if len(record) > 8:
+        shown += ", ..."
+    if model.head.task == "regression":
+        outputs = f"source {float(source[0])!r}, frozen {float(ref[0])!r}"
+    else:
+        k = int(np.argmax(np.abs(source - ref)))
+        outputs = (f"probability of class {model.head.classes[k]!r}: source "
+                   f"{float(source[k])!r}, frozen {float(ref[k])!r}")
+    return (f"self-check failed: the frozen model does not score like the source estimator "
+            f"at {what} {index + 1} ({shown}): {outputs}; the model file was not written")
