@@ -95,7 +95,8 @@ def test_csv_and_in_memory_give_identical_results(name, tmp_path):
     writer = csv.writer(buf, lineterminator="\r\n")  # quotes a lone "\r" too
     writer.writerow(["unit_note"] + names)
     for i, row in enumerate(rows):
-        writer.writerow([f"note {i}"] + [csv_cell(row.get(n)) for n in names])
+        writer.writerow([f"note {i}"] + [csv_cell(row.get(inp.name), inp)
+                                         for inp in plan.inputs])
     proc = subprocess.run([sys.executable, "-I", "-S", str(path)], input=buf.getvalue(),
                           capture_output=True, text=True)
     assert proc.returncode == 0, proc.stderr

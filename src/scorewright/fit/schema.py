@@ -179,7 +179,9 @@ def _categorical(name, series, raw_text, numbers, present, given, max_levels):
     import pandas as pd
 
     if raw_text is not None:
-        values = raw_text.where(present, None)
+        values = _integer_codes(raw_text, numbers, present)
+        if values is None:
+            values = raw_text.where(present, None)
     else:
         whole = present & np.isfinite(numbers) & (numbers == np.floor(numbers))
         if not np.all(whole[present]):
@@ -202,6 +204,26 @@ def _categorical(name, series, raw_text, numbers, present, given, max_levels):
     values = values.astype(object).where(present, np.nan)
     column = Column(name, "categorical", int((~present).sum()), tuple(levels))
     return column, values
+
+
+def _integer_codes(raw_text, numbers, present):
+    """Text cells that all spell whole numbers, one text per number, as ints; else None.
+
+    Integer levels match integral values of any type when scored (2, 2.0, '2'), so a
+    DOUBLE column or another loader's text still finds its level; text levels would
+    not match 2.0. Codes spelled two ways ('7' and '07') stay text: they are two
+    categories in the data."""
+    import pandas as pd
+
+    whole = present & np.isfinite(numbers) & (numbers == np.floor(numbers))
+    if not np.all(whole[present]) or np.any(np.abs(numbers[present]) >= 2.0 ** 53):
+        return None
+    spellings = {}
+    for text, number in zip(raw_text[present], numbers[present]):
+        if spellings.setdefault(int(number), text) != text:
+            return None
+    return pd.Series([int(v) if p else None for v, p in zip(numbers, present)],
+                     index=raw_text.index, dtype=object)
 
 
 def summary_lines(schema: Schema, n_rows: int) -> list[str]:

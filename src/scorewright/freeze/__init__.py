@@ -62,6 +62,26 @@ def check_frame(rows, names):
         raise ScorewrightError(f"check_rows: not a table of rows ({exc})") from None
 
 
+def read_check_data(path: Path):
+    """Check rows from a CSV file (read as pandas reads it by default: numbers,
+    True/False as bool, the rest text) or a Parquet file."""
+    import pandas as pd
+
+    if not path.is_file():
+        raise ScorewrightError(f"--check-data {path}: no such file")
+    try:
+        if path.suffix.lower() in (".parquet", ".pq") or path.read_bytes()[:4] == b"PAR1":
+            frame = pd.read_parquet(path)
+        else:
+            frame = pd.read_csv(path)
+    except Exception as exc:  # readers raise many kinds for a damaged file
+        raise ScorewrightError(f"--check-data {path}: not a readable table "
+                               f"({' '.join(str(exc).split())[:200]})") from None
+    if len(frame) == 0:
+        raise ScorewrightError(f"--check-data {path}: no data rows")
+    return frame
+
+
 def mark_booleans(model: FrozenModel, frame) -> FrozenModel:
     """Numeric features whose check column is bool were fitted on booleans."""
     import pandas as pd

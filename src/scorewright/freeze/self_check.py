@@ -47,12 +47,17 @@ class CheckResult:
     notes: list[str] = field(default_factory=list)
 
     def summary(self) -> str:
-        line = (f"self-check: the frozen model scores {self.compared} rows "
+        line = (f"self-check: the frozen model scores {_rows(self.compared)} "
                 f"({self.derived} derived from the model) like the source estimator "
                 f"(within {TOLERANCE:g})")
         if self.unscored:
-            line += f"; {self.unscored} rows the source estimator cannot score were skipped"
+            line += (f"; {_rows(self.unscored)} the source estimator cannot score "
+                     f"{'were' if self.unscored > 1 else 'was'} skipped")
         return line
+
+
+def _rows(n: int) -> str:
+    return f"{n} row" if n == 1 else f"{n} rows"
 
 
 def feature_order(model: FrozenModel) -> list[str]:

@@ -262,8 +262,11 @@ def _one_hot(enc, chains, path):
             groups = [(c,) for c in cats if c not in rare] + [tuple(rare)]
         else:
             groups = [(c,) for j, c in enumerate(cats) if j != dropped]
+        # scikit-learn >= 1.6 transforms with handle_unknown='warn' exactly as with
+        # 'infrequent_if_exist' (OneHotEncoder.transform swaps it in): an unseen level
+        # joins the infrequent group when the column has one, else its indicators are 0.
         unknown = None
-        if enc.handle_unknown == "infrequent_if_exist" and rare:
+        if enc.handle_unknown in ("infrequent_if_exist", "warn") and rare:
             unknown = rare[0]
         # A feature whose only category was dropped yields no column: it is left out.
         for group in groups:
