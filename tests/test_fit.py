@@ -481,3 +481,47 @@ def test_rows_without_a_label_are_left_out_and_counted(tmp_path, monkeypatch, em
     assert data_prov["rows_train"] + data_prov["rows_test"] == 200 - empty
     html = (tmp_path / "rep" / "report.html").read_text()
     assert f"<tr><th>rows without a label (left out)</th><td>{empty}</td></tr>" in html
+
+
+def test_integer_coded_categories_match_integral_values_of_any_type(tmp_path):
+    """A CSV column of whole-number codes was frozen as text levels, so a DOUBLE 2.0
+    (another loader) became an unseen level; integer levels match 2, 2.0 and '2'."""
+    import importlib.util
+
+    from scorewright.emit import emitter
+    from scorewright.reference import score_row
+
+    rng = np.random.default_rng(6)
+    lines = ["load,shift,y"]
+    for _ in range(300):
+        load, shift = rng.normal(), int(rng.integers(1, 4))
+        y = int(rng.random() < 1.0 / (1.0 + math.exp(-(load + 1.5 * (shift == 3) - 0.5))))
+        lines.append(f"{load:.4f},{shift},{y}")
+    data = _write(tmp_path / "codes.csv", "\n".join(lines) + "\n")
+    result = fit_file(data, FitOptions(label="y", categorical=["shift"], cv=3), progress=False)
+    feat = result.model.feature("shift")
+    assert feat.levels == (1, 2, 3)
+    (art,) = emitter("python")(result.model, {})
+    path = tmp_path / art.name
+    path.write_bytes(art.content)
+    spec = importlib.util.spec_from_file_location("codes_scorer", path)
+    scorer = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(scorer)
+    plan = build_plan(result.model)
+    for code in (1, 2, 3):
+        spellings = [code, float(code), str(code), f" {code}.0 ", np.int64(code),
+                     np.float64(code)]
+        margins = {score_row(plan, {"load": 0.5, "shift": v}).margins[0] for v in spellings}
+        assert len(margins) == 1, (code, margins)
+        assert {scorer.margin({"load": 0.5, "shift": v}) for v in spellings} == margins
+    unseen = score_row(plan, {"load": 0.5, "shift": 9}).margins
+    assert score_row(plan, {"load": 0.5, "shift": 3.0}).margins != unseen
+
+
+def test_codes_spelled_two_ways_stay_text(tmp_path):
+    """'7' and '07' are two categories in the data: they stay text levels."""
+    lines = ["load,code,y"] + [f"{i % 7 / 7:.3f},{('7', '07', '8')[i % 3]},{i % 2}"
+                               for i in range(60)]
+    data = _write(tmp_path / "codes.csv", "\n".join(lines) + "\n")
+    result = fit_file(data, FitOptions(label="y", categorical=["code"], cv=3), progress=False)
+    assert result.model.feature("code").levels == ("07", "7", "8")
