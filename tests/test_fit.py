@@ -481,6 +481,11 @@ def test_rows_without_a_label_are_left_out_and_counted(tmp_path, monkeypatch, em
     assert data_prov["rows_train"] + data_prov["rows_test"] == 200 - empty
     html = (tmp_path / "rep" / "report.html").read_text()
     assert f"<tr><th>rows without a label (left out)</th><td>{empty}</td></tr>" in html
+    # the self-check ran on the labelled rows (and rows derived from the model)
+    check = model["provenance"]["created"]["self_check"]
+    assert check.startswith(f"self-check: the frozen model scores {200 - empty + 12} rows "
+                            "(12 derived from the model)")
+    assert f"<p>{check}.</p>" in html and check in result.output
 
 
 def test_integer_coded_categories_match_integral_values_of_any_type(tmp_path):

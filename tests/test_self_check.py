@@ -348,3 +348,12 @@ def test_cli_refuses_statsmodels_in_one_line(tmp_path):
     assert result.exit_code == 2 and not out.exists()
     last = result.stderr.strip().splitlines()[-1]
     assert last.startswith("error: statsmodels results") and "not fitted" not in last
+
+
+def test_check_rows_the_source_cannot_score_are_an_error_not_a_pass(tmp_path):
+    """Rows of the wrong shape prove nothing: say so instead of passing vacuously."""
+    est, X = _flag_pipeline()
+    wrong = X.assign(pressure_kpa="high")  # text where the scaler needs numbers
+    with pytest.raises(ScorewrightError, match=r"scores none of the 200 rows given to check "
+                                               r"\(ValueError: "):
+        scorewright.freeze(est, check_rows=wrong)

@@ -9,7 +9,7 @@ from pathlib import Path
 
 from ..errors import ScorewrightError
 from ..model import FrozenModel, NumericFeature
-from .self_check import CheckResult, check_model, feature_order
+from .self_check import CheckResult, FreezeNote, check_model, feature_order
 from .sklearn import freeze_estimator
 
 PICKLE_WARNING = ("warning: loading {path} runs code stored in the file; "
@@ -28,7 +28,7 @@ def freeze(estimator, feature_names=None, name=None, check_rows=None) -> FrozenM
     model, result = freeze_checked(estimator, feature_names=feature_names, name=name,
                                    check_rows=check_rows)
     for note in result.notes:
-        warnings.warn(note, stacklevel=2)
+        warnings.warn(note, FreezeNote, stacklevel=2)
     return model
 
 

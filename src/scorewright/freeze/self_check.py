@@ -32,11 +32,16 @@ from ..model import CategoricalFeature, FrozenModel, NumericFeature
 
 TOLERANCE = 1e-12
 UNSEEN_TEXT = "\u2063unseen level"   # an invisible separator: no real level starts so
+REFUSAL_BUDGET = 500                 # failed source calls before the rest is left unscored
 EXTREME = 100.0                      # times the feature's own scale, see _extremes
 
 
 class FreezeMismatch(ScorewrightError):
     """The frozen model does not score like its source estimator."""
+
+
+class FreezeNote(UserWarning):
+    """Something the self-check found worth saying (scorewright.freeze warns with it)."""
 
 
 @dataclass
@@ -98,15 +103,10 @@ def _user_frame(frame, names):
 
 def _plain(value):
     """A cell as a plain Python value (pandas' NA and NaT as None)."""
-    import pandas as pd
-
     if isinstance(value, np.generic):
         value = value.item()
-    try:
-        if value is pd.NA or value is pd.NaT:
-            return None
-    except AttributeError:
-        pass
+    if type(value).__name__ in ("NAType", "NaTType"):
+        return None
     return value
 
 
@@ -205,9 +205,10 @@ def _reference(model: FrozenModel, records) -> np.ndarray:
     return out["probabilities"]
 
 
-def _source(estimator, frame, classifier: bool) -> np.ndarray:
+def _source(estimator, frame, classifier: bool, errors: list | None = None) -> np.ndarray:
     """The source estimator's outputs, one row per input row; NaN rows where it
-    cannot score a row (found by halving a batch that raises)."""
+    cannot score a row (found by halving a batch that raises). The first error
+    of a row it refuses is appended to `errors`."""
     n = len(frame)
     try:
         with warnings.catch_warnings():
@@ -217,12 +218,16 @@ def _source(estimator, frame, classifier: bool) -> np.ndarray:
             out = estimator.predict_proba(x) if classifier else estimator.predict(x)
         out = np.asarray(out, dtype=np.float64)
         return out.reshape(n, -1)
-    except Exception:
-        if n == 1:
-            return np.full((1, 1), math.nan)
+    except Exception as exc:  # the estimator may refuse a row in any way it likes
+        errors = [] if errors is None else errors
+        if not errors:
+            errors.append(f"{type(exc).__name__}: {' '.join(str(exc).split())[:160]}")
+        errors.append(None)  # one more refusal: past the budget, stop looking for rows
+        if n == 1 or len(errors) > REFUSAL_BUDGET:
+            return np.full((n, 1), math.nan)
         half = n // 2
-        first = _source(estimator, frame.iloc[:half], classifier)
-        second = _source(estimator, frame.iloc[half:], classifier)
+        first = _source(estimator, frame.iloc[:half], classifier, errors)
+        second = _source(estimator, frame.iloc[half:], classifier, errors)
         width = max(first.shape[1], second.shape[1])
         return np.vstack([_widen(first, width), _widen(second, width)])
 
@@ -245,15 +250,19 @@ def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> N
     classifier = model.head.task != "regression"
     records = _records(frame)
     ref = _reference(model, records)
-    source = _source(estimator, frame, classifier)
+    errors: list = []
+    source = _source(estimator, frame, classifier, errors)
+    scored = np.isfinite(source).all(axis=1)
+    if what == "data row" and not scored.any():
+        why = errors[0] if errors else "its outputs are not finite"
+        raise ScorewrightError(f"self-check: the source estimator scores none of the "
+                               f"{_rows(len(frame))} given to check ({why})")
     if source.shape[1] != ref.shape[1]:
-        scored = np.isfinite(source).all(axis=1)
         if scored.any():
             raise FreezeMismatch(f"self-check: the source estimator gives {source.shape[1]} "
                                  f"outputs per row, the frozen model {ref.shape[1]}")
         result.unscored += len(frame)
         return
-    scored = np.isfinite(source).all(axis=1)
     result.unscored += int((~scored).sum())
     result.compared += int(scored.sum())
     bad = scored & _differs(model, source, ref)
@@ -304,4 +313,4 @@ def _mismatch_message(model, what, index, record, source, ref) -> str:
         outputs = (f"probability of class {model.head.classes[k]!r}: source "
                    f"{float(source[k])!r}, frozen {float(ref[k])!r}")
     return (f"self-check failed: the frozen model does not score like the source estimator "
-            f"at {what} {index + 1} ({shown}): {outputs}; the model file was not written")
+            f"at {what} {index + 1} ({shown}): {outputs}; nothing was written")
