@@ -530,3 +530,26 @@ def test_codes_spelled_two_ways_stay_text(tmp_path):
     data = _write(tmp_path / "codes.csv", "\n".join(lines) + "\n")
     result = fit_file(data, FitOptions(label="y", categorical=["code"], cv=3), progress=False)
     assert result.model.feature("code").levels == ("07", "7", "8")
+
+
+def test_a_parquet_bool_column_is_a_boolean_feature(tmp_path):
+    """pyarrow reads a Parquet bool column as bool; fit reads it as 0/1, the model records
+    it, and True, 1 and the text 'true' score alike."""
+    from scorewright.reference import score_row
+
+    rng = np.random.default_rng(9)
+    n = 240
+    frame = pd.DataFrame({"load": rng.normal(size=n), "defrost_on": rng.random(n) < 0.4})
+    margin = frame.load + 1.5 * frame.defrost_on - 0.6
+    frame["fault"] = (rng.random(n) < 1 / (1 + np.exp(-margin))).astype(int)
+    path = tmp_path / "flags.parquet"
+    frame.to_parquet(path)
+    result = fit_file(path, FitOptions(label="fault", cv=3), progress=False)
+    assert result.model.feature("defrost_on").boolean
+    assert "self-check: the frozen model scores" in result.model.provenance["created"][
+        "self_check"]
+    plan = build_plan(result.model)
+    for on, spellings in ((1, (True, 1, 1.0, "true", " TRUE", np.True_)),
+                          (0, (False, 0, "false", "False", np.False_))):
+        margins = {score_row(plan, {"load": 0.25, "defrost_on": v}).margins for v in spellings}
+        assert len(margins) == 1, (on, margins)
