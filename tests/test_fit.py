@@ -485,7 +485,7 @@ def test_rows_without_a_label_are_left_out_and_counted(tmp_path, monkeypatch, em
     check = model["provenance"]["created"]["self_check"]
     assert check.startswith(f"self-check: the frozen model scores {200 - empty + 12} rows "
                             "(12 derived from the model)")
-    assert f"<p>{check}.</p>" in html and check in result.output
+    assert f"<p>{check}." in html and check in result.output
 
 
 def test_integer_coded_categories_match_integral_values_of_any_type(tmp_path):

@@ -318,7 +318,7 @@ def test_none_and_nan_in_a_text_column_are_named_not_failed():
     assert not np.allclose(est.predict_proba(with_none), est.predict_proba(X))
     model, result = freeze_checked(est, check_rows=with_none)
     (note,) = result.notes
-    assert "None in column 'gas' differently from NaN" in note
+    assert "None in text column 'gas' differently from NaN" in note
     fill = model.feature("gas").fill
     assert f"'gas' missing takes the level {fill!r}" in note
     with pytest.warns(UserWarning, match="SimpleImputer imputes NaN but not None"):

@@ -54,6 +54,7 @@ def result_lines(result) -> list[str]:
                        f"{ratio}")
     if result.self_check is not None:
         out.append(result.self_check.summary())
+        out += [f"note: {note}" for note in result.self_check.notes]
     for note in result.notes:
         out.append(f"warning: {note}")
     return out

@@ -194,7 +194,7 @@ def _score_and_cut(result: FitResult, model: FrozenModel, x) -> FrozenModel:
 
 def _notes(result: FitResult, x) -> list[str]:
     v, spec, label, schema = result.validation, result.spec, result.label, result.schema
-    notes = list(v.notes) + list(result.self_check.notes)
+    notes = list(v.notes)
     train = v.train_index
     if spec.classifier:
         notes += diagnostics.imbalance_notes(label.y, label.classes)
@@ -267,6 +267,8 @@ def _with_provenance(model: FrozenModel, r: FitResult, opts: FitOptions) -> Froz
         "selection": f"lowest mean cross-validated {v.loss_name}",
     }
     created["self_check"] = r.self_check.summary()
+    if r.self_check.notes:
+        created["self_check_notes"] = r.self_check.notes
     if r.frozen_cut is not None:
         created["cut"] = {"rule": opts.cut or "0.5", "probability": r.frozen_cut.threshold,
                           "margin": r.frozen_cut.cut, "moved_for_rounding": r.frozen_cut.moved,

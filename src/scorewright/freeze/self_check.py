@@ -49,7 +49,18 @@ class CheckResult:
     compared: int = 0        # rows both sides scored and compared
     derived: int = 0         # of which rows derived from the model
     unscored: int = 0        # rows the source estimator could not score
-    notes: list[str] = field(default_factory=list)
+    none_rules: dict = field(default_factory=dict)  # column -> the frozen model's rule
+
+    @property
+    def notes(self) -> list[str]:
+        if not self.none_rules:
+            return []
+        plural = "s" if len(self.none_rules) > 1 else ""
+        cols = ", ".join(map(repr, self.none_rules))
+        return [f"the source model reads None in text column{plural} {cols} differently from NaN (scikit-learn's SimpleImputer imputes NaN but "
+                "not None in an object column, so None scores as an unseen level there); "
+                "the frozen model reads both as missing: "
+                + "; ".join(self.none_rules.values())]
 
     def summary(self) -> str:
         line = (f"self-check: the frozen model scores {_rows(self.compared)} "
@@ -267,33 +278,29 @@ def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> N
     result.compared += int(scored.sum())
     bad = scored & _differs(model, source, ref)
     for i in np.flatnonzero(bad):
-        note = _spelling_note(estimator, model, frame.iloc[[int(i)]], ref[i], classifier)
-        if note is None:
+        cols = _none_spelling(estimator, model, frame.iloc[[int(i)]], ref[i], classifier)
+        if not cols:
             raise FreezeMismatch(_mismatch_message(model, what, int(i), records[i],
                                                    source[i], ref[i]))
-        if note not in result.notes:
-            result.notes.append(note)
+        for c in cols:
+            result.none_rules.setdefault(c, _missing_rule(model.feature(c)))
 
 
-def _spelling_note(estimator, model, row_frame, ref_row, classifier) -> str | None:
-    """A note when the row differs only because the source model reads None in a
-    text column differently from NaN; None when the difference is real."""
+def _none_spelling(estimator, model, row_frame, ref_row, classifier) -> list[str]:
+    """The text columns holding None in a row that differs only because the source
+    model reads None there differently from NaN; [] when the difference is real."""
     known = {f.name for f in model.features}
     cols = [c for c in row_frame.columns if c in known and row_frame[c].dtype == object
             and row_frame[c].iloc[0] is None]
     if not cols:
-        return None
+        return []
     fixed = row_frame.copy()
     for c in cols:
         fixed[c] = np.array([math.nan], dtype=object)
     source = _source(estimator, fixed, classifier)[0]
     if not np.all(np.isfinite(source)) or _differs(model, source[None, :], ref_row[None, :])[0]:
-        return None
-    rules = "; ".join(_missing_rule(model.feature(c)) for c in cols)
-    return (f"the source model reads None in column {', '.join(map(repr, cols))} differently "
-            "from NaN (scikit-learn's SimpleImputer imputes NaN but not None in a text "
-            f"column, so None scores as an unseen level there); the frozen model reads both "
-            f"as missing: {rules}")
+        return []
+    return cols
 
 
 def _missing_rule(feat) -> str:
