@@ -33,6 +33,7 @@ from ..model import CategoricalFeature, FrozenModel, NumericFeature
 TOLERANCE = 1e-12
 UNSEEN_TEXT = "\u2063unseen level"   # an invisible separator: no real level starts so
 REFUSAL_BUDGET = 500                 # failed source calls before the rest is left unscored
+DERIVED_FEATURES = 32                # features varied one at a time in derived rows
 EXTREME = 100.0                      # times the feature's own scale, see _extremes
 
 
@@ -146,31 +147,44 @@ def _extremes(feat: NumericFeature) -> list[float]:
 
 
 def _derived_frames(model: FrozenModel, names, base) -> list:
-    """Rows that each change one cell of the base row. Numeric columns are float64
-    (a missing value is NaN, as pandas stores it); categorical columns are object,
-    so None and NaN stay two spellings. Booleans come in their own frame, as a bool
-    column (the dtype the source model was fitted on)."""
-    rows: list[dict] = []
+    """Rows that each change one cell of the base row, missing cells first (a source
+    model without an imputer refuses them, and refusals that sit together cost few
+    calls to find). Numeric columns are float64 (a missing value is NaN, as pandas
+    stores it); text-level columns are object, so None and NaN stay two spellings.
+    Booleans come in their own frame, as a bool column (the dtype the source model
+    was fitted on)."""
+    missing: list[dict] = []
+    others: list[dict] = []
     bool_rows: list[dict] = []
-    for feat in model.features:
-        if isinstance(feat, NumericFeature):
-            if feat.boolean:
-                bool_rows += [dict(base, **{feat.name: v}) for v in (True, False)]
-                continue
-            for value in [math.nan] + _extremes(feat):
-                rows.append(dict(base, **{feat.name: value}))
+    for feat in _sampled(model.features):
+        name = feat.name
+        if isinstance(feat, NumericFeature) and feat.boolean:
+            bool_rows += [dict(base, **{name: v}) for v in (True, False)]
+        elif isinstance(feat, NumericFeature):
+            missing.append(dict(base, **{name: math.nan}))
+            others += [dict(base, **{name: v}) for v in _extremes(feat)]
         else:
             unseen = (max(feat.levels) + 1000 if isinstance(feat.levels[0], int)
                       else UNSEEN_TEXT)
-            for value in (None, math.nan, unseen) + tuple(feat.levels):
-                rows.append(dict(base, **{feat.name: value}))
-    frames = []
+            missing += [dict(base, **{name: v}) for v in (None, math.nan)]
+            others += [dict(base, **{name: v}) for v in (unseen,) + tuple(feat.levels)]
     kinds = {f.name: f for f in model.features}
-    if rows:
-        frames.append(_typed_frame(rows, names, kinds, booleans_as_bool=False))
+    frames = []
+    if missing or others:
+        frames.append(_typed_frame(missing + others, names, kinds, booleans_as_bool=False))
     if bool_rows:
         frames.append(_typed_frame(bool_rows, names, kinds, booleans_as_bool=True))
     return frames
+
+
+def _sampled(features) -> list:
+    """Every feature, or an evenly spread DERIVED_FEATURES of a wide model: each
+    derived row is a whole row, so varying every feature of a wide model one at a
+    time would cost features squared cells (the data rows still cover them all)."""
+    if len(features) <= DERIVED_FEATURES:
+        return list(features)
+    step = len(features) / DERIVED_FEATURES
+    return [features[int(i * step)] for i in range(DERIVED_FEATURES)]
 
 
 def _typed_frame(rows, names, kinds, booleans_as_bool):
