@@ -553,3 +553,31 @@ def test_a_parquet_bool_column_is_a_boolean_feature(tmp_path):
                           (0, (False, 0, "false", "False", np.False_))):
         margins = {score_row(plan, {"load": 0.25, "defrost_on": v}).margins for v in spellings}
         assert len(margins) == 1, (on, margins)
+
+
+def test_a_csv_column_of_true_false_words_is_a_boolean_feature(tmp_path):
+    """pandas writes a bool column to CSV as True/False; fit reads it as 1/0 (not as two
+    text categories, which a Python True would miss), and marks the feature boolean."""
+    from scorewright import load_model
+    from scorewright.reference import score_row
+
+    rng = np.random.default_rng(12)
+    frame = pd.DataFrame({"load": rng.normal(size=240), "defrost_on": rng.random(240) < 0.4})
+    margin = frame.load + 1.5 * frame.defrost_on - 0.6
+    frame["fault"] = (rng.random(240) < 1 / (1 + np.exp(-margin))).astype(int)
+    path = tmp_path / "flags.csv"
+    frame.to_csv(path, index=False)
+    assert "True" in path.read_text()
+    result = CliRunner().invoke(cli, ["fit", str(path), "-o", str(tmp_path / "m.json"),
+                                      "--label", "fault", "--cv", "3"])
+    assert result.exit_code == 0, result.output
+    assert re.search(r"defrost_on\s+numeric\s+missing 0 \(0\.0%\), true/false read as 1/0",
+                     result.output)
+    model = load_model(tmp_path / "m.json")
+    assert model.feature("defrost_on").boolean
+    plan = build_plan(model)
+    on = {score_row(plan, {"load": 0.1, "defrost_on": v}).margins for v in
+          (True, "True", "true", 1)}
+    off = {score_row(plan, {"load": 0.1, "defrost_on": v}).margins for v in
+           (False, "False", "FALSE", 0.0)}
+    assert len(on) == 1 and len(off) == 1 and on != off

@@ -140,13 +140,14 @@ def _task_line(label: Label, spec: Spec) -> str:
 def _freeze(result: FitResult, x, opts: FitOptions) -> FrozenModel:
     """Freeze the refitted pipeline and prove it: the frozen model must score every
     labelled row, and rows derived from it, like the pipeline itself."""
-    from ..freeze import mark_booleans
+    from ..freeze import mark_boolean_features
     from ..freeze.self_check import check_model
     from ..freeze.sklearn import freeze_estimator
 
     pipeline, label = result.validation.pipeline, result.label
     model = freeze_estimator(pipeline, name=opts.name or opts.label)
-    model = mark_booleans(model, result.table.frame)  # the file's own column types
+    booleans = {c.name for c in result.schema.columns if c.boolean}
+    model = mark_boolean_features(model, booleans)
     result.self_check = check_model(pipeline, model, x)
     if label.classes is not None:
         model = replace(model, head=replace(model.head, classes=tuple(label.classes)))

@@ -86,35 +86,14 @@ def mark_booleans(model: FrozenModel, frame) -> FrozenModel:
     """Numeric features whose check column is bool were fitted on booleans."""
     import pandas as pd
 
-    features = []
-    for feat in model.features:
-        if (isinstance(feat, NumericFeature) and not feat.boolean and feat.name in frame
-                and pd.api.types.is_bool_dtype(frame[feat.name].dtype)):
-            feat = replace(feat, boolean=True)
-        features.append(feat)
-    if tuple(features) == model.features:
+    names = {c for c in frame.columns if pd.api.types.is_bool_dtype(frame[c].dtype)}
+    return mark_boolean_features(model, names)
+
+
+def mark_boolean_features(model: FrozenModel, names) -> FrozenModel:
+    """The model with the named numeric features marked boolean (fitted on booleans)."""
+    features = tuple(replace(f, boolean=True) if isinstance(f, NumericFeature)
+                     and f.name in names and not f.boolean else f for f in model.features)
+    if features == model.features:
         return model
-    return replace(model, features=tuple(features)).sealed()
-
-
-def load_pickled_estimator(path: Path):
-    """Unpickle an estimator from a pickle or joblib file. This runs code from the
-    file: callers must have warned the user first."""
-    try:
-        data = path.read_bytes()
-    except OSError as exc:
-        raise ScorewrightError(f"{path}: cannot read ({exc.strerror})") from None
-    if data[:2] in (b"\x1f\x8b", b"BZ", b"\xfd7") or path.suffix == ".joblib":
-        try:
-            import joblib
-        except ImportError:
-            raise ScorewrightError(f"{path}: a joblib file needs the joblib package") from None
-        try:
-            return joblib.load(path)
-        except Exception as exc:  # unpickling can fail in any way the file chooses
-            raise ScorewrightError(f"{path}: cannot load ({type(exc).__name__}: {exc})") from None
-    try:
-        return pickle.loads(data)
-    except Exception as exc:
-        raise ScorewrightError(f"{path}: not a loadable pickle ({type(exc).__name__}: "
-                               f"{str(exc)[:200]})") from None
+    return replace(model, features=features).sealed()
