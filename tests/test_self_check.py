@@ -357,3 +357,24 @@ def test_check_rows_the_source_cannot_score_are_an_error_not_a_pass(tmp_path):
     with pytest.raises(ScorewrightError, match=r"scores none of the 200 rows given to check "
                                                r"\(ValueError: "):
         scorewright.freeze(est, check_rows=wrong)
+
+
+def test_values_near_zero_are_measured_against_their_terms(monkeypatch):
+    """scikit-learn's LinearRegression predicts with a matrix product (its own summation
+    order); a value near zero cancels terms of size ~10, so its rounding is relative to
+    the terms. Rows built to predict ~0 pass; a coefficient off by 1e-9 still fails."""
+    from sklearn.linear_model import LinearRegression
+
+    rng = np.random.default_rng(0)
+    X = pd.DataFrame(rng.normal(50, 10, (2000, 12)), columns=[f"t{i}" for i in range(12)])
+    y = (X.values - 50) @ rng.normal(0, 3, 12)
+    est = make_pipeline(StandardScaler(), LinearRegression()).fit(X, y)
+    near_zero = X.iloc[:300].copy()
+    slope = est.predict(near_zero.assign(t0=near_zero.t0 + 1)) - est.predict(near_zero)
+    near_zero["t0"] = near_zero.t0 - est.predict(near_zero) / slope
+    assert np.median(np.abs(est.predict(near_zero))) < 1e-9
+    model, result = freeze_checked(est, check_rows=near_zero)
+    assert result.compared == 300 + result.derived
+    _nudged(monkeypatch, 1 + 1e-9)
+    with pytest.raises(FreezeMismatch, match="data row 1 "):
+        scorewright.freeze(est, check_rows=near_zero)

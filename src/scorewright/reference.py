@@ -189,6 +189,27 @@ def score_matrix(plan: Plan, matrix: np.ndarray) -> dict[str, np.ndarray]:
     return _finish_matrix(plan, margins)
 
 
+def margin_scale(plan: Plan, matrix: np.ndarray) -> np.ndarray:
+    """Per row and margin, |intercept| plus the sum of |term|: the size of the work a
+    margin's sum does, against which its rounding is measured (n, K). A sum evaluated
+    in another order differs by up to about n * 2^-53 times this, however small the
+    margin itself is."""
+    matrix = np.asarray(matrix, dtype=np.float64)
+    values = [_design_column(inp, matrix[:, inp.index]) if inp.kind == "numeric"
+              else _code_column(inp, matrix[:, inp.index]) for inp in plan.inputs]
+    out = np.empty((matrix.shape[0], plan.n_outputs))
+    for k in range(plan.n_outputs):
+        total = np.full(matrix.shape[0], abs(plan.intercepts[k]))
+        for term in plan.terms:
+            v = values[term.input]
+            if term.kind == "numeric":
+                total = total + np.abs(term.weights[k] * v)
+            else:
+                total = total + np.abs(np.append(np.array(term.tables[k]), 0.0)[v])
+        out[:, k] = total
+    return out
+
+
 def _design_column(inp, col: np.ndarray) -> np.ndarray:
     missing = ~np.isfinite(col)
     if inp.fill is None:

@@ -5,8 +5,8 @@ model equals what the user fitted. Rows (the user's, plus rows derived from the
 model: missing values in both spellings, unseen levels, every level, booleans,
 extremes) are scored by the source estimator itself (predict_proba / predict)
 and by the frozen model's reference evaluator. Any probability that differs by
-more than 1e-12 (absolute), or any value by more than 1e-12 (relative), refuses
-the model, naming the first differing row.
+more than 1e-12 (absolute), or any value by more than 1e-12 (relative, see
+`_differs` for values near zero), refuses the model, naming the first differing row.
 
 Rows the source estimator cannot score (it raises, e.g. on an unseen level with
 handle_unknown='error' or on a missing value with no imputer, or it overflows)
@@ -219,15 +219,18 @@ def _records(frame) -> list[dict]:
             for row in frame.itertuples(index=False, name=None)]
 
 
-def _reference(model: FrozenModel, records) -> np.ndarray:
+def _reference(model: FrozenModel, records) -> tuple[np.ndarray, np.ndarray]:
+    """The reference outputs (n, outputs) and each row's margin scale (n,)."""
     from ..plan import build_plan
-    from ..reference import encode_rows, score_matrix
+    from ..reference import encode_rows, margin_scale, score_matrix
 
     plan = build_plan(model)
-    out = score_matrix(plan, encode_rows(plan, records))
+    matrix = encode_rows(plan, records)
+    out = score_matrix(plan, matrix)
+    scale = margin_scale(plan, matrix).max(axis=1)
     if model.head.task == "regression":
-        return out["value"].reshape(-1, 1)
-    return out["probabilities"]
+        return out["value"].reshape(-1, 1), scale
+    return out["probabilities"], scale
 
 
 def _source(estimator, frame, classifier: bool, errors: list | None = None) -> np.ndarray:
@@ -263,18 +266,28 @@ def _widen(block, width):
     return np.full((block.shape[0], width), math.nan)
 
 
-def _differs(model: FrozenModel, source: np.ndarray, ref: np.ndarray) -> np.ndarray:
+def _differs(model: FrozenModel, source: np.ndarray, ref: np.ndarray,
+             work: np.ndarray) -> np.ndarray:
+    """Rows where the two sides differ: probabilities by more than TOLERANCE, values
+    by more than TOLERANCE relative. scikit-learn sums a margin as a matrix product,
+    in its own order, so its rounding is relative to the margin's terms (`work`), not
+    to the value: an identity-link value near zero may come from terms of size 10,
+    and a log-link value carries the margin's absolute rounding as relative error."""
     gap = np.abs(source - ref)
-    if model.head.task == "regression":
-        scale = np.maximum(np.abs(source), np.abs(ref))
-        return np.any(gap > TOLERANCE * scale, axis=1)
-    return np.any(gap > TOLERANCE, axis=1)
+    if model.head.task != "regression":
+        return np.any(gap > TOLERANCE, axis=1)
+    size = np.maximum(np.abs(source), np.abs(ref))
+    if model.head.link == "identity":
+        size = np.maximum(size, work[:, None])
+    else:
+        size = size * np.maximum(1.0, work)[:, None]
+    return np.any(gap > TOLERANCE * size, axis=1)
 
 
 def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> None:
     classifier = model.head.task != "regression"
     records = _records(frame)
-    ref = _reference(model, records)
+    ref, work = _reference(model, records)
     errors: list = []
     source = _source(estimator, frame, classifier, errors)
     scored = np.isfinite(source).all(axis=1)
@@ -290,9 +303,10 @@ def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> N
         return
     result.unscored += int((~scored).sum())
     result.compared += int(scored.sum())
-    bad = scored & _differs(model, source, ref)
+    bad = scored & _differs(model, source, ref, work)
     for i in np.flatnonzero(bad):
-        cols = _none_spelling(estimator, model, frame.iloc[[int(i)]], ref[i], classifier)
+        cols = _none_spelling(estimator, model, frame.iloc[[int(i)]], ref[i], work[i],
+                              classifier)
         if not cols:
             raise FreezeMismatch(_mismatch_message(model, what, int(i), records[i],
                                                    source[i], ref[i]))
@@ -300,7 +314,7 @@ def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> N
             result.none_rules.setdefault(c, _missing_rule(model.feature(c)))
 
 
-def _none_spelling(estimator, model, row_frame, ref_row, classifier) -> list[str]:
+def _none_spelling(estimator, model, row_frame, ref_row, work, classifier) -> list[str]:
     """The text columns holding None in a row that differs only because the source
     model reads None there differently from NaN; [] when the difference is real."""
     known = {f.name for f in model.features}
@@ -312,7 +326,8 @@ def _none_spelling(estimator, model, row_frame, ref_row, classifier) -> list[str
     for c in cols:
         fixed[c] = np.array([math.nan], dtype=object)
     source = _source(estimator, fixed, classifier)[0]
-    if not np.all(np.isfinite(source)) or _differs(model, source[None, :], ref_row[None, :])[0]:
+    if not np.all(np.isfinite(source)) or _differs(model, source[None, :], ref_row[None, :],
+                                                   np.array([work]))[0]:
         return []
     return cols
 
