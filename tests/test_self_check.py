@@ -378,3 +378,17 @@ def test_values_near_zero_are_measured_against_their_terms(monkeypatch):
     _nudged(monkeypatch, 1 + 1e-9)
     with pytest.raises(FreezeMismatch, match="data row 1 "):
         scorewright.freeze(est, check_rows=near_zero)
+
+
+def test_log_link_margins_beyond_the_guard_are_not_compared():
+    """Past -708 the frozen log link clamps its exp argument (the plan's guard, so no
+    target underflows to a subnormal); scikit-learn's exp underflows to 0 there. Such
+    rows are counted, not failed."""
+    rng = np.random.default_rng(2)
+    X = pd.DataFrame({"load": rng.normal(0, 1, 400)})
+    y = rng.poisson(np.exp(0.2 + 2.0 * X.load))
+    est = make_pipeline(StandardScaler(), PoissonRegressor(alpha=0.0)).fit(X, y)
+    far = pd.DataFrame({"load": [-500.0, -1000.0, 0.5]})
+    assert est.predict(far)[1] < 1e-300
+    _, result = freeze_checked(est, check_rows=far)
+    assert result.guarded >= 2 and "exp guard" in result.summary()

@@ -50,6 +50,7 @@ class CheckResult:
     compared: int = 0        # rows both sides scored and compared
     derived: int = 0         # of which rows derived from the model
     unscored: int = 0        # rows the source estimator could not score
+    guarded: int = 0         # rows whose log-link margin meets the frozen exp guard
     none_rules: dict = field(default_factory=dict)  # column -> the frozen model's rule
 
     @property
@@ -70,6 +71,9 @@ class CheckResult:
         if self.unscored:
             line += (f"; {_rows(self.unscored)} the source estimator cannot score "
                      f"{'were' if self.unscored > 1 else 'was'} skipped")
+        if self.guarded:
+            line += (f"; {_rows(self.guarded)} whose margin is beyond the frozen model's exp "
+                     "guard (where it clamps by design) not compared")
         return line
 
 
@@ -219,8 +223,10 @@ def _records(frame) -> list[dict]:
             for row in frame.itertuples(index=False, name=None)]
 
 
-def _reference(model: FrozenModel, records) -> tuple[np.ndarray, np.ndarray]:
-    """The reference outputs (n, outputs) and each row's margin scale (n,)."""
+def _reference(model: FrozenModel, records):
+    """The reference outputs (n, outputs), each row's margin scale (n,), and which
+    rows meet the log link's guard (n,): there the frozen model clamps the exp
+    argument by design, where scikit-learn underflows to 0 or overflows."""
     from ..plan import build_plan
     from ..reference import encode_rows, margin_scale, score_matrix
 
@@ -228,9 +234,13 @@ def _reference(model: FrozenModel, records) -> tuple[np.ndarray, np.ndarray]:
     matrix = encode_rows(plan, records)
     out = score_matrix(plan, matrix)
     scale = margin_scale(plan, matrix).max(axis=1)
-    if model.head.task == "regression":
-        return out["value"].reshape(-1, 1), scale
-    return out["probabilities"], scale
+    if model.head.task != "regression":
+        return out["probabilities"], scale, np.zeros(len(records), dtype=bool)
+    m = out["margins"][:, 0]
+    guarded = np.zeros(len(records), dtype=bool)
+    if plan.link == "log":
+        guarded = (m < -plan.precision.exp_guard) | (m > plan.precision.log_link_max)
+    return out["value"].reshape(-1, 1), scale, guarded
 
 
 def _source(estimator, frame, classifier: bool, errors: list | None = None) -> np.ndarray:
@@ -287,7 +297,7 @@ def _differs(model: FrozenModel, source: np.ndarray, ref: np.ndarray,
 def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> None:
     classifier = model.head.task != "regression"
     records = _records(frame)
-    ref, work = _reference(model, records)
+    ref, work, guarded = _reference(model, records)
     errors: list = []
     source = _source(estimator, frame, classifier, errors)
     scored = np.isfinite(source).all(axis=1)
@@ -302,6 +312,8 @@ def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> N
         result.unscored += len(frame)
         return
     result.unscored += int((~scored).sum())
+    result.guarded += int((scored & guarded).sum())
+    scored = scored & ~guarded
     result.compared += int(scored.sum())
     bad = scored & _differs(model, source, ref, work)
     for i in np.flatnonzero(bad):
