@@ -111,7 +111,8 @@ def test_csv_and_in_memory_give_identical_results(name, tmp_path):
 
 
 def test_odd_values_follow_the_documented_missing_rules(tmp_path):
-    """Wrong types never raise: they are missing (numeric) or unseen (categorical)."""
+    """Wrong types never raise: they are missing (numeric) or unseen (categorical); a bool
+    is 1/0 in a numeric column and unseen among text levels."""
     tm = models.build("fault_binary")
     scorer = _import(_write(tm.model, tmp_path))
     base = tm.frame.iloc[0].to_dict()
@@ -119,6 +120,10 @@ def test_odd_values_follow_the_documented_missing_rules(tmp_path):
     for odd in ("hot", decimal.Decimal("80.5"), 10 ** 400, math.inf, -math.inf,
                 math.nan, "", "1_000", [1.0]):
         assert scorer.margin(dict(base, discharge_temp_c=odd)) == scorer.margin(as_missing), odd
+    # A bool is 1/0, as scikit-learn reads it in a numeric column.
+    for flag in (True, False):
+        assert scorer.margin(dict(base, discharge_temp_c=flag)) == scorer.margin(
+            dict(base, discharge_temp_c=float(flag)))
     # Numeric text is read with the strict decimal grammar, blanks allowed.
     text = dict(base, discharge_temp_c=" 81.25 ")
     assert scorer.margin(text) == scorer.margin(dict(base, discharge_temp_c=81.25))
