@@ -426,3 +426,158 @@ def test_fit_is_deterministic(tmp_path):
     first = fit_file(data, opts, progress=False).model
     second = fit_file(data, opts, progress=False).model
     assert first.to_json() == second.to_json()
+
+
+# ---------------------------------------------------------------- rows without a label
+
+def _labelled_rows(n: int, empty: int) -> str:
+    """A 0/1 label whose first `empty` cells are empty (invented readings)."""
+    rng = np.random.default_rng(15)
+    lines = ["a,b,zone,y"]
+    for i in range(n):
+        a, b = rng.normal(), rng.normal()
+        zone = ("north", "south", "east")[i % 3]
+        y = int(rng.random() < 1.0 / (1.0 + math.exp(b - a)))
+        lines.append(f"{a:.4f},{b:.4f},{zone},{'' if i < empty else y}")
+    return "\n".join(lines) + "\n"
+
+
+def _string_modes():
+    """pandas' two readings of text: its string dtype (the default from pandas 3, opt-in
+    with future.infer_string in pandas 2) and plain object columns (the default before
+    pandas 3; still selectable in 3.x, with a deprecation warning)."""
+    import warnings
+
+    modes = [True]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        before = pd.options.future.infer_string
+        try:
+            pd.options.future.infer_string = False
+            modes.append(False)
+        except (ValueError, pd.errors.OptionError):
+            pass
+        pd.options.future.infer_string = before
+    return modes
+
+
+@pytest.mark.filterwarnings("ignore:.*infer_string")
+@pytest.mark.parametrize("infer_string", _string_modes())
+@pytest.mark.parametrize("empty", [1, 20])
+def test_rows_without_a_label_are_left_out_and_counted(tmp_path, monkeypatch, empty,
+                                                       infer_string):
+    """An empty label cell is no class: one gave a traceback, twenty a class 'nan'."""
+    monkeypatch.setattr(pd.options.future, "infer_string", infer_string)
+    data = _write(tmp_path / "data.csv", _labelled_rows(200, empty))
+    out = tmp_path / "model.json"
+    result = CliRunner().invoke(cli, ["fit", str(data), "-o", str(out), "--label", "y",
+                                      "--cv", "3", "--report", str(tmp_path / "rep")])
+    assert result.exit_code == 0, result.output
+    assert f"left out {empty} of 200 rows with no label 'y'" in result.output
+    model = json.loads(out.read_text())
+    assert model["head"]["classes"] == [0, 1]
+    data_prov = model["provenance"]["inputs"]["data"]
+    assert data_prov["rows_without_label"] == empty
+    assert data_prov["rows_train"] + data_prov["rows_test"] == 200 - empty
+    html = (tmp_path / "rep" / "report.html").read_text()
+    assert f"<tr><th>rows without a label (left out)</th><td>{empty}</td></tr>" in html
+    # the self-check ran on the labelled rows (and rows derived from the model)
+    check = model["provenance"]["created"]["self_check"]
+    assert check.startswith(f"self-check: the frozen model scores {200 - empty + 12} rows "
+                            "(12 derived from the model)")
+    assert f"<p>{check}." in html and check in result.output
+
+
+def test_integer_coded_categories_match_integral_values_of_any_type(tmp_path):
+    """A CSV column of whole-number codes was frozen as text levels, so a DOUBLE 2.0
+    (another loader) became an unseen level; integer levels match 2, 2.0 and '2'."""
+    import importlib.util
+
+    from scorewright.emit import emitter
+    from scorewright.reference import score_row
+
+    rng = np.random.default_rng(6)
+    lines = ["load,shift,y"]
+    for _ in range(300):
+        load, shift = rng.normal(), int(rng.integers(1, 4))
+        y = int(rng.random() < 1.0 / (1.0 + math.exp(-(load + 1.5 * (shift == 3) - 0.5))))
+        lines.append(f"{load:.4f},{shift},{y}")
+    data = _write(tmp_path / "codes.csv", "\n".join(lines) + "\n")
+    result = fit_file(data, FitOptions(label="y", categorical=["shift"], cv=3), progress=False)
+    feat = result.model.feature("shift")
+    assert feat.levels == (1, 2, 3)
+    (art,) = emitter("python")(result.model, {})
+    path = tmp_path / art.name
+    path.write_bytes(art.content)
+    spec = importlib.util.spec_from_file_location("codes_scorer", path)
+    scorer = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(scorer)
+    plan = build_plan(result.model)
+    for code in (1, 2, 3):
+        spellings = [code, float(code), str(code), f" {code}.0 ", np.int64(code),
+                     np.float64(code)]
+        margins = {score_row(plan, {"load": 0.5, "shift": v}).margins[0] for v in spellings}
+        assert len(margins) == 1, (code, margins)
+        assert {scorer.margin({"load": 0.5, "shift": v}) for v in spellings} == margins
+    unseen = score_row(plan, {"load": 0.5, "shift": 9}).margins
+    assert score_row(plan, {"load": 0.5, "shift": 3.0}).margins != unseen
+
+
+def test_codes_spelled_two_ways_stay_text(tmp_path):
+    """'7' and '07' are two categories in the data: they stay text levels."""
+    lines = ["load,code,y"] + [f"{i % 7 / 7:.3f},{('7', '07', '8')[i % 3]},{i % 2}"
+                               for i in range(60)]
+    data = _write(tmp_path / "codes.csv", "\n".join(lines) + "\n")
+    result = fit_file(data, FitOptions(label="y", categorical=["code"], cv=3), progress=False)
+    assert result.model.feature("code").levels == ("07", "7", "8")
+
+
+def test_a_parquet_bool_column_is_a_boolean_feature(tmp_path):
+    """pyarrow reads a Parquet bool column as bool; fit reads it as 0/1, the model records
+    it, and True, 1 and the text 'true' score alike."""
+    from scorewright.reference import score_row
+
+    rng = np.random.default_rng(9)
+    n = 240
+    frame = pd.DataFrame({"load": rng.normal(size=n), "defrost_on": rng.random(n) < 0.4})
+    margin = frame.load + 1.5 * frame.defrost_on - 0.6
+    frame["fault"] = (rng.random(n) < 1 / (1 + np.exp(-margin))).astype(int)
+    path = tmp_path / "flags.parquet"
+    frame.to_parquet(path)
+    result = fit_file(path, FitOptions(label="fault", cv=3), progress=False)
+    assert result.model.feature("defrost_on").boolean
+    assert "self-check: the frozen model scores" in result.model.provenance["created"][
+        "self_check"]
+    plan = build_plan(result.model)
+    for on, spellings in ((1, (True, 1, 1.0, "true", " TRUE", np.True_)),
+                          (0, (False, 0, "false", "False", np.False_))):
+        margins = {score_row(plan, {"load": 0.25, "defrost_on": v}).margins for v in spellings}
+        assert len(margins) == 1, (on, margins)
+
+
+def test_a_csv_column_of_true_false_words_is_a_boolean_feature(tmp_path):
+    """pandas writes a bool column to CSV as True/False; fit reads it as 1/0 (not as two
+    text categories, which a Python True would miss), and marks the feature boolean."""
+    from scorewright import load_model
+    from scorewright.reference import score_row
+
+    rng = np.random.default_rng(12)
+    frame = pd.DataFrame({"load": rng.normal(size=240), "defrost_on": rng.random(240) < 0.4})
+    margin = frame.load + 1.5 * frame.defrost_on - 0.6
+    frame["fault"] = (rng.random(240) < 1 / (1 + np.exp(-margin))).astype(int)
+    path = tmp_path / "flags.csv"
+    frame.to_csv(path, index=False)
+    assert "True" in path.read_text()
+    result = CliRunner().invoke(cli, ["fit", str(path), "-o", str(tmp_path / "m.json"),
+                                      "--label", "fault", "--cv", "3"])
+    assert result.exit_code == 0, result.output
+    assert re.search(r"defrost_on\s+numeric\s+missing 0 \(0\.0%\), true/false read as 1/0",
+                     result.output)
+    model = load_model(tmp_path / "m.json")
+    assert model.feature("defrost_on").boolean
+    plan = build_plan(model)
+    on = {score_row(plan, {"load": 0.1, "defrost_on": v}).margins for v in
+          (True, "True", "true", 1)}
+    off = {score_row(plan, {"load": 0.1, "defrost_on": v}).margins for v in
+           (False, "False", "FALSE", 0.0)}
+    assert len(on) == 1 and len(off) == 1 and on != off

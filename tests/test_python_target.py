@@ -95,7 +95,8 @@ def test_csv_and_in_memory_give_identical_results(name, tmp_path):
     writer = csv.writer(buf, lineterminator="\r\n")  # quotes a lone "\r" too
     writer.writerow(["unit_note"] + names)
     for i, row in enumerate(rows):
-        writer.writerow([f"note {i}"] + [csv_cell(row.get(n)) for n in names])
+        writer.writerow([f"note {i}"] + [csv_cell(row.get(inp.name), inp)
+                                         for inp in plan.inputs])
     proc = subprocess.run([sys.executable, "-I", "-S", str(path)], input=buf.getvalue(),
                           capture_output=True, text=True)
     assert proc.returncode == 0, proc.stderr
@@ -110,14 +111,19 @@ def test_csv_and_in_memory_give_identical_results(name, tmp_path):
 
 
 def test_odd_values_follow_the_documented_missing_rules(tmp_path):
-    """Wrong types never raise: they are missing (numeric) or unseen (categorical)."""
+    """Wrong types never raise: they are missing (numeric) or unseen (categorical); a bool
+    is 1/0 in a numeric column and unseen among text levels."""
     tm = models.build("fault_binary")
     scorer = _import(_write(tm.model, tmp_path))
     base = tm.frame.iloc[0].to_dict()
     as_missing = dict(base, discharge_temp_c=None)
-    for odd in ("hot", True, decimal.Decimal("80.5"), 10 ** 400, math.inf, -math.inf,
+    for odd in ("hot", decimal.Decimal("80.5"), 10 ** 400, math.inf, -math.inf,
                 math.nan, "", "1_000", [1.0]):
         assert scorer.margin(dict(base, discharge_temp_c=odd)) == scorer.margin(as_missing), odd
+    # A bool is 1/0, as scikit-learn reads it in a numeric column.
+    for flag in (True, False):
+        assert scorer.margin(dict(base, discharge_temp_c=flag)) == scorer.margin(
+            dict(base, discharge_temp_c=float(flag)))
     # Numeric text is read with the strict decimal grammar, blanks allowed.
     text = dict(base, discharge_temp_c=" 81.25 ")
     assert scorer.margin(text) == scorer.margin(dict(base, discharge_temp_c=81.25))

@@ -73,26 +73,36 @@ def _split_names(text: str | None) -> list[str] | None:
               help="Where to write the frozen model (JSON).")
 @click.option("--name", help="Model name (default: the estimator's class).")
 @click.option("--feature-names", help="Comma-separated input names, when the model has none.")
+@click.option("--check-data", type=click.Path(dir_okay=False),
+              help="CSV or Parquet rows of raw inputs: the frozen model must score them "
+                   "like the source estimator (rows derived from the model are always "
+                   "checked).")
 @click.option("--force", is_flag=True, help="Overwrite an existing output file.")
-def freeze(pickle_file, output, name, feature_names, force):
+def freeze(pickle_file, output, name, feature_names, check_data, force):
     """Freeze a fitted scikit-learn model from a pickle or joblib file.
 
-    Unpickling runs code stored in the file: use only files you trust. The
-    in-process API, scorewright.freeze(estimator), avoids this.
+    The frozen model is scored against the source estimator before it is written;
+    a model that scores differently is refused. Unpickling runs code stored in
+    the file: use only files you trust. The in-process API,
+    scorewright.freeze(estimator), avoids this.
     """
     from .files import check_writable
-    from .freeze import PICKLE_WARNING, freeze as freeze_estimator, load_pickled_estimator
+    from .freeze import PICKLE_WARNING, freeze_checked, load_pickled_estimator, read_check_data
 
     src, out = Path(pickle_file), Path(output)
     if not src.is_file():
         raise ScorewrightError(f"{src}: no such file")
     check_writable(out, force)
+    rows = None if check_data is None else read_check_data(Path(check_data))
     click.echo(PICKLE_WARNING.format(path=src), err=True)
     estimator = load_pickled_estimator(src)
-    model = freeze_estimator(estimator, feature_names=_split_names(feature_names), name=name)
+    model, checked = freeze_checked(estimator, feature_names=_split_names(feature_names),
+                                    name=name, check_rows=rows)
+    for note in checked.notes:
+        click.echo(f"note: {note}", err=True)
     model.write(out, force=force)
-    click.echo(f"froze {model.name} ({len(model.features)} features, {model.head.task}) "
-               f"to {out}\nsha256 {model.sha256}")
+    click.echo(f"{checked.summary()}\nfroze {model.name} ({len(model.features)} features, "
+               f"{model.head.task}) to {out}\nsha256 {model.sha256}")
 
 
 def _name_list(option: str, text: str | None) -> list[str] | None:

@@ -46,7 +46,9 @@ def describe_model(model: FrozenModel) -> str:
                        else f"missing -> {feat.fill!r}")
             steps = " ".join(f"{s.op} {s.value!r}" for s in feat.scaling) or "none"
             clip = "" if feat.clip is None else f", clip to [{feat.clip[0]!r}, {feat.clip[1]!r}]"
-            out.append(f"  {feat.name!r}  numeric; {missing}; scaling: {steps}{clip}; "
+            kind = ("numeric, fitted on booleans (true/false read as 1/0)" if feat.boolean
+                    else "numeric")
+            out.append(f"  {feat.name!r}  {kind}; {missing}; scaling: {steps}{clip}; "
                        f"input guard |x| <= {inp.bound:g}")
         else:
             missing = ("missing -> as unseen" if feat.fill is None

@@ -72,6 +72,7 @@ class NumericInput:
     bound: float
     steps: tuple[ScalingStep, ...]
     clip: tuple[float, float] | None
+    boolean: bool = False   # fitted on a bool column: the words true/false read as 1/0
     kind: str = "numeric"
 
 
@@ -177,7 +178,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
     for i, feat in enumerate(model.features):
         if isinstance(feat, NumericFeature):
             bound = _numeric_bound(feat, term_of.get(i), budgets, prec)
-            built.append(NumericInput(i, feat.name, feat.fill, bound, feat.scaling, feat.clip))
+            built.append(NumericInput(i, feat.name, feat.fill, bound, feat.scaling, feat.clip,
+                                      feat.boolean))
         else:
             built.append(_categorical_input(i, feat))
     return Plan(

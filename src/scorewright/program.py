@@ -280,7 +280,8 @@ def run_row(program: Program, row: Mapping) -> dict[str, Any]:
     for op in program.ops:
         args = [a.value if isinstance(a, Const) else env[a] for a in op.args]
         if op.op == "read_real":
-            raw = numeric_value(row.get(plan.inputs[op.attr].name))
+            inp = plan.inputs[op.attr]
+            raw = numeric_value(row.get(inp.name), inp.boolean)
             value = math.nan if raw is None else raw
         elif op.op == "read_code":
             inp = plan.inputs[op.attr]
@@ -330,6 +331,29 @@ VECTOR = {
 def run_matrix(program: Program, matrix: np.ndarray) -> dict[str, np.ndarray]:
     """The outputs for many rows, from the matrix `reference.encode_rows` makes (numeric
     values as doubles, NaN missing; categorical values as level codes)."""
+    return _run_matrix(program, matrix)[0]
+
+
+def sum_magnitudes(program: Program, matrix: np.ndarray) -> dict[str, np.ndarray]:
+    """For each margin output that is an ordered sum, per row, the sum of its operands'
+    magnitudes |t_0| + |t_1| + ... (a constant margin: its magnitude)."""
+    out, env = _run_matrix(program, matrix)
+    n = np.asarray(matrix).shape[0]
+    by_dest = {op.dest: op for op in program.ops}
+    sizes = {}
+    for op in program.ops:
+        if op.op == "output" and op.attr.startswith("margin_"):
+            src = by_dest.get(op.args[0]) if isinstance(op.args[0], str) else None
+            if src is not None and src.op == "sum":
+                terms = [abs(a.value) if isinstance(a, Const) else np.abs(env[a])
+                         for a in src.args]
+                sizes[op.attr] = _sum_left(*terms) + np.zeros(n)
+            else:
+                sizes[op.attr] = np.abs(out[op.attr])
+    return sizes
+
+
+def _run_matrix(program: Program, matrix: np.ndarray):
     plan = program.plan
     matrix = np.asarray(matrix, dtype=np.float64)
     n = matrix.shape[0]
@@ -351,4 +375,4 @@ def run_matrix(program: Program, matrix: np.ndarray) -> dict[str, np.ndarray]:
         else:
             value = VECTOR[op.op](*args)
         env[op.dest] = value
-    return out
+    return out, env

@@ -16,7 +16,7 @@ from typing import Mapping
 import numpy as np
 
 from .plan import NumericInput, Plan
-from .program import Program, lower, run_numeric, run_matrix, run_row
+from .program import Program, lower, run_matrix, run_numeric, run_row, sum_magnitudes
 from .values import category_code, numeric_value
 
 
@@ -74,7 +74,7 @@ def encode_rows(plan: Plan, rows) -> np.ndarray:
         for inp in plan.inputs:
             raw = row.get(inp.name)
             if inp.kind == "numeric":
-                v = numeric_value(raw)
+                v = numeric_value(raw, inp.boolean)
                 out[r, inp.index] = math.nan if v is None else v
             else:
                 out[r, inp.index] = category_code(inp.levels, raw)
@@ -95,3 +95,14 @@ def score_matrix(plan: Plan, matrix: np.ndarray) -> dict[str, np.ndarray]:
             [out[f"probability_{j}"] for j in range(len(plan.classes))], axis=1)
         result["class_index"] = out["class_index"].astype(np.int64)
     return result
+
+
+def margin_scale(plan: Plan, matrix: np.ndarray) -> np.ndarray:
+    """Per row and margin, |intercept| plus the sum of |term|: the size of the work a
+    margin's sum does, against which its rounding is measured (n, K). A sum evaluated
+    in another order differs by up to about n * 2^-53 times this, however small the
+    margin itself is."""
+    out = sum_magnitudes(program_of(plan), matrix)
+    n = np.asarray(matrix).shape[0]
+    return np.stack([out[f"margin_{k}"] for k in range(plan.n_outputs)], axis=1).reshape(
+        n, plan.n_outputs)

@@ -3,14 +3,17 @@
 The emitted Python scorer carries a copy of these rules (it may import nothing
 but the standard library); tests hold the two to the same cases.
 
-Numeric: int (not bool) and float values are used as they are; a string is
-parsed with a strict decimal grammar (surrounding blanks allowed); anything else
-(None, absent, bool, NaN, +-inf, an unparseable string, an int beyond double
-range) is missing.
+Numeric: int and float values are used as they are; a bool (Python's or
+numpy's) is 1.0 or 0.0, as scikit-learn reads it in any numeric column; a string
+is parsed with a strict decimal grammar (surrounding blanks allowed), and for a
+feature fitted on a boolean column the words true/false (any case) are 1.0/0.0;
+anything else (None, absent, NaN, +-inf, an unparseable string, an int beyond
+double range) is missing.
 Categorical, string levels: a str equal to a level; an int (not bool) is
-compared by its decimal text. Integer levels: an int, an integral float, or a
-string holding an integral number. None, NaN and "" are missing; any other value
-is unseen.
+compared by its decimal text. Integer levels: an int, a bool (1/0, as a
+OneHotEncoder fitted on a bool column has categories [False, True]), an
+integral float, or a string holding an integral number. None, NaN and "" are
+missing; any other value is unseen.
 """
 
 from __future__ import annotations
@@ -20,15 +23,33 @@ import numbers
 import re
 
 NUMBER = re.compile(r"\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*\Z")
+BOOLEAN_WORDS = {"true": 1.0, "false": 0.0}
 MISSING_CODE = -1
 UNSEEN_CODE = -2
 
 
-def numeric_value(value) -> float | None:
-    """The finite double a raw value stands for, or None when it is missing."""
-    if value is None or isinstance(value, bool):
+def is_bool(value) -> bool:
+    """A Python bool or a numpy bool scalar (numpy's is no subclass of bool)."""
+    if isinstance(value, bool):
+        return True
+    dtype = getattr(value, "dtype", None)
+    return getattr(dtype, "kind", None) == "b" and getattr(value, "ndim", 1) == 0
+
+
+def numeric_value(value, boolean: bool = False) -> float | None:
+    """The finite double a raw value stands for, or None when it is missing.
+
+    `boolean`: the feature was fitted on a boolean column, so the words
+    true/false also read as 1.0/0.0."""
+    if value is None:
         return None
+    if is_bool(value):
+        return 1.0 if value else 0.0
     if isinstance(value, str):
+        if boolean:
+            word = BOOLEAN_WORDS.get(value.strip().lower())
+            if word is not None:
+                return word
         match = NUMBER.match(value)
         if match is None:
             return None
@@ -49,10 +70,10 @@ def category_code(levels: tuple, value) -> int:
     """The level code of a raw value: 0..L-1, MISSING_CODE or UNSEEN_CODE."""
     if value is None or value == "" or (isinstance(value, float) and math.isnan(value)):
         return MISSING_CODE
-    if isinstance(value, bool):
-        return UNSEEN_CODE
     if isinstance(levels[0], int):
-        key = _integral(value)
+        key = int(bool(value)) if is_bool(value) else _integral(value)
+    elif is_bool(value):
+        key = None
     elif isinstance(value, str):
         key = value
     elif isinstance(value, numbers.Integral):

@@ -29,7 +29,8 @@ PYTHON = Spelling(
     reassign=lambda name, value: f"{name} = {value}",
     ops={
         # _number gives None for a missing value; a select replaces it before any use.
-        "read_real": "_number({src})",
+        # a feature fitted on booleans also reads the words true/false
+        "read_real": "_number({src}, {inp.boolean})",
         "read_code": "_code(_LEVELS_{inp.index}, {inp.integer_levels}, {src})",
         "is_missing": "{0} is None",
         "add": "{0} + {1}", "sub": "{0} - {1}", "mul": "{0} * {1}", "div": "{0} / {1}",

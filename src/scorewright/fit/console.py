@@ -52,6 +52,9 @@ def result_lines(result) -> list[str]:
             out.append(f"  {row['term']:<28} {row['estimate']:>11.5g} "
                        f"({row['ci_low']:.4g}, {row['ci_high']:.4g})  p {row['p_value']:.3g}"
                        f"{ratio}")
+    if result.self_check is not None:
+        out.append(result.self_check.summary())
+        out += [f"note: {note}" for note in result.self_check.notes]
     for note in result.notes:
         out.append(f"warning: {note}")
     return out

@@ -31,9 +31,8 @@ class Label:
 def read_label(series, name: str, model: str | None, positive: str | None) -> Label:
     import pandas as pd
 
-    text = series.astype(object).where(~series.isna(), None)
-    text = text.map(lambda v: v.strip() if isinstance(v, str) else v)
-    kept = text.map(lambda v: v is not None and v != "").to_numpy(dtype=bool)
+    text = pd.Series(_cells(series), index=series.index, dtype=object)
+    kept = np.array([v is not None for v in text], dtype=bool)
     missing = int((~kept).sum())
     if not kept.any():
         raise ScorewrightError(f"label column {name!r} has no values")
@@ -83,6 +82,21 @@ def read_label(series, name: str, model: str | None, positive: str | None) -> La
     neg = 1 - pos
     y = (codes == pos).astype(np.int64)
     return Label(name, model, y, (levels[neg], levels[pos]), kept, missing)
+
+
+def _cells(series) -> list:
+    """The label cells as plain values: text stripped, None for an empty or missing cell.
+
+    Built as a list, not with Series.map: pandas 3 infers its string dtype for a
+    mapped column of text and turns None back into NaN, which then reads as the
+    class 'nan'."""
+    missing = series.isna().to_numpy()
+    out = []
+    for value, absent in zip(series.astype(object).tolist(), missing):
+        if isinstance(value, str):
+            value = value.strip()
+        out.append(None if absent or value == "" else value)
+    return out
 
 
 def _typed_levels(values, numbers, whole):

@@ -71,6 +71,7 @@ class FitResult:
     inference: object = None
     frozen_cut: FrozenCut | None = None
     reference_gap: float = 0.0                 # max |reference - scikit-learn| on test rows
+    self_check: object = None                  # freeze.self_check.CheckResult
     notes: list = field(default_factory=list)
 
 
@@ -118,7 +119,7 @@ def fit_table(table: Table, opts: FitOptions, progress: bool = True, echo=None) 
         echo(line)
     v = validate(schema, x, label, spec, rule, opts.cv, opts.test_fraction, progress=progress)
     result = FitResult(None, table, schema, label, spec, v, summary)
-    model = _freeze(v, schema, label, opts)
+    model = _freeze(result, x, opts)
     model = _score_and_cut(result, model, x)
     result.notes = _notes(result, x)
     result.model = _with_provenance(model, result, opts)
@@ -136,10 +137,18 @@ def _task_line(label: Label, spec: Spec) -> str:
     return line + " (change with --model, --penalty)"
 
 
-def _freeze(v: Validation, schema, label: Label, opts: FitOptions) -> FrozenModel:
-    from ..freeze import freeze
+def _freeze(result: FitResult, x, opts: FitOptions) -> FrozenModel:
+    """Freeze the refitted pipeline and prove it: the frozen model must score every
+    labelled row, and rows derived from it, like the pipeline itself."""
+    from ..freeze import mark_boolean_features
+    from ..freeze.self_check import check_model
+    from ..freeze.sklearn import freeze_estimator
 
-    model = freeze(v.pipeline, name=opts.name or opts.label)
+    pipeline, label = result.validation.pipeline, result.label
+    model = freeze_estimator(pipeline, name=opts.name or opts.label)
+    booleans = {c.name for c in result.schema.columns if c.boolean}
+    model = mark_boolean_features(model, booleans)
+    result.self_check = check_model(pipeline, model, x)
     if label.classes is not None:
         model = replace(model, head=replace(model.head, classes=tuple(label.classes)))
     return model
@@ -258,6 +267,9 @@ def _with_provenance(model: FrozenModel, r: FitResult, opts: FitOptions) -> Froz
         "test_fraction": opts.test_fraction, "seed": opts.seed,
         "selection": f"lowest mean cross-validated {v.loss_name}",
     }
+    created["self_check"] = r.self_check.summary()
+    if r.self_check.notes:
+        created["self_check_notes"] = r.self_check.notes
     if r.frozen_cut is not None:
         created["cut"] = {"rule": opts.cut or "0.5", "probability": r.frozen_cut.threshold,
                           "margin": r.frozen_cut.cut, "moved_for_rounding": r.frozen_cut.moved,

@@ -2,7 +2,8 @@
 
 The rules (printed with the summary so the user can check them):
 - a column whose values all read as numbers is numeric; +-inf counts as missing,
-  as the scorers treat it;
+  as the scorers treat it; a column of booleans, or of the words true/false only,
+  is numeric 1/0 and its feature is marked boolean;
 - a column that is mostly numbers with some text in it is an error (a stray word
   in a column of readings is a data fault, not a category);
 - any other column is categorical, up to `max_levels` levels;
@@ -32,6 +33,7 @@ class Column:
     missing: int
     levels: tuple = ()       # categorical, sorted as the encoder will sort them
     infinite: int = 0        # numeric values that were +-inf (read as missing)
+    boolean: bool = False    # numeric read from booleans (bool values, or the words true/false)
 
 
 @dataclass
@@ -116,18 +118,23 @@ def _infer_column(series, name, kind, given, max_levels):
     import pandas as pd
 
     present = ~series.isna().to_numpy()
+    boolean = False
     if series.dtype == object or pd.api.types.is_string_dtype(series.dtype):
         text = series.astype(object).where(present, None)
         stripped = text.map(lambda v: v.strip() if isinstance(v, str) else v)
         present = present & stripped.map(lambda v: v not in (None, "")).to_numpy()
         numbers = pd.to_numeric(stripped.where(present, None), errors="coerce")
         numbers = numbers.to_numpy(dtype=np.float64)
-        readable = present & ~np.isnan(numbers)
         raw_text = stripped
+        words = _boolean_words(stripped, present)
+        if words is not None and kind != "categorical":
+            numbers, raw_text, boolean = words, None, True
+        readable = present & ~np.isnan(numbers)
     elif pd.api.types.is_bool_dtype(series.dtype):
-        numbers = series.astype(np.float64).to_numpy()
+        numbers = series.to_numpy(dtype=np.float64, na_value=np.nan)
         readable = present
         raw_text = None
+        boolean = True
     elif pd.api.types.is_numeric_dtype(series.dtype):
         numbers = series.to_numpy(dtype=np.float64, na_value=np.nan)
         readable = present & ~np.isnan(numbers)
@@ -152,11 +159,24 @@ def _infer_column(series, name, kind, given, max_levels):
     if kind is None:
         kind = "numeric" if n_readable == n_present else "categorical"
     if kind == "numeric":
-        return _numeric(name, numbers, present, given)
+        return _numeric(name, numbers, present, given, boolean)
     return _categorical(name, series, raw_text, numbers, present, given, max_levels)
 
 
-def _numeric(name, numbers, present, given):
+def _boolean_words(text, present):
+    """1.0/0.0 for a text column of the words true/false only (any case; how pandas
+    writes a bool column to CSV), else None."""
+    words = {"true": 1.0, "false": 0.0}
+    cells = [("true" if v else "false") if isinstance(v, (bool, np.bool_))
+             else v.lower() if isinstance(v, str) else v for v in text[present]]
+    if not cells or any(c not in words for c in cells):
+        return None
+    out = np.full(len(present), np.nan)
+    out[present] = [words[c] for c in cells]
+    return out
+
+
+def _numeric(name, numbers, present, given, boolean=False):
     finite = np.isfinite(numbers)
     infinite = int((present & ~finite & ~np.isnan(numbers)).sum())
     values = np.where(finite, numbers, np.nan)
@@ -171,7 +191,7 @@ def _numeric(name, numbers, present, given):
                 and np.all(np.diff(kept) > 0))
     if counting and not given:
         return "identifier-like (whole numbers counting up row by row)"
-    column = Column(name, "numeric", int((~finite).sum()), infinite=infinite)
+    column = Column(name, "numeric", int((~finite).sum()), infinite=infinite, boolean=boolean)
     return column, values
 
 
@@ -179,7 +199,9 @@ def _categorical(name, series, raw_text, numbers, present, given, max_levels):
     import pandas as pd
 
     if raw_text is not None:
-        values = raw_text.where(present, None)
+        values = _integer_codes(raw_text, numbers, present)
+        if values is None:
+            values = raw_text.where(present, None)
     else:
         whole = present & np.isfinite(numbers) & (numbers == np.floor(numbers))
         if not np.all(whole[present]):
@@ -204,6 +226,26 @@ def _categorical(name, series, raw_text, numbers, present, given, max_levels):
     return column, values
 
 
+def _integer_codes(raw_text, numbers, present):
+    """Text cells that all spell whole numbers, one text per number, as ints; else None.
+
+    Integer levels match integral values of any type when scored (2, 2.0, '2'), so a
+    DOUBLE column or another loader's text still finds its level; text levels would
+    not match 2.0. Codes spelled two ways ('7' and '07') stay text: they are two
+    categories in the data."""
+    import pandas as pd
+
+    whole = present & np.isfinite(numbers) & (numbers == np.floor(numbers))
+    if not np.all(whole[present]) or np.any(np.abs(numbers[present]) >= 2.0 ** 53):
+        return None
+    spellings = {}
+    for text, number in zip(raw_text[present], numbers[present]):
+        if spellings.setdefault(int(number), text) != text:
+            return None
+    return pd.Series([int(v) if p else None for v, p in zip(numbers, present)],
+                     index=raw_text.index, dtype=object)
+
+
 def summary_lines(schema: Schema, n_rows: int) -> list[str]:
     """The schema as the user should check it, one line per column."""
     width = max([len(c.name) for c in schema.columns] + [len(n) for n, _ in schema.excluded])
@@ -214,6 +256,8 @@ def summary_lines(schema: Schema, n_rows: int) -> list[str]:
         share = 100.0 * c.missing / n_rows if n_rows else 0.0
         what = "numeric    " if c.kind == "numeric" else "categorical"
         extra = f", {len(c.levels)} levels" if c.kind == "categorical" else ""
+        if c.boolean:
+            extra += ", true/false read as 1/0"
         if c.infinite:
             extra += f", {c.infinite} infinite read as missing"
         lines.append(f"  {c.name:<{width}}  {what}  missing {c.missing} ({share:.1f}%){extra}")

@@ -3,10 +3,13 @@
 from __future__ import annotations
 
 import pickle
+import warnings
+from dataclasses import replace
 from pathlib import Path
 
 from ..errors import ScorewrightError
-from ..model import FrozenModel
+from ..model import FrozenModel, NumericFeature
+from .self_check import CheckResult, FreezeNote, check_model, feature_order
 from .sklearn import freeze_estimator
 
 PICKLE_WARNING = ("warning: loading {path} runs code stored in the file; "
@@ -14,9 +17,86 @@ PICKLE_WARNING = ("warning: loading {path} runs code stored in the file; "
                   "avoids this)")
 
 
-def freeze(estimator, feature_names=None, name=None) -> FrozenModel:
-    """Freeze a fitted scikit-learn estimator or pipeline (the safe, in-process path)."""
-    return freeze_estimator(estimator, feature_names=feature_names, name=name)
+def freeze(estimator, feature_names=None, name=None, check_rows=None) -> FrozenModel:
+    """Freeze a fitted scikit-learn estimator or pipeline (the safe, in-process path).
+
+    The frozen model is checked against the estimator on `check_rows` (a pandas
+    DataFrame, or a list of dicts, holding the raw inputs as the estimator takes
+    them) and on rows derived from the model; a model that scores differently is
+    refused (FreezeMismatch). A numeric column of dtype bool in `check_rows` marks
+    its feature boolean. What the check found worth saying comes as warnings."""
+    model, result = freeze_checked(estimator, feature_names=feature_names, name=name,
+                                   check_rows=check_rows)
+    for note in result.notes:
+        warnings.warn(note, FreezeNote, stacklevel=2)
+    return model
+
+
+def freeze_checked(estimator, feature_names=None, name=None, check_rows=None
+                   ) -> tuple[FrozenModel, CheckResult]:
+    """Freeze, mark boolean features from the check rows' dtypes, and self-check."""
+    model = freeze_estimator(estimator, feature_names=feature_names, name=name)
+    frame = check_frame(check_rows, feature_order(model))
+    if frame is not None:
+        model = mark_booleans(model, frame)
+    return model, check_model(estimator, model, frame)
+
+
+def check_frame(rows, names):
+    """The check rows as a DataFrame (None when there are none)."""
+    if rows is None:
+        return None
+    import numpy as np
+    import pandas as pd
+
+    if isinstance(rows, pd.DataFrame):
+        return rows
+    if isinstance(rows, np.ndarray):
+        if rows.ndim != 2 or rows.shape[1] != len(names):
+            raise ScorewrightError(f"check_rows: expected {len(names)} columns, got shape "
+                                   f"{rows.shape}")
+        return pd.DataFrame(rows, columns=names)
+    try:
+        return pd.DataFrame(list(rows))
+    except (TypeError, ValueError) as exc:
+        raise ScorewrightError(f"check_rows: not a table of rows ({exc})") from None
+
+
+def read_check_data(path: Path):
+    """Check rows from a CSV file (read as pandas reads it by default: numbers,
+    True/False as bool, the rest text) or a Parquet file."""
+    import pandas as pd
+
+    if not path.is_file():
+        raise ScorewrightError(f"--check-data {path}: no such file")
+    try:
+        if path.suffix.lower() in (".parquet", ".pq") or path.read_bytes()[:4] == b"PAR1":
+            frame = pd.read_parquet(path)
+        else:
+            frame = pd.read_csv(path)
+    except Exception as exc:  # readers raise many kinds for a damaged file
+        raise ScorewrightError(f"--check-data {path}: not a readable table "
+                               f"({' '.join(str(exc).split())[:200]})") from None
+    if len(frame) == 0:
+        raise ScorewrightError(f"--check-data {path}: no data rows")
+    return frame
+
+
+def mark_booleans(model: FrozenModel, frame) -> FrozenModel:
+    """Numeric features whose check column is bool were fitted on booleans."""
+    import pandas as pd
+
+    names = {c for c in frame.columns if pd.api.types.is_bool_dtype(frame[c].dtype)}
+    return mark_boolean_features(model, names)
+
+
+def mark_boolean_features(model: FrozenModel, names) -> FrozenModel:
+    """The model with the named numeric features marked boolean (fitted on booleans)."""
+    features = tuple(replace(f, boolean=True) if isinstance(f, NumericFeature)
+                     and f.name in names and not f.boolean else f for f in model.features)
+    if features == model.features:
+        return model
+    return replace(model, features=features).sealed()
 
 
 def load_pickled_estimator(path: Path):

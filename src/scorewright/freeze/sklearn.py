@@ -42,6 +42,7 @@ class Unsupported(ScorewrightError):
 
 
 def freeze_estimator(estimator, feature_names=None, name=None) -> FrozenModel:
+    _refuse_foreign(estimator)
     head_est, transforms = _split(estimator)
     raw_names = _input_names(estimator, feature_names)
     chains = [Chain(i) for i in range(len(raw_names))]
@@ -64,6 +65,14 @@ def freeze_estimator(estimator, feature_names=None, name=None) -> FrozenModel:
 
 
 # ---------------------------------------------------------------- structure
+
+def _refuse_foreign(estimator) -> None:
+    """Say plainly what is not a scikit-learn model, before asking it sklearn questions."""
+    module = type(estimator).__module__ or ""
+    if module.split(".")[0] == "statsmodels":
+        raise Unsupported(f"statsmodels results ({type(estimator).__name__}) are not supported; "
+                          "freeze takes fitted scikit-learn estimators and pipelines")
+
 
 def _split(estimator):
     from sklearn.pipeline import Pipeline
@@ -253,8 +262,11 @@ def _one_hot(enc, chains, path):
             groups = [(c,) for c in cats if c not in rare] + [tuple(rare)]
         else:
             groups = [(c,) for j, c in enumerate(cats) if j != dropped]
+        # scikit-learn >= 1.6 transforms with handle_unknown='warn' exactly as with
+        # 'infrequent_if_exist' (OneHotEncoder.transform swaps it in): an unseen level
+        # joins the infrequent group when the column has one, else its indicators are 0.
         unknown = None
-        if enc.handle_unknown == "infrequent_if_exist" and rare:
+        if enc.handle_unknown in ("infrequent_if_exist", "warn") and rare:
             unknown = rare[0]
         # A feature whose only category was dropped yields no column: it is left out.
         for group in groups:

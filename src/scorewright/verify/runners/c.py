@@ -38,7 +38,7 @@ def encode_rows(plan, rows) -> np.ndarray:
                 if isinstance(raw, float) and not math.isfinite(raw):
                     out[r, inp.index] = raw  # NaN and +-inf reach the scorer as they are
                 else:
-                    value = numeric_value(raw)
+                    value = numeric_value(raw, inp.boolean)
                     out[r, inp.index] = math.nan if value is None else value
             else:
                 out[r, inp.index] = category_code(inp.levels, raw)

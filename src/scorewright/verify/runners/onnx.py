@@ -51,7 +51,7 @@ def input_feeds(plan: Plan, rows: list[dict], layout: str) -> dict[str, np.ndarr
     columns = {}
     for inp in plan.inputs:
         if inp.kind == "numeric":
-            columns[inp.name] = numeric_column(rows, inp.name, dtype)
+            columns[inp.name] = numeric_column(rows, inp, dtype)
         else:
             columns[inp.name] = categorical_column(rows, inp)
     if layout == "matrix":
@@ -63,8 +63,8 @@ def input_feeds(plan: Plan, rows: list[dict], layout: str) -> dict[str, np.ndarr
     return columns
 
 
-def numeric_column(rows: list[dict], name: str, dtype) -> np.ndarray:
-    values = [numeric_value(row.get(name)) for row in rows]
+def numeric_column(rows: list[dict], inp, dtype) -> np.ndarray:
+    values = [numeric_value(row.get(inp.name), inp.boolean) for row in rows]
     col = np.array([math.nan if v is None else v for v in values], dtype=np.float64)
     if dtype is np.float32:
         # A finite double beyond float range would become inf (= missing) in a plain

@@ -15,14 +15,20 @@ import numpy as np
 from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import build_plan, output_columns
+from ...values import is_bool
 from . import RunOutput
 
 
-def csv_cell(value) -> str:
+def csv_cell(value, inp=None) -> str:
     """A raw value as CSV text that the scorer reads the same way. NaN becomes the empty
-    field: the text "nan" would be an unseen level in a categorical column."""
+    field: the text "nan" would be an unseen level in a categorical column. A bool
+    becomes 1/0 where it reads as a number (a numeric input, or integer levels), as
+    `values.py` reads it; the text "True" would be missing there."""
     if value is None or (isinstance(value, float) and math.isnan(value)):
         return ""
+    if is_bool(value) and inp is not None and (
+            inp.kind == "numeric" or inp.integer_levels):
+        return "1" if value else "0"
     if isinstance(value, float):
         return repr(value)
     return str(value)
@@ -38,7 +44,7 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     writer = csv.writer(buf, lineterminator="\r\n")  # quotes a lone "\r" too
     writer.writerow(names)
     for row in rows:
-        writer.writerow([csv_cell(row.get(n)) for n in names])
+        writer.writerow([csv_cell(row.get(inp.name), inp) for inp in plan.inputs])
     interpreter = options.get("interpreter") or sys.executable
     proc = subprocess.run([interpreter, "-I", "-S", str(script)],
                           input=buf.getvalue().encode("utf-8"), capture_output=True)

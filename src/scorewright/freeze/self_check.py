@@ -1,0 +1,364 @@
+"""The self-check: the frozen model against the estimator it was frozen from.
+
+Verify proves that artifacts equal the frozen model; this proves that the frozen
+model equals what the user fitted. Rows (the user's, plus rows derived from the
+model: missing values in both spellings, unseen levels, every level, booleans,
+extremes) are scored by the source estimator itself (predict_proba / predict)
+and by the frozen model's reference evaluator. Any probability that differs by
+more than 1e-12 (absolute), or any value by more than 1e-12 (relative, see
+`_differs` for values near zero), refuses the model, naming the first differing row.
+
+Rows the source estimator cannot score (it raises, e.g. on an unseen level with
+handle_unknown='error' or on a missing value with no imputer, or it overflows)
+have no answer to compare with; they are counted, not compared.
+
+One known difference is stated instead of failed: scikit-learn's SimpleImputer
+imputes NaN but not None in an object (text) column (`_get_mask` compares with
+NaN through `_object_dtype_isnan`, which None is not), so the source model reads
+a None category as unseen where it imputes a NaN. The frozen model reads both as
+missing; a row that differs only through that spelling is reported as a note.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import ScorewrightError
+from ..model import CategoricalFeature, FrozenModel, NumericFeature
+
+TOLERANCE = 1e-12
+UNSEEN_TEXT = "\u2063unseen level"   # an invisible separator: no real level starts so
+REFUSAL_BUDGET = 500                 # failed source calls before the rest is left unscored
+DERIVED_FEATURES = 32                # features varied one at a time in derived rows
+EXTREME = 100.0                      # times the feature's own scale, see _extremes
+
+
+class FreezeMismatch(ScorewrightError):
+    """The frozen model does not score like its source estimator."""
+
+
+class FreezeNote(UserWarning):
+    """Something the self-check found worth saying (scorewright.freeze warns with it)."""
+
+
+@dataclass
+class CheckResult:
+    compared: int = 0        # rows both sides scored and compared
+    derived: int = 0         # of which rows derived from the model
+    unscored: int = 0        # rows the source estimator could not score
+    guarded: int = 0         # rows whose log-link margin meets the frozen exp guard
+    none_rules: dict = field(default_factory=dict)  # column -> the frozen model's rule
+
+    @property
+    def notes(self) -> list[str]:
+        if not self.none_rules:
+            return []
+        plural = "s" if len(self.none_rules) > 1 else ""
+        cols = ", ".join(map(repr, self.none_rules))
+        return [f"the source model reads None in text column{plural} {cols} differently from NaN (scikit-learn's SimpleImputer imputes NaN but "
+                "not None in an object column, so None scores as an unseen level there); "
+                "the frozen model reads both as missing: "
+                + "; ".join(self.none_rules.values())]
+
+    def summary(self) -> str:
+        line = (f"self-check: the frozen model scores {_rows(self.compared)} "
+                f"({self.derived} derived from the model) like the source estimator "
+                f"(within {TOLERANCE:g})")
+        if self.unscored:
+            line += (f"; {_rows(self.unscored)} the source estimator cannot score "
+                     f"{'were' if self.unscored > 1 else 'was'} skipped")
+        if self.guarded:
+            line += (f"; {_rows(self.guarded)} whose margin is beyond the frozen model's exp "
+                     "guard (where it clamps by design) not compared")
+        return line
+
+
+def _rows(n: int) -> str:
+    return f"{n} row" if n == 1 else f"{n} rows"
+
+
+def feature_order(model: FrozenModel) -> list[str]:
+    """The source estimator's input columns, in its order."""
+    names = model.provenance.get("inputs", {}).get("feature_names")
+    return list(names) if names else [f.name for f in model.features]
+
+
+def check_model(estimator, model: FrozenModel, frame=None) -> CheckResult:
+    """Score `frame` (a DataFrame of raw inputs, may be None) and derived rows with
+    both sides; raise FreezeMismatch at the first row that differs."""
+    names = feature_order(model)
+    result = CheckResult()
+    batches = []
+    if frame is not None and len(frame):
+        batches.append(("data row", _user_frame(frame, names)))
+    base = _base_row(model, batches[0][1] if batches else None)
+    derived = _derived_frames(model, names, base)
+    batches += [("derived row", f) for f in derived]
+    for what, batch in batches:
+        compared = result.compared
+        _check_batch(estimator, model, names, batch, what, result)
+        if what == "derived row":
+            result.derived += result.compared - compared
+    return result
+
+
+# ---------------------------------------------------------------- rows
+
+def _user_frame(frame, names):
+    missing = [n for n in names if n not in frame.columns]
+    if missing:
+        raise ScorewrightError(f"the check data has no column {missing[0]!r} (the model "
+                               f"takes {', '.join(map(repr, names[:6]))}"
+                               f"{', ...' if len(names) > 6 else ''})")
+    return frame[names].reset_index(drop=True)
+
+
+def _plain(value):
+    """A cell as a plain Python value (pandas' NA and NaT as None)."""
+    if isinstance(value, np.generic):
+        value = value.item()
+    if type(value).__name__ in ("NAType", "NaTType"):
+        return None
+    return value
+
+
+def _base_row(model: FrozenModel, frame) -> dict:
+    """The row derived rows vary one cell of: the first data row, else each feature's
+    fill (or a plain value)."""
+    if frame is not None:
+        return {k: _plain(v) for k, v in frame.iloc[0].items()}
+    row = {}
+    for feat in model.features:
+        if isinstance(feat, NumericFeature):
+            row[feat.name] = feat.fill if feat.fill is not None else 0.0
+            if feat.boolean:
+                row[feat.name] = False
+        else:
+            row[feat.name] = feat.fill if feat.fill is not None else feat.levels[0]
+    return row  # inputs the estimator drops stay absent (None)
+
+
+def _extremes(feat: NumericFeature) -> list[float]:
+    """Far readings on the feature's own scale (its scaling steps' size), both signs:
+    a hundred spreads out, beyond any clip, yet inside the range where neither side
+    saturates (the frozen model's guards then change nothing)."""
+    size = max([abs(s.value) for s in feat.scaling] + [1.0])
+    return [EXTREME * size, -EXTREME * size]
+
+
+def _derived_frames(model: FrozenModel, names, base) -> list:
+    """Rows that each change one cell of the base row, missing cells first (a source
+    model without an imputer refuses them, and refusals that sit together cost few
+    calls to find). Numeric columns are float64 (a missing value is NaN, as pandas
+    stores it); text-level columns are object, so None and NaN stay two spellings.
+    Booleans come in their own frame, as a bool column (the dtype the source model
+    was fitted on)."""
+    missing: list[dict] = []
+    others: list[dict] = []
+    bool_rows: list[dict] = []
+    for feat in _sampled(model.features):
+        name = feat.name
+        if isinstance(feat, NumericFeature) and feat.boolean:
+            bool_rows += [dict(base, **{name: v}) for v in (True, False)]
+        elif isinstance(feat, NumericFeature):
+            missing.append(dict(base, **{name: math.nan}))
+            others += [dict(base, **{name: v}) for v in _extremes(feat)]
+        else:
+            unseen = (max(feat.levels) + 1000 if isinstance(feat.levels[0], int)
+                      else UNSEEN_TEXT)
+            missing += [dict(base, **{name: v}) for v in (None, math.nan)]
+            others += [dict(base, **{name: v}) for v in (unseen,) + tuple(feat.levels)]
+    kinds = {f.name: f for f in model.features}
+    frames = []
+    if missing or others:
+        frames.append(_typed_frame(missing + others, names, kinds, booleans_as_bool=False))
+    if bool_rows:
+        frames.append(_typed_frame(bool_rows, names, kinds, booleans_as_bool=True))
+    return frames
+
+
+def _sampled(features) -> list:
+    """Every feature, or an evenly spread DERIVED_FEATURES of a wide model: each
+    derived row is a whole row, so varying every feature of a wide model one at a
+    time would cost features squared cells (the data rows still cover them all)."""
+    if len(features) <= DERIVED_FEATURES:
+        return list(features)
+    step = len(features) / DERIVED_FEATURES
+    return [features[int(i * step)] for i in range(DERIVED_FEATURES)]
+
+
+def _typed_frame(rows, names, kinds, booleans_as_bool):
+    """Numeric and integer-level columns as float64 (NaN for missing, as pandas holds
+    a column of numbers with gaps); text-level columns as object."""
+    import pandas as pd
+
+    from ..values import numeric_value
+
+    columns = {}
+    for name in names:
+        feat = kinds.get(name)
+        values = [row.get(name) for row in rows]
+        if feat is None:  # an input the estimator drops: any value does
+            columns[name] = pd.Series(values, dtype=object)
+        elif isinstance(feat, NumericFeature) and feat.boolean and booleans_as_bool:
+            columns[name] = pd.Series([bool(v) for v in values], dtype=bool)
+        elif isinstance(feat, NumericFeature) or isinstance(feat.levels[0], int):
+            numbers = [numeric_value(v, getattr(feat, "boolean", False)) for v in values]
+            columns[name] = pd.Series([math.nan if v is None else v for v in numbers],
+                                      dtype=np.float64)
+        else:
+            columns[name] = pd.Series(values, dtype=object)
+    return pd.DataFrame(columns)
+
+
+# ---------------------------------------------------------------- scoring
+
+def _records(frame) -> list[dict]:
+    cols = list(frame.columns)
+    return [{c: _plain(v) for c, v in zip(cols, row)}
+            for row in frame.itertuples(index=False, name=None)]
+
+
+def _reference(model: FrozenModel, records):
+    """The reference outputs (n, outputs), each row's margin scale (n,), and which
+    rows meet the log link's guard (n,): there the frozen model clamps the exp
+    argument by design, where scikit-learn underflows to 0 or overflows."""
+    from ..plan import build_plan
+    from ..reference import encode_rows, margin_scale, score_matrix
+
+    plan = build_plan(model)
+    matrix = encode_rows(plan, records)
+    out = score_matrix(plan, matrix)
+    scale = margin_scale(plan, matrix).max(axis=1)
+    if model.head.task != "regression":
+        return out["probabilities"], scale, np.zeros(len(records), dtype=bool)
+    m = out["margins"][:, 0]
+    guarded = np.zeros(len(records), dtype=bool)
+    if plan.link == "log":
+        guarded = (m < -plan.precision.exp_guard) | (m > plan.precision.log_link_max)
+    return out["value"].reshape(-1, 1), scale, guarded
+
+
+def _source(estimator, frame, classifier: bool, errors: list | None = None) -> np.ndarray:
+    """The source estimator's outputs, one row per input row; NaN rows where it
+    cannot score a row (found by halving a batch that raises). The first error
+    of a row it refuses is appended to `errors`."""
+    n = len(frame)
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # unseen levels: warned about, then encoded
+            x = frame if getattr(estimator, "feature_names_in_", None) is not None \
+                else frame.to_numpy()
+            out = estimator.predict_proba(x) if classifier else estimator.predict(x)
+        out = np.asarray(out, dtype=np.float64)
+        return out.reshape(n, -1)
+    except Exception as exc:  # the estimator may refuse a row in any way it likes
+        errors = [] if errors is None else errors
+        if not errors:
+            errors.append(f"{type(exc).__name__}: {' '.join(str(exc).split())[:160]}")
+        errors.append(None)  # one more refusal: past the budget, stop looking for rows
+        if n == 1 or len(errors) > REFUSAL_BUDGET:
+            return np.full((n, 1), math.nan)
+        half = n // 2
+        first = _source(estimator, frame.iloc[:half], classifier, errors)
+        second = _source(estimator, frame.iloc[half:], classifier, errors)
+        width = max(first.shape[1], second.shape[1])
+        return np.vstack([_widen(first, width), _widen(second, width)])
+
+
+def _widen(block, width):
+    if block.shape[1] == width:
+        return block
+    return np.full((block.shape[0], width), math.nan)
+
+
+def _differs(model: FrozenModel, source: np.ndarray, ref: np.ndarray,
+             work: np.ndarray) -> np.ndarray:
+    """Rows where the two sides differ: probabilities by more than TOLERANCE, values
+    by more than TOLERANCE relative. scikit-learn sums a margin as a matrix product,
+    in its own order, so its rounding is relative to the margin's terms (`work`), not
+    to the value: an identity-link value near zero may come from terms of size 10,
+    and a log-link value carries the margin's absolute rounding as relative error."""
+    gap = np.abs(source - ref)
+    if model.head.task != "regression":
+        return np.any(gap > TOLERANCE, axis=1)
+    size = np.maximum(np.abs(source), np.abs(ref))
+    if model.head.link == "identity":
+        size = np.maximum(size, work[:, None])
+    else:
+        size = size * np.maximum(1.0, work)[:, None]
+    return np.any(gap > TOLERANCE * size, axis=1)
+
+
+def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> None:
+    classifier = model.head.task != "regression"
+    records = _records(frame)
+    ref, work, guarded = _reference(model, records)
+    errors: list = []
+    source = _source(estimator, frame, classifier, errors)
+    scored = np.isfinite(source).all(axis=1)
+    if what == "data row" and not scored.any():
+        why = errors[0] if errors else "its outputs are not finite"
+        raise ScorewrightError(f"self-check: the source estimator scores none of the "
+                               f"{_rows(len(frame))} given to check ({why})")
+    if source.shape[1] != ref.shape[1]:
+        if scored.any():
+            raise FreezeMismatch(f"self-check: the source estimator gives {source.shape[1]} "
+                                 f"outputs per row, the frozen model {ref.shape[1]}")
+        result.unscored += len(frame)
+        return
+    result.unscored += int((~scored).sum())
+    result.guarded += int((scored & guarded).sum())
+    scored = scored & ~guarded
+    result.compared += int(scored.sum())
+    bad = scored & _differs(model, source, ref, work)
+    for i in np.flatnonzero(bad):
+        cols = _none_spelling(estimator, model, frame.iloc[[int(i)]], ref[i], work[i],
+                              classifier)
+        if not cols:
+            raise FreezeMismatch(_mismatch_message(model, what, int(i), records[i],
+                                                   source[i], ref[i]))
+        for c in cols:
+            result.none_rules.setdefault(c, _missing_rule(model.feature(c)))
+
+
+def _none_spelling(estimator, model, row_frame, ref_row, work, classifier) -> list[str]:
+    """The text columns holding None in a row that differs only because the source
+    model reads None there differently from NaN; [] when the difference is real."""
+    known = {f.name for f in model.features}
+    cols = [c for c in row_frame.columns if c in known and row_frame[c].dtype == object
+            and row_frame[c].iloc[0] is None]
+    if not cols:
+        return []
+    fixed = row_frame.copy()
+    for c in cols:
+        fixed[c] = np.array([math.nan], dtype=object)
+    source = _source(estimator, fixed, classifier)[0]
+    if not np.all(np.isfinite(source)) or _differs(model, source[None, :], ref_row[None, :],
+                                                   np.array([work]))[0]:
+        return []
+    return cols
+
+
+def _missing_rule(feat) -> str:
+    if isinstance(feat, CategoricalFeature) and feat.fill is not None:
+        return f"{feat.name!r} missing takes the level {feat.fill!r}"
+    return f"{feat.name!r} missing is treated as an unseen level"
+
+
+def _mismatch_message(model, what, index, record, source, ref) -> str:
+    shown = ", ".join(f"{k}={v!r}" for k, v in list(record.items())[:8])
+    if len(record) > 8:
+        shown += ", ..."
+    if model.head.task == "regression":
+        outputs = f"source {float(source[0])!r}, frozen {float(ref[0])!r}"
+    else:
+        k = int(np.argmax(np.abs(source - ref)))
+        outputs = (f"probability of class {model.head.classes[k]!r}: source "
+                   f"{float(source[k])!r}, frozen {float(ref[k])!r}")
+    return (f"self-check failed: the frozen model does not score like the source estimator "
+            f"at {what} {index + 1} ({shown}): {outputs}; nothing was written")
