@@ -130,6 +130,16 @@ def test_odd_values_follow_the_documented_missing_rules(tmp_path):
     unseen = dict(base, refrigerant="R999")
     for odd in (3.5, b"R404A", ("R404A",), False):
         assert scorer.margin(dict(base, refrigerant=odd)) == scorer.margin(unseen), odd
+    # pandas' missing markers (what a row of a DataFrame with gaps holds) are missing, in
+    # the scorer and in the reference alike.
+    import pandas as pd
+    from scorewright.plan import build_plan
+    from scorewright.reference import score_row
+    plan = build_plan(tm.model)
+    missing = dict(base, refrigerant=None)
+    for marker in (pd.NA, pd.NaT):
+        row = dict(base, refrigerant=marker)
+        assert scorer.margin(row) == scorer.margin(missing) == score_row(plan, row).margins[0]
 
 
 def test_extreme_margins_never_raise(tmp_path):

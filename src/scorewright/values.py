@@ -66,9 +66,15 @@ def numeric_value(value, boolean: bool = False) -> float | None:
     return value if math.isfinite(value) else None
 
 
+def is_na_marker(value) -> bool:
+    """pandas' missing-value markers (NA, NaT), which compare as neither true nor false."""
+    return type(value).__name__ in ("NAType", "NaTType")
+
+
 def category_code(levels: tuple, value) -> int:
     """The level code of a raw value: 0..L-1, MISSING_CODE or UNSEEN_CODE."""
-    if value is None or value == "" or (isinstance(value, float) and math.isnan(value)):
+    if value is None or (isinstance(value, str) and value == "") or (
+            isinstance(value, float) and math.isnan(value)) or is_na_marker(value):
         return MISSING_CODE
     if isinstance(levels[0], int):
         key = int(bool(value)) if is_bool(value) else _integral(value)
