@@ -254,7 +254,7 @@ def _print_summary(report, outdir: Path | None = None):
         click.echo(line)
     if outdir is not None:
         click.echo(f"agreement report: {outdir / 'agreement.html'} (and agreement.json)")
-    click.echo("all targets agree" if report.ok else "DISAGREEMENT: see the agreement report")
+    click.echo(report.headline())
 
 
 def _check_requested(profiles):
@@ -262,7 +262,8 @@ def _check_requested(profiles):
         lacks = profile.missing_requirements()
         if lacks:
             raise ScorewrightError(f"target {profile.name!r} cannot run here: this machine "
-                                   f"lacks {', '.join(lacks)}")
+                                   f"lacks {', '.join(lacks)} (install: "
+                                   f"{profile.install_command(lacks)})")
 
 
 _target_help = "Target profile name or .toml file (repeatable; default: all available)."
@@ -290,7 +291,7 @@ def build(model_file, outdir, targets, data, n_random, seed, postgres_dsn, force
                            data=Path(data) if data else None, n_random=n_random, seed=seed,
                            options=_harness_options(postgres_dsn))
     _print_summary(report, Path(outdir))
-    return 0 if report.ok else 1
+    return report.exit_status
 
 
 @cli.command()
@@ -308,7 +309,7 @@ def build(model_file, outdir, targets, data, n_random, seed, postgres_dsn, force
               help="Write agreement.json and agreement.html into ARTIFACT_DIR.")
 def verify(model_file, artifact_dir, targets, data, n_random, seed, postgres_dsn, report):
     """Check artifacts already on disk against the frozen model (exit 1 on disagreement)."""
-    from .verify.harness import select_profiles, verify_targets, write_reports
+    from .verify.harness import profiles_found, select_profiles, verify_targets, write_reports
 
     model = _load(model_file)
     root = Path(artifact_dir)
@@ -317,18 +318,19 @@ def verify(model_file, artifact_dir, targets, data, n_random, seed, postgres_dsn
     if targets:
         profiles = select_profiles(targets, only_available=False)
     else:
-        profiles = [p for p in select_profiles(None, only_available=False)
-                    if (root / p.name).is_dir()]
+        profiles = profiles_found(model, root)
         if not profiles:
-            raise ScorewrightError(f"{root}: no target sub-directories found (expected "
-                                   "the layout `scorewright build` writes)")
+            raise ScorewrightError(f"{root}: no artifacts of this model's built-in targets "
+                                   "found (neither target sub-directories as `build` writes "
+                                   "them nor files as `emit` writes them); name the target "
+                                   "with --target NAME or --target PROFILE.toml")
     _check_requested(profiles)
     result = verify_targets(model, root, profiles, data=Path(data) if data else None,
                             n_random=n_random, seed=seed, options=_harness_options(postgres_dsn))
     if report:
         write_reports(result, root)
     _print_summary(result, root if report else None)
-    return 0 if result.ok else 1
+    return result.exit_status
 
 
 @cli.command()
@@ -348,7 +350,10 @@ def _terminate(signum, frame):
 
 
 def main():
+    from .verify import interrupts
+
     signal.signal(signal.SIGTERM, _terminate)
+    interrupts.install()  # Ctrl-C stops build/verify even inside a runtime that swallows it
     cli.main(prog_name="scorewright")
 
 

@@ -37,6 +37,18 @@ def _ordered(bits: np.ndarray, width: int) -> np.ndarray:
     return np.where(bits < 0, low - bits, bits)
 
 
+# The rule compare() applies, in words, for the agreement report and the console.
+RULE = ("A row passes when each of its outputs is within the target's stated ULP bound or "
+        "within its stated absolute bound (relative, for predicted values): either one "
+        "suffices. A class decision that differs is excused when the reference margin lies "
+        "within the stated margin tolerance of the decision cut (multiclass: of the "
+        "runner-up class's margin).")
+MAXIMA = ("The max ULP and max abs figures are maxima over all rows, taken separately: a "
+          "float target can show billions of ULPs where an output is near 0 (a tiny absolute "
+          "difference) and a large absolute difference on a huge margin (a few ULPs); each "
+          "row passed on one bound or the other.")
+
+
 @dataclass
 class Tolerance:
     """What a target promises: an output passes if within `*_ulps` OR within `*_abs`."""

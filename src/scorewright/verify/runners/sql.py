@@ -353,11 +353,11 @@ class Spark:
 
     @classmethod
     def execute(cls, options, d, name, table, setup, query):
+        spark = cls.session()  # first: without pyspark it says what to install
         from py4j.protocol import Py4JJavaError
         from pyspark.errors import PySparkException
         from pyspark.sql import types as T
 
-        spark = cls.session()
         ansi = bool(options.get("ansi", True))
         spark.conf.set("spark.sql.ansi.enabled", "true" if ansi else "false")
         kinds = {"double": T.DoubleType(), "bigint": T.LongType(), "string": T.StringType()}
