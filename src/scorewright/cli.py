@@ -1,7 +1,8 @@
 """The scorewright command line.
 
-Every user error is one line on stderr and exit status 2; `verify` exits 1 when
-artifacts disagree. Files are written atomically and never overwritten without
+Every user error is one line on stderr and exit status 2; `build` and `verify` exit 1
+when an artifact disagrees (a skipped target, whose runtime is absent, does not count),
+and 130 on Ctrl-C. Files are written atomically and never overwritten without
 --force.
 """
 
@@ -213,7 +214,7 @@ def _parse_columns(pairs) -> dict[str, str]:
 @click.option("--force", is_flag=True, help="Overwrite existing artifacts.")
 def emit(model_file, target, outdir, dialect, table, keep, columns, form, layout, long_columns,
          prefix, precision, input_layout, decision_only, portable_exp, report, force):
-    """Emit the scoring code for one target family into OUTDIR."""
+    """Emit the scoring code for one target family into the directory given by -o."""
     from .emit import emitter
     from .files import check_writable, write_atomic
 
@@ -281,7 +282,10 @@ _target_help = "Target profile name or .toml file (repeatable; default: all avai
 @click.option("--postgres-dsn", help="Use this PostgreSQL server instead of starting one.")
 @click.option("--force", is_flag=True, help="Overwrite existing artifacts.")
 def build(model_file, outdir, targets, data, n_random, seed, postgres_dsn, force):
-    """Emit every target and verify that each agrees with the frozen model."""
+    """Emit every target and verify that each agrees with the frozen model.
+
+    A target whose runtime is not installed here is skipped (the summary gives the command
+    that installs it). Exit 0 when every target that ran agrees, 1 on a disagreement."""
     from .verify.harness import build_targets, select_profiles
 
     model = _load(model_file)
@@ -308,7 +312,10 @@ def build(model_file, outdir, targets, data, n_random, seed, postgres_dsn, force
 @click.option("--report/--no-report", default=True, show_default=True,
               help="Write agreement.json and agreement.html into ARTIFACT_DIR.")
 def verify(model_file, artifact_dir, targets, data, n_random, seed, postgres_dsn, report):
-    """Check artifacts already on disk against the frozen model (exit 1 on disagreement)."""
+    """Check artifacts already on disk against the frozen model (exit 1 on disagreement).
+
+    ARTIFACT_DIR is a folder written by `build` (a sub-directory per target) or by `emit`
+    (the files alone)."""
     from .verify.harness import profiles_found, select_profiles, verify_targets, write_reports
 
     model = _load(model_file)

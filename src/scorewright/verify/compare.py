@@ -88,10 +88,12 @@ class Comparison:
 
 
 def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
-    """expected: reference.score_matrix output; got: a RunOutput."""
+    """expected: reference.score_matrix output; got: a RunOutput. A decision-only output
+    (no margins) is compared on its class decisions alone."""
     n = expected["margins"].shape[0]
     result = Comparison(rows=n)
     bad: dict[int, list[str]] = {}
+    decisions_only = got.margins is None
 
     def check(name, want, have, ulps_ok, abs_ok, rel=0.0):
         want = np.asarray(want, dtype=np.float64)
@@ -114,10 +116,12 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
         for r in np.flatnonzero(rows_bad):
             bad.setdefault(int(r), []).append(name)
 
-    check("margin", expected["margins"], got.margins, tol.margin_ulps, tol.margin_abs)
-    if "probabilities" in expected:
+    if not decisions_only:
+        check("margin", expected["margins"], got.margins, tol.margin_ulps, tol.margin_abs)
+    if "probabilities" in expected and not decisions_only:
         check("probability", expected["probabilities"], got.probabilities,
               tol.probability_ulps, tol.probability_abs)
+    if "probabilities" in expected:
         labels_exp = expected["class_index"]
         labels_got = np.asarray(got.class_index)
         mismatch = labels_exp != labels_got if labels_got.shape == labels_exp.shape else \
@@ -126,7 +130,7 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
         result.label_mismatches = int(mismatch.sum())
         for r in np.flatnonzero(mismatch & ~excused):
             bad.setdefault(int(r), []).append("predicted_class")
-    if "value" in expected:
+    if "value" in expected and not decisions_only:
         # An identity-link value is the margin itself: a margin near 0 after cancellation
         # is held to the margin's absolute bound, as the margin is.
         value_abs = tol.margin_abs if expected.get("link") == "identity" else 0.0

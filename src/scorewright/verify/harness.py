@@ -307,6 +307,8 @@ def _check_target(model, outdir, profile, rows, labels, expected, extra) -> Targ
 
 
 def _row_ulps(expected, got, precision) -> np.ndarray | None:
+    if got.margins is None:  # decision only: no figure to measure in ULPs
+        return None
     try:
         parts = [ulp_distance(expected["margins"], got.margins, precision).max(axis=1)]
         if "probabilities" in expected:
@@ -332,7 +334,12 @@ def _show_row(i, labels, rows, expected, got, comparison) -> dict:
     shown = {"row": labels[i], "inputs": {k: _plain(v) for k, v in rows[i].items()},
              "disagrees_on": comparison.reasons[i],
              "expected": {"margins": [_plain(v) for v in expected["margins"][i]]},
-             "got": {"margins": [_plain(v) for v in np.asarray(got.margins)[i]]}}
+             "got": {}}
+    if got.margins is None:  # a decision-only artifact gives its class index alone
+        shown["expected"]["class_index"] = int(expected["class_index"][i])
+        shown["got"]["class_index"] = _plain(np.asarray(got.class_index)[i])
+        return shown
+    shown["got"]["margins"] = [_plain(v) for v in np.asarray(got.margins)[i]]
     if "probabilities" in expected:
         shown["expected"]["probabilities"] = [_plain(v) for v in expected["probabilities"][i]]
         shown["expected"]["class_index"] = int(expected["class_index"][i])
@@ -398,7 +405,8 @@ def summary_lines(report: AgreementReport) -> list[str]:
         if c is not None:
             diffs = ", ".join(f"{k} {c.max_ulps[k]:g} ULP / {c.max_abs.get(k, 0.0):.2g} abs"
                               for k in c.max_ulps)
-            detail = f"{c.rows} rows; max difference: {diffs}"
+            detail = f"{c.rows} rows; max difference: {diffs}" if diffs else \
+                f"{c.rows} rows; decisions only: {c.label_mismatches} differ"
         msg = f" - {r.message}" if r.message else ""
         lines.append(f"{r.status.upper():<11} {r.profile.name:<22} {detail}{msg}")
     if any(r.comparison is not None for r in report.results):
