@@ -316,7 +316,8 @@ def verify(model_file, artifact_dir, targets, data, n_random, seed, postgres_dsn
 
     ARTIFACT_DIR is a folder written by `build` (a sub-directory per target) or by `emit`
     (the files alone)."""
-    from .verify.harness import profiles_found, select_profiles, verify_targets, write_reports
+    from .verify.harness import (UNVERIFIED, mark_unverified, profiles_found, select_profiles,
+                                 verify_targets, write_reports)
 
     model = _load(model_file)
     root = Path(artifact_dir)
@@ -332,10 +333,13 @@ def verify(model_file, artifact_dir, targets, data, n_random, seed, postgres_dsn
                                    "them nor files as `emit` writes them); name the target "
                                    "with --target NAME or --target PROFILE.toml")
     _check_requested(profiles)
+    if report:  # until the new report is written, the folder says it is unverified
+        mark_unverified(root)
     result = verify_targets(model, root, profiles, data=Path(data) if data else None,
                             n_random=n_random, seed=seed, options=_harness_options(postgres_dsn))
     if report:
         write_reports(result, root)
+        (root / UNVERIFIED).unlink(missing_ok=True)
     _print_summary(result, root if report else None)
     return result.exit_status
 

@@ -20,6 +20,7 @@ from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import build_plan, output_columns
 from ...values import _integral, numeric_value
+from ..interrupts import cancel_on_interrupt, forget_cancel
 from . import RunOutput
 from .python import outputs_from_table
 
@@ -215,6 +216,7 @@ class SQLite:
         import sqlite3
 
         con = sqlite3.connect(":memory:")
+        cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
         try:
             con.execute(create_table(d, name, table))
             con.executemany(insert(d, name, table, "?"), _records(table))
@@ -226,6 +228,7 @@ class SQLite:
         except sqlite3.Error as exc:
             raise ScorewrightError(f"sql: SQLite failed: {exc}") from None
         finally:
+            forget_cancel(con.interrupt)
             con.close()
 
 
@@ -240,6 +243,7 @@ class DuckDB:
         import duckdb
 
         con = duckdb.connect(":memory:")
+        cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
         try:
             con.execute(create_table(d, name, table))
             con.executemany(insert(d, name, table, "?"), _records(table))
@@ -252,6 +256,7 @@ class DuckDB:
         except duckdb.Error as exc:
             raise ScorewrightError(f"sql: DuckDB failed: {exc}") from None
         finally:
+            forget_cancel(con.interrupt)
             con.close()
 
 
