@@ -292,6 +292,7 @@ def _check_target(model, outdir, profile, rows, labels, expected, extra) -> Targ
         try:
             result.size = size(where, model, options)
         except Exception as exc:  # a size report that cannot be made is noted, not fatal
+            stop_if_interrupted()
             result.size = {"error": traceback.format_exception_only(type(exc), exc)[-1].strip()}
     comparison = compare(expected, got, profile.tolerance)
     result.comparison = comparison
