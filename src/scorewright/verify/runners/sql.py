@@ -348,6 +348,8 @@ class Spark:
             cls._session = (SparkSession.builder.master("local[2]")
                             .appName("scorewright-verify")
                             .config("spark.ui.enabled", "false")
+                            # stage bars would break verify's progress lines on stderr
+                            .config("spark.ui.showConsoleProgress", "false")
                             .config("spark.sql.shuffle.partitions", "2")
                             # Planning a 10,000-feature query needs more than the
                             # 1 GB default heap (measured: 2 GB ran out, 4 GB did not).
