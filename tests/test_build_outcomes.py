@@ -202,3 +202,21 @@ def test_suggested_options_are_quoted_for_a_shell(tmp_path):
     assert proc.returncode == 2
     assert "--drop 'Notes (free text)'" in proc.stderr, proc.stderr
 
+
+
+def test_bad_data_changes_nothing(model_file, tmp_path):
+    """--data that cannot be read is refused before a file is written or removed."""
+    bad = tmp_path / "bad.csv"
+    bad.write_text("x,y\n1,2\n")
+    fresh = tmp_path / "fresh"
+    proc = run("build", model_file, "-o", fresh, "--target", "python", "--data", bad)
+    assert proc.returncode == 2 and "none of the model's features" in proc.stderr
+    assert not fresh.exists()
+    built = tmp_path / "built"
+    assert run("build", model_file, "-o", built, "--target", "python",
+               "--random", "5").returncode == 0
+    before = sorted(p.name for p in built.rglob("*"))
+    proc = run("verify", model_file, built, "--data", bad)
+    assert proc.returncode == 2
+    assert sorted(p.name for p in built.rglob("*")) == before
+    assert UNVERIFIED not in before and "agreement.json" in before

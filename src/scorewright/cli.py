@@ -333,10 +333,10 @@ def verify(model_file, artifact_dir, targets, data, n_random, seed, postgres_dsn
                                    "them nor files as `emit` writes them); name the target "
                                    "with --target NAME or --target PROFILE.toml")
     _check_requested(profiles)
-    if report:  # until the new report is written, the folder says it is unverified
-        mark_unverified(root)
+    # until the new report is written, the folder says it is unverified
     result = verify_targets(model, root, profiles, data=Path(data) if data else None,
-                            n_random=n_random, seed=seed, options=_harness_options(postgres_dsn))
+                            n_random=n_random, seed=seed, options=_harness_options(postgres_dsn),
+                            before_running=(lambda: mark_unverified(root)) if report else None)
     if report:
         write_reports(result, root)
         (root / UNVERIFIED).unlink(missing_ok=True)

@@ -210,14 +210,18 @@ def progress_to_stderr(text: str) -> None:
 
 
 def verify_targets(model: FrozenModel, outdir: Path, profiles, data=None, n_random=1000,
-                   seed=0, options=None, progress=progress_to_stderr) -> AgreementReport:
+                   seed=0, options=None, progress=progress_to_stderr,
+                   before_running=None) -> AgreementReport:
     """Run every profile's artifacts in OUTDIR/<profile>/; `progress` gets a line per
-    target as it finishes (None: silent)."""
+    target as it finishes (None: silent). `before_running()` runs once the rows are read
+    and checked, so bad input (--data) stops everything before it changes a file."""
     started = time.perf_counter()
     say = progress or (lambda text: None)
     plan = build_plan(model)
     rows, labels, sources = check_rows(plan, data, n_random, seed)
     expected = expected_outputs(plan, rows)
+    if before_running is not None:
+        before_running()
     say(f"verifying {len(profiles)} target{'s' if len(profiles) != 1 else ''} on "
         f"{len(rows):,} rows ({', '.join(f'{k} {v:,}' for k, v in sources.items())})")
     results = []
@@ -389,9 +393,13 @@ def build_targets(model: FrozenModel, outdir: Path, targets=None, force=False, d
     outdir = Path(outdir)
     profiles = select_profiles(targets, only_available=False)
     runnable = [p for p in profiles if not p.missing_requirements()]
-    emit_targets(model, outdir, runnable, force, before_writing=lambda: mark_unverified(outdir))
+
+    def emit():
+        emit_targets(model, outdir, runnable, force,
+                     before_writing=lambda: mark_unverified(outdir))
+
     report = verify_targets(model, outdir, profiles, data=data, n_random=n_random, seed=seed,
-                            options=options, progress=progress)
+                            options=options, progress=progress, before_running=emit)
     write_reports(report, outdir)
     (outdir / UNVERIFIED).unlink(missing_ok=True)
     return report
