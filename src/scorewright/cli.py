@@ -1,7 +1,8 @@
 """The scorewright command line.
 
-Every user error is one line on stderr and exit status 2; `verify` exits 1 when
-artifacts disagree. Files are written atomically and never overwritten without
+Every user error is one line on stderr and exit status 2; `build` and `verify` exit 1
+when an artifact disagrees (a skipped target, whose runtime is absent, does not count),
+and 130 on Ctrl-C. Files are written atomically and never overwritten without
 --force.
 """
 
@@ -223,7 +224,7 @@ def _parse_columns(pairs) -> dict[str, str]:
 @click.option("--force", is_flag=True, help="Overwrite existing artifacts.")
 def emit(model_file, target, outdir, dialect, table, keep, columns, form, layout, long_columns,
          prefix, precision, input_layout, decision_only, portable_exp, report, force):
-    """Emit the scoring code for one target family into OUTDIR."""
+    """Emit the scoring code for one target family into the directory given by -o."""
     from .emit import emitter
     from .files import check_writable, write_atomic
 
@@ -264,7 +265,7 @@ def _print_summary(report, outdir: Path | None = None):
         click.echo(line)
     if outdir is not None:
         click.echo(f"agreement report: {outdir / 'agreement.html'} (and agreement.json)")
-    click.echo("all targets agree" if report.ok else "DISAGREEMENT: see the agreement report")
+    click.echo(report.headline())
 
 
 def _check_requested(profiles):
@@ -272,7 +273,8 @@ def _check_requested(profiles):
         lacks = profile.missing_requirements()
         if lacks:
             raise ScorewrightError(f"target {profile.name!r} cannot run here: this machine "
-                                   f"lacks {', '.join(lacks)}")
+                                   f"lacks {', '.join(lacks)} (install: "
+                                   f"{profile.install_command(lacks)})")
 
 
 _target_help = "Target profile name or .toml file (repeatable; default: all available)."
@@ -290,7 +292,10 @@ _target_help = "Target profile name or .toml file (repeatable; default: all avai
 @click.option("--postgres-dsn", help="Use this PostgreSQL server instead of starting one.")
 @click.option("--force", is_flag=True, help="Overwrite existing artifacts.")
 def build(model_file, outdir, targets, data, n_random, seed, postgres_dsn, force):
-    """Emit every target and verify that each agrees with the frozen model."""
+    """Emit every target and verify that each agrees with the frozen model.
+
+    A target whose runtime is not installed here is skipped (the summary gives the command
+    that installs it). Exit 0 when every target that ran agrees, 1 on a disagreement."""
     from .verify.harness import build_targets, select_profiles
 
     model = _load(model_file)
@@ -300,7 +305,7 @@ def build(model_file, outdir, targets, data, n_random, seed, postgres_dsn, force
                            data=Path(data) if data else None, n_random=n_random, seed=seed,
                            options=_harness_options(postgres_dsn))
     _print_summary(report, Path(outdir))
-    return 0 if report.ok else 1
+    return report.exit_status
 
 
 @cli.command()
@@ -317,8 +322,12 @@ def build(model_file, outdir, targets, data, n_random, seed, postgres_dsn, force
 @click.option("--report/--no-report", default=True, show_default=True,
               help="Write agreement.json and agreement.html into ARTIFACT_DIR.")
 def verify(model_file, artifact_dir, targets, data, n_random, seed, postgres_dsn, report):
-    """Check artifacts already on disk against the frozen model (exit 1 on disagreement)."""
-    from .verify.harness import select_profiles, verify_targets, write_reports
+    """Check artifacts already on disk against the frozen model (exit 1 on disagreement).
+
+    ARTIFACT_DIR is a folder written by `build` (a sub-directory per target) or by `emit`
+    (the files alone)."""
+    from .verify.harness import (UNVERIFIED, mark_unverified, profiles_found, select_profiles,
+                                 verify_targets, write_reports)
 
     model = _load(model_file)
     root = Path(artifact_dir)
@@ -327,18 +336,22 @@ def verify(model_file, artifact_dir, targets, data, n_random, seed, postgres_dsn
     if targets:
         profiles = select_profiles(targets, only_available=False)
     else:
-        profiles = [p for p in select_profiles(None, only_available=False)
-                    if (root / p.name).is_dir()]
+        profiles = profiles_found(model, root)
         if not profiles:
-            raise ScorewrightError(f"{root}: no target sub-directories found (expected "
-                                   "the layout `scorewright build` writes)")
+            raise ScorewrightError(f"{root}: no artifacts of this model's built-in targets "
+                                   "found (neither target sub-directories as `build` writes "
+                                   "them nor files as `emit` writes them); name the target "
+                                   "with --target NAME or --target PROFILE.toml")
     _check_requested(profiles)
+    # until the new report is written, the folder says it is unverified
     result = verify_targets(model, root, profiles, data=Path(data) if data else None,
-                            n_random=n_random, seed=seed, options=_harness_options(postgres_dsn))
+                            n_random=n_random, seed=seed, options=_harness_options(postgres_dsn),
+                            before_running=(lambda: mark_unverified(root)) if report else None)
     if report:
         write_reports(result, root)
+        (root / UNVERIFIED).unlink(missing_ok=True)
     _print_summary(result, root if report else None)
-    return 0 if result.ok else 1
+    return result.exit_status
 
 
 @cli.command()
@@ -358,7 +371,10 @@ def _terminate(signum, frame):
 
 
 def main():
+    from .verify import interrupts
+
     signal.signal(signal.SIGTERM, _terminate)
+    interrupts.install()  # Ctrl-C stops build/verify even inside a runtime that swallows it
     cli.main(prog_name="scorewright")
 
 

@@ -105,9 +105,9 @@ def _build_and_verify(model, target_dir: Path, data_path: Path, force: bool) -> 
 
     report = build_targets(model, target_dir, force=force, data=data_path)
     for line in summary_lines(report):
-        click.echo(f"  {line}")
-    if not report.ok:
-        click.echo("some targets do not agree with the reference evaluator; see "
+        click.echo(f"  {line}" if line else "")
+    click.echo(report.headline())
+    if report.exit_status:
+        click.echo("not every target that ran agrees with the reference evaluator; see "
                    f"{target_dir / 'agreement.html'}", err=True)
-        return 1
-    return 0
+    return report.exit_status

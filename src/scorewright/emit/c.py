@@ -69,11 +69,13 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
 
 
 def driver_source(model: FrozenModel, prefix: str | None = None,
-                  precision: str = "double") -> str:
-    """The host driver (verify and tests): rows in, every output out as %a."""
+                  precision: str = "double", decision_only: bool = False) -> str:
+    """The host driver (verify and tests): rows in, every output out as %a (a
+    decision-only scorer has only its class index to give)."""
     plan = build_plan(model, precision)
     prefix = check_prefix(prefix) if prefix is not None else default_prefix(plan.stem)
-    return render("c/driver.c.j2", **context(plan, prefix, PRECISIONS[precision]))
+    return render("c/driver.c.j2", **context(plan, prefix, PRECISIONS[precision],
+                                             decision_only=decision_only))
 
 
 def exp_routine(prefix: str) -> dict:

@@ -8,6 +8,7 @@ timestamp, so the same data, options and libraries give the same model file.
 from __future__ import annotations
 
 import math
+import shlex
 import warnings
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -108,7 +109,7 @@ def fit_table(table: Table, opts: FitOptions, progress: bool = True, echo=None) 
     for name in schema.columns:
         if x[name.name].isna().all():
             raise ScorewrightError(f"column {name.name!r} has no values in the labelled rows; "
-                                   f"leave it out with --drop {name.name}")
+                                   f"leave it out with --drop {shlex.quote(name.name)}")
     spec = Spec(label.model, opts.penalty, opts.class_weight, opts.seed)
     check_spec(spec)
     if opts.cut is not None and label.model != "logistic":

@@ -17,6 +17,7 @@ except that the checks for junk text and empty columns still apply.
 
 from __future__ import annotations
 
+import shlex
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -145,7 +146,7 @@ def _infer_column(series, name, kind, given, max_levels):
     n_present = int(present.sum())
     if n_present == 0:
         raise ScorewrightError(f"column {name!r} has no values (missing in every row); "
-                               f"leave it out with --drop {name}")
+                               f"leave it out with --drop {shlex.quote(name)}")
     n_readable = int(readable.sum())
     junk = present & ~readable
     if kind == "numeric" or (kind is None and n_readable >= MOSTLY_NUMBERS * n_present
@@ -155,7 +156,7 @@ def _infer_column(series, name, kind, given, max_levels):
             raise ScorewrightError(
                 f"column {name!r}: {bad!r} at {_row(series, junk)} is not a number "
                 f"({n_readable} of {n_present} values are); fix the data, or pass "
-                f"--categorical {name} if it holds categories")
+                f"--categorical {shlex.quote(name)} if it holds categories")
     if kind is None:
         kind = "numeric" if n_readable == n_present else "categorical"
     if kind == "numeric":
@@ -183,7 +184,7 @@ def _numeric(name, numbers, present, given, boolean=False):
     distinct = np.unique(values[finite])
     if len(distinct) == 0:
         raise ScorewrightError(f"column {name!r} has no finite values; leave it out with "
-                               f"--drop {name}")
+                               f"--drop {shlex.quote(name)}")
     if len(distinct) == 1:
         return f"constant (every value is {distinct[0]:g})"
     kept = values[finite]

@@ -37,6 +37,18 @@ def _ordered(bits: np.ndarray, width: int) -> np.ndarray:
     return np.where(bits < 0, low - bits, bits)
 
 
+# The rule compare() applies, in words, for the agreement report and the console.
+RULE = ("A row passes when each of its outputs is within the target's stated ULP bound or "
+        "within its stated absolute bound (relative, for predicted values): either one "
+        "suffices. A class decision that differs is excused when the reference margin lies "
+        "within the stated margin tolerance of the decision cut (multiclass: of the "
+        "runner-up class's margin).")
+MAXIMA = ("The max ULP and max abs figures are maxima over all rows, taken separately: a "
+          "float target can show billions of ULPs where an output is near 0 (a tiny absolute "
+          "difference) and a large absolute difference on a huge margin (a few ULPs); each "
+          "row passed on one bound or the other.")
+
+
 @dataclass
 class Tolerance:
     """What a target promises: an output passes if within `*_ulps` OR within `*_abs`."""
@@ -76,10 +88,12 @@ class Comparison:
 
 
 def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
-    """expected: reference.score_matrix output; got: a RunOutput."""
+    """expected: reference.score_matrix output; got: a RunOutput. A decision-only output
+    (no margins) is compared on its class decisions alone."""
     n = expected["margins"].shape[0]
     result = Comparison(rows=n)
     bad: dict[int, list[str]] = {}
+    decisions_only = got.margins is None
 
     def check(name, want, have, ulps_ok, abs_ok, rel=0.0):
         want = np.asarray(want, dtype=np.float64)
@@ -102,10 +116,12 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
         for r in np.flatnonzero(rows_bad):
             bad.setdefault(int(r), []).append(name)
 
-    check("margin", expected["margins"], got.margins, tol.margin_ulps, tol.margin_abs)
-    if "probabilities" in expected:
+    if not decisions_only:
+        check("margin", expected["margins"], got.margins, tol.margin_ulps, tol.margin_abs)
+    if "probabilities" in expected and not decisions_only:
         check("probability", expected["probabilities"], got.probabilities,
               tol.probability_ulps, tol.probability_abs)
+    if "probabilities" in expected:
         labels_exp = expected["class_index"]
         labels_got = np.asarray(got.class_index)
         mismatch = labels_exp != labels_got if labels_got.shape == labels_exp.shape else \
@@ -114,7 +130,7 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
         result.label_mismatches = int(mismatch.sum())
         for r in np.flatnonzero(mismatch & ~excused):
             bad.setdefault(int(r), []).append("predicted_class")
-    if "value" in expected:
+    if "value" in expected and not decisions_only:
         # An identity-link value is the margin itself: a margin near 0 after cancellation
         # is held to the margin's absolute bound, as the margin is.
         value_abs = tol.margin_abs if expected.get("link") == "identity" else 0.0

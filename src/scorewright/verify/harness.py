@@ -20,7 +20,8 @@ from ..model import FrozenModel
 from ..plan import Plan, build_plan
 from ..reference import score_row
 from .cases import edge_rows, random_rows, read_csv_rows, rows_for_precision
-from .compare import Comparison, compare, ulp_distance
+from .compare import MAXIMA, RULE, Comparison, compare, ulp_distance
+from .interrupts import stop_if_interrupted
 from .profiles import Profile, builtin_names, load_profile
 from .runners import artifact_size, runner
 
@@ -30,8 +31,9 @@ SHOWN_ROWS = 5
 @dataclass
 class TargetResult:
     profile: Profile
-    status: str                      # pass | fail | error | unavailable
+    status: str                      # pass | fail | error | skipped
     message: str = ""
+    install: str = ""                # skipped: the command that installs what is missing
     runtime: str = ""
     artifacts: list = field(default_factory=list)
     comparison: Comparison | None = None
@@ -50,7 +52,40 @@ class AgreementReport:
 
     @property
     def ok(self) -> bool:
-        return all(r.status == "pass" for r in self.results)
+        """Every target that ran agrees (a skipped target did not run)."""
+        return all(r.status in ("pass", "skipped") for r in self.results)
+
+    def count(self, status: str) -> int:
+        return sum(1 for r in self.results if r.status == status)
+
+    @property
+    def exit_status(self) -> int:
+        """0: every target that ran agrees; 1: one disagrees (or its artifact did not
+        run); 2: no disagreement, but a target could not be checked (a missing artifact)."""
+        if self.count("fail"):
+            return 1
+        return 2 if self.count("error") else 0
+
+    def headline(self) -> str:
+        """One sentence: how many targets agree, disagree, could not be checked, skipped."""
+        ran = len(self.results) - self.count("skipped")
+        parts = []
+        if self.count("pass"):
+            parts.append(f"{self.count('pass')} of {ran} targets that ran agree with the "
+                         "reference evaluator")
+        disagree = sum(1 for r in self.results if r.status == "fail" and r.comparison)
+        broken = self.count("fail") - disagree
+        if disagree:
+            parts.append(f"{disagree} DISAGREE")
+        if broken:
+            parts.append(f"{broken} did not run (a fault of the artifact or its runtime)")
+        if self.count("error"):
+            parts.append(f"{self.count('error')} could not be checked (see the note)")
+        if self.count("skipped"):
+            parts.append(f"{self.count('skipped')} skipped (runtime not installed here)")
+        if not ran:
+            parts.insert(0, "no target could run here")
+        return "; ".join(parts) + "."
 
 
 def select_profiles(targets, only_available: bool) -> list[Profile]:
@@ -63,7 +98,7 @@ def select_profiles(targets, only_available: bool) -> list[Profile]:
             raise ScorewrightError(f"--target {dup!r} given twice")
         return profiles
     profiles = [load_profile(n) for n in builtin_names()]
-    if only_available:
+    if only_available:  # build lists the others as skipped; see build_targets
         profiles = [p for p in profiles if not p.missing_requirements()]
     return profiles
 
@@ -119,40 +154,111 @@ def artifact_names(model: FrozenModel, profile: Profile) -> list[str]:
     return [a.name for a in emitter(profile.emitter)(model, dict(profile.emit))]
 
 
-def emit_targets(model: FrozenModel, outdir: Path, profiles, force: bool) -> None:
+def artifact_dir(root: Path, profile: Profile) -> Path:
+    """Where a profile's artifacts are: ROOT/<profile>/ as `build` writes them, or ROOT
+    itself as `emit -o ROOT` writes them."""
+    sub = Path(root) / profile.name
+    return sub if sub.is_dir() else Path(root)
+
+
+def profiles_found(model: FrozenModel, root: Path) -> list[Profile]:
+    """The built-in profiles whose artifacts are in ROOT, in either layout.
+
+    `build`'s layout names the profile (a sub-directory each). A folder written by `emit`
+    holds the files alone: a profile is found there when every file it emits is present
+    and byte-identical. Several profiles emit the same names (the C targets): when none of
+    them matches the bytes (an altered file), the first is checked, so the alteration is
+    reported as a disagreement rather than passed over."""
+    root = Path(root)
+    profiles = [load_profile(n) for n in builtin_names()]
+    nested = [p for p in profiles if (root / p.name).is_dir()]
+    if nested:
+        return nested
+    found, by_names = [], {}
+    for profile in profiles:
+        arts = emitter(profile.emitter)(model, dict(profile.emit))
+        if not all((root / a.name).is_file() for a in arts):
+            continue
+        same = all((root / a.name).read_bytes() == a.content for a in arts)
+        key = tuple(sorted(a.name for a in arts))
+        by_names.setdefault(key, []).append((profile, same))
+    for group in by_names.values():
+        matching = [p for p, same in group if same]
+        found += matching or [group[0][0]]
+    return sorted(found, key=lambda p: p.name)
+
+
+def emit_targets(model: FrozenModel, outdir: Path, profiles, force: bool,
+                 before_writing=None) -> None:
     """Write every profile's artifacts into OUTDIR/<profile>/; refuse before writing anything
-    if a file exists and --force is not given."""
+    if a file exists and --force is not given. `before_writing()` runs once all is checked."""
     planned = []
     for profile in profiles:
         for art in emitter(profile.emitter)(model, dict(profile.emit)):
             path = outdir / profile.name / art.name
             check_writable(path, force)
             planned.append((path, art.content))
+    if before_writing is not None:
+        before_writing()
     for path, content in planned:
         write_atomic(path, content, force=force)
 
 
+def progress_to_stderr(text: str) -> None:
+    """Progress goes to stderr, so stdout holds only the summary."""
+    click.echo(text, err=True)
+
+
 def verify_targets(model: FrozenModel, outdir: Path, profiles, data=None, n_random=1000,
-                   seed=0, options=None) -> AgreementReport:
+                   seed=0, options=None, progress=progress_to_stderr,
+                   before_running=None) -> AgreementReport:
+    """Run every profile's artifacts in OUTDIR/<profile>/; `progress` gets a line per
+    target as it finishes (None: silent). `before_running()` runs once the rows are read
+    and checked, so bad input (--data) stops everything before it changes a file."""
     started = time.perf_counter()
+    say = progress or (lambda text: None)
     plan = build_plan(model)
     rows, labels, sources = check_rows(plan, data, n_random, seed)
     expected = expected_outputs(plan, rows)
+    if before_running is not None:
+        before_running()
+    say(f"verifying {len(profiles)} target{'s' if len(profiles) != 1 else ''} on "
+        f"{len(rows):,} rows ({', '.join(f'{k} {v:,}' for k, v in sources.items())})")
     results = []
-    with click.progressbar(profiles, label="verifying", file=click.get_text_stream("stderr"),
-                           item_show_func=lambda p: p.name if p else "") as bar:
-        for profile in bar:
-            results.append(_verify_one(model, outdir, profile, rows, labels, expected,
-                                       dict(options or {})))
+    width = len(str(len(profiles)))
+    for i, profile in enumerate(profiles, 1):
+        result = _verify_one(model, outdir, profile, rows, labels, expected,
+                             dict(options or {}))
+        results.append(result)
+        say(f"  [{i:>{width}}/{len(profiles)}] {progress_line(result)}")
+    stop_if_interrupted()
     return AgreementReport(model, sources, results, time.perf_counter() - started)
+
+
+def progress_line(r: TargetResult) -> str:
+    if r.status == "skipped":
+        return f"{r.profile.name:<22} SKIPPED  {r.message}"
+    return f"{r.profile.name:<22} {r.status.upper():<8} {r.seconds:6.1f} s"
+
+
+def skipped(profile: Profile, lacks: list[str]) -> TargetResult:
+    install = profile.install_command(lacks)
+    return TargetResult(profile, "skipped", f"needs {', '.join(lacks)}; install: {install}",
+                        install=install)
 
 
 def _verify_one(model, outdir, profile, rows, labels, expected, extra) -> TargetResult:
     t0 = time.perf_counter()
     lacks = profile.missing_requirements()
     if lacks:
-        return TargetResult(profile, "unavailable", f"this machine lacks {', '.join(lacks)}")
-    where = outdir / profile.name
+        return skipped(profile, lacks)
+    result = _check_target(model, outdir, profile, rows, labels, expected, extra)
+    result.seconds = time.perf_counter() - t0
+    return result
+
+
+def _check_target(model, outdir, profile, rows, labels, expected, extra) -> TargetResult:
+    where = artifact_dir(outdir, profile)
     names = artifact_names(model, profile)
     result = TargetResult(profile, "error", artifacts=[str(where / n) for n in names])
     for name in names:
@@ -173,10 +279,13 @@ def _verify_one(model, outdir, profile, rows, labels, expected, extra) -> Target
     try:
         got = runner(profile.runner)(where, model, rows, options)
     except ScorewrightError as exc:
+        stop_if_interrupted()
         result.status = "fail"
         result.message = f"the artifact did not run: {exc}"
         return result
     except Exception as exc:  # a runtime's own failure is a finding, not a crash of verify
+        # A runtime may turn Ctrl-C into an error of its own (DuckDB: "Query interrupted").
+        stop_if_interrupted()
         result.status = "fail"
         last = traceback.format_exception_only(type(exc), exc)[-1].strip()
         result.message = f"the artifact did not run: {last[:300]}"
@@ -187,6 +296,7 @@ def _verify_one(model, outdir, profile, rows, labels, expected, extra) -> Target
         try:
             result.size = size(where, model, options)
         except Exception as exc:  # a size report that cannot be made is noted, not fatal
+            stop_if_interrupted()
             result.size = {"error": traceback.format_exception_only(type(exc), exc)[-1].strip()}
     comparison = compare(expected, got, profile.tolerance)
     result.comparison = comparison
@@ -198,11 +308,12 @@ def _verify_one(model, outdir, profile, rows, labels, expected, extra) -> Target
                           f"({', '.join(comparison.reasons[comparison.failing_rows[0]])})")
         result.shown = [_show_row(i, labels, rows, expected, got, comparison)
                         for i in comparison.failing_rows[:SHOWN_ROWS]]
-    result.seconds = time.perf_counter() - t0
     return result
 
 
 def _row_ulps(expected, got, precision) -> np.ndarray | None:
+    if got.margins is None:  # decision only: no figure to measure in ULPs
+        return None
     try:
         parts = [ulp_distance(expected["margins"], got.margins, precision).max(axis=1)]
         if "probabilities" in expected:
@@ -228,7 +339,12 @@ def _show_row(i, labels, rows, expected, got, comparison) -> dict:
     shown = {"row": labels[i], "inputs": {k: _plain(v) for k, v in rows[i].items()},
              "disagrees_on": comparison.reasons[i],
              "expected": {"margins": [_plain(v) for v in expected["margins"][i]]},
-             "got": {"margins": [_plain(v) for v in np.asarray(got.margins)[i]]}}
+             "got": {}}
+    if got.margins is None:  # a decision-only artifact gives its class index alone
+        shown["expected"]["class_index"] = int(expected["class_index"][i])
+        shown["got"]["class_index"] = _plain(np.asarray(got.class_index)[i])
+        return shown
+    shown["got"]["margins"] = [_plain(v) for v in np.asarray(got.margins)[i]]
     if "probabilities" in expected:
         shown["expected"]["probabilities"] = [_plain(v) for v in expected["probabilities"][i]]
         shown["expected"]["class_index"] = int(expected["class_index"][i])
@@ -240,28 +356,57 @@ def _show_row(i, labels, rows, expected, got, comparison) -> dict:
     return shown
 
 
+REPORT_NAMES = ("agreement.json", "agreement.html")
+UNVERIFIED = "UNVERIFIED.txt"
+UNVERIFIED_TEXT = """\
+The artifacts in this folder have NOT been verified.
+
+`scorewright build` writes this file before it emits anything and removes it once
+agreement.json and agreement.html are written. If you can read this, the build was
+interrupted or failed before its check finished: do not use these artifacts; run
+`scorewright build` again (or `scorewright verify MODEL THIS_FOLDER`).
+"""
+
+
 def write_reports(report: AgreementReport, outdir: Path) -> tuple[Path, Path]:
     from .report import agreement_html, agreement_json
 
-    json_path, html_path = outdir / "agreement.json", outdir / "agreement.html"
+    json_path, html_path = (outdir / name for name in REPORT_NAMES)
     write_atomic(json_path, agreement_json(report).encode("utf-8"), force=True)
     write_atomic(html_path, agreement_html(report).encode("utf-8"), force=True)
     return json_path, html_path
 
 
+def mark_unverified(outdir: Path) -> None:
+    """Say the folder is unverified until its new agreement report is written; an older
+    report would speak for artifacts that are being replaced, so it goes first."""
+    write_atomic(outdir / UNVERIFIED, UNVERIFIED_TEXT.encode("utf-8"), force=True)
+    for name in REPORT_NAMES:
+        (outdir / name).unlink(missing_ok=True)
+
+
 def build_targets(model: FrozenModel, outdir: Path, targets=None, force=False, data=None,
-                  n_random=1000, seed=0, options=None) -> AgreementReport:
-    """Emit every requested target (default: all this machine can run) and verify them."""
+                  n_random=1000, seed=0, options=None,
+                  progress=progress_to_stderr) -> AgreementReport:
+    """Emit every requested target (default: every built-in one; those this machine cannot
+    run are reported as skipped and not written) and verify them."""
     outdir = Path(outdir)
-    profiles = select_profiles(targets, only_available=not targets)
-    emit_targets(model, outdir, profiles, force)
+    profiles = select_profiles(targets, only_available=False)
+    runnable = [p for p in profiles if not p.missing_requirements()]
+
+    def emit():
+        emit_targets(model, outdir, runnable, force,
+                     before_writing=lambda: mark_unverified(outdir))
+
     report = verify_targets(model, outdir, profiles, data=data, n_random=n_random, seed=seed,
-                            options=options)
+                            options=options, progress=progress, before_running=emit)
     write_reports(report, outdir)
+    (outdir / UNVERIFIED).unlink(missing_ok=True)
     return report
 
 
 def summary_lines(report: AgreementReport) -> list[str]:
+    """The console summary: a line per target, the rule, the headline."""
     lines = []
     for r in report.results:
         c = r.comparison
@@ -269,10 +414,29 @@ def summary_lines(report: AgreementReport) -> list[str]:
         if c is not None:
             diffs = ", ".join(f"{k} {c.max_ulps[k]:g} ULP / {c.max_abs.get(k, 0.0):.2g} abs"
                               for k in c.max_ulps)
-            detail = f"{c.rows} rows; max difference: {diffs}"
+            detail = f"{c.rows} rows; max difference: {diffs}" if diffs else \
+                f"{c.rows} rows; decisions only: {c.label_mismatches} differ"
         msg = f" - {r.message}" if r.message else ""
         lines.append(f"{r.status.upper():<11} {r.profile.name:<22} {detail}{msg}")
+    if any(r.comparison is not None for r in report.results):
+        lines += ["", f"rule: {RULE}"]
+    if any(passed_on_abs(r) for r in report.results):
+        lines.append(MAXIMA)
     return lines
+
+
+ULP_BOUNDS = {"margin": "margin_ulps", "probability": "probability_ulps",
+              "predicted_value": "value_ulps"}
+
+
+def passed_on_abs(r: TargetResult) -> bool:
+    """A passing target whose largest ULP figure exceeds its ULP bound: some row passed on
+    the absolute (or relative) bound, which the ULP column alone does not show."""
+    if r.status != "pass" or r.comparison is None:
+        return False
+    tol = r.profile.tolerance
+    return any(v > getattr(tol, ULP_BOUNDS[k]) for k, v in r.comparison.max_ulps.items()
+               if k in ULP_BOUNDS)
 
 
 __all__ = ["build_targets", "verify_targets", "write_reports", "summary_lines",

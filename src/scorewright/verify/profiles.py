@@ -3,7 +3,6 @@ the artifact, and the target's stated tolerance. A user adds a target by writing
 
 from __future__ import annotations
 
-import shutil
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -38,12 +37,15 @@ class Profile:
 
     def missing_requirements(self) -> list[str]:
         """What this machine lacks to run the profile (empty: it can run)."""
-        import importlib.util
+        from .requirements import missing
 
-        lacks = [c for c in self.requires.get("commands", []) if shutil.which(c) is None]
-        lacks += [m for m in self.requires.get("modules", [])
-                  if importlib.util.find_spec(m) is None]
-        return lacks
+        return missing(self.requires)
+
+    def install_command(self, lacks: list[str]) -> str:
+        """The shell line that installs what this profile lacks."""
+        from .requirements import install_command
+
+        return install_command(self.requires, lacks)
 
 
 def profiles_dir() -> Path:

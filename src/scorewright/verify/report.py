@@ -8,6 +8,7 @@ import io
 import json
 
 from .. import __version__
+from .compare import MAXIMA, RULE
 
 
 def _result_dict(r) -> dict:
@@ -23,6 +24,8 @@ def _result_dict(r) -> dict:
         "stated_tolerance": {k: getattr(tol, k) for k in tol.__dataclass_fields__},
         "seconds": round(r.seconds, 3),
     }
+    if r.install:
+        out["install"] = r.install
     if r.size is not None:
         out["size"] = r.size
     if c is not None:
@@ -44,6 +47,8 @@ def agreement_json(report) -> str:
         "scorewright_version": __version__,
         "rows": report.row_sources,
         "all_agree": report.ok,
+        "headline": report.headline(),
+        "rule": RULE,
         "seconds": round(report.seconds, 3),
         "targets": [_result_dict(r) for r in report.results],
     }
@@ -113,8 +118,10 @@ def agreement_html(report) -> str:
     shown = sizes + shown
     png = _plot_png(report)
     plot = f"<img alt='agreement plot' src='data:image/png;base64,{png}'>" if png else ""
-    verdict = "All targets agree with the reference evaluator." if report.ok else \
-        "At least one target DISAGREES with the reference evaluator."
+    from .harness import passed_on_abs
+
+    verdict = report.headline()
+    maxima = f"<p>{e(MAXIMA)}</p>" if any(passed_on_abs(r) for r in report.results) else ""
     return f"""<!doctype html>
 <html lang="en"><head><meta charset="utf-8">
 <title>Agreement report: {e(report.model.name)}</title>
@@ -123,6 +130,7 @@ body {{ font-family: sans-serif; margin: 2em; max-width: 80em; }}
 table {{ border-collapse: collapse; }} td, th {{ border: 1px solid #ccc; padding: 4px 8px; }}
 tr.pass td:nth-child(2) {{ color: #2b7a3d; font-weight: bold; }}
 tr.fail td:nth-child(2), tr.error td:nth-child(2) {{ color: #b3261e; font-weight: bold; }}
+tr.skipped td {{ color: #666; }}
 pre {{ background: #f4f4f4; padding: 1em; overflow: auto; }}
 </style></head><body>
 <h1>Agreement report</h1>
@@ -130,6 +138,9 @@ pre {{ background: #f4f4f4; padding: 1em; overflow: auto; }}
 scorewright {e(__version__)}.</p>
 <p>Rows checked: {e(", ".join(f"{k} {v}" for k, v in report.row_sources.items()))}.</p>
 <p><b>{e(verdict)}</b></p>
+<p>{e(RULE)} A skipped target did not run on this machine (its runtime is not installed;
+the note gives the command that installs it) and counts neither way.</p>
+{maxima}
 <table><tr><th>target</th><th>status</th><th>runtime</th><th>rows</th><th>max ULP</th>
 <th>max abs</th><th>label mismatches</th><th>stated tolerance</th><th>note</th></tr>
 {''.join(rows)}

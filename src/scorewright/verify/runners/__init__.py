@@ -22,7 +22,7 @@ import numpy as np
 @dataclass
 class RunOutput:
     runtime: str                           # e.g. "SQLite 3.40.1", "gcc 12.2.0 -O2"
-    margins: np.ndarray                    # (n, K)
+    margins: np.ndarray | None             # (n, K); None: a decision-only artifact
     probabilities: np.ndarray | None = None  # (n, C), classification
     class_index: np.ndarray | None = None    # (n,), classification
     value: np.ndarray | None = None          # (n,), regression

@@ -72,7 +72,8 @@ def build_driver(artifact_dir: Path, model: FrozenModel, options: dict, workdir:
         if not path.is_file():
             raise ScorewrightError(f"c: artifact {path} is missing")
     driver = workdir / f"{prefix}_driver.c"
-    driver.write_text(driver_source(model, prefix, precision), encoding="ascii")
+    driver.write_text(driver_source(model, prefix, precision,
+                                    bool(options.get("decision_only"))), encoding="ascii")
     exe = workdir / f"{prefix}_driver"
     compiler = options.get("compiler", "gcc")
     cmd = [compiler, *flags_of(options), "-I", str(artifact_dir), "-o", str(exe),
@@ -99,16 +100,19 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     if proc.returncode != 0:
         raise ScorewrightError(f"c: the scorer exited with status {proc.returncode}: "
                                f"{proc.stderr.strip()[-300:]}")
-    return parse_output(plan, proc.stdout, runtime)
+    return parse_output(plan, proc.stdout, runtime, bool(options.get("decision_only")))
 
 
-def parse_output(plan, text: str, runtime: str) -> RunOutput:
-    """RunOutput from the driver's per-row lines (hex floats and a class index)."""
+def parse_output(plan, text: str, runtime: str, decision_only: bool = False) -> RunOutput:
+    """RunOutput from the driver's per-row lines (hex floats and a class index; only the
+    class index from a decision-only scorer)."""
     lines = text.splitlines()
     table = [line.split() for line in lines]
     k = plan.n_outputs
     n = len(table)
     try:
+        if decision_only:
+            return decisions(runtime, table)
         if plan.task == "binary":
             m = np.array([float.fromhex(r[0]) for r in table]).reshape(n, 1)
             p1 = np.array([float.fromhex(r[1]) for r in table])
@@ -124,3 +128,11 @@ def parse_output(plan, text: str, runtime: str) -> RunOutput:
         return RunOutput(runtime, m, value=v)
     except (IndexError, ValueError) as exc:
         raise ScorewrightError(f"c: unreadable scorer output ({exc})") from None
+
+
+def decisions(runtime: str, table: list[list[str]]) -> RunOutput:
+    """A decision-only scorer's output: one class index per row, nothing else."""
+    if any(len(r) != 1 for r in table):
+        raise ValueError("expected one class index per row")
+    return RunOutput(runtime, None, class_index=np.array([int(r[0]) for r in table],
+                                                         dtype=np.int64))

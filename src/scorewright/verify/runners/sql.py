@@ -20,6 +20,7 @@ from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import build_plan, output_columns
 from ...values import _integral, numeric_value
+from ..interrupts import cancel_on_interrupt, forget_cancel
 from . import RunOutput
 from .python import outputs_from_table
 
@@ -215,6 +216,7 @@ class SQLite:
         import sqlite3
 
         con = sqlite3.connect(":memory:")
+        cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
         try:
             con.execute(create_table(d, name, table))
             con.executemany(insert(d, name, table, "?"), _records(table))
@@ -226,6 +228,7 @@ class SQLite:
         except sqlite3.Error as exc:
             raise ScorewrightError(f"sql: SQLite failed: {exc}") from None
         finally:
+            forget_cancel(con.interrupt)
             con.close()
 
 
@@ -240,6 +243,7 @@ class DuckDB:
         import duckdb
 
         con = duckdb.connect(":memory:")
+        cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
         try:
             con.execute(create_table(d, name, table))
             con.executemany(insert(d, name, table, "?"), _records(table))
@@ -252,6 +256,7 @@ class DuckDB:
         except duckdb.Error as exc:
             raise ScorewrightError(f"sql: DuckDB failed: {exc}") from None
         finally:
+            forget_cancel(con.interrupt)
             con.close()
 
 
@@ -343,6 +348,8 @@ class Spark:
             cls._session = (SparkSession.builder.master("local[2]")
                             .appName("scorewright-verify")
                             .config("spark.ui.enabled", "false")
+                            # stage bars would break verify's progress lines on stderr
+                            .config("spark.ui.showConsoleProgress", "false")
                             .config("spark.sql.shuffle.partitions", "2")
                             # Planning a 10,000-feature query needs more than the
                             # 1 GB default heap (measured: 2 GB ran out, 4 GB did not).
@@ -353,11 +360,11 @@ class Spark:
 
     @classmethod
     def execute(cls, options, d, name, table, setup, query):
+        spark = cls.session()  # first: without pyspark it says what to install
         from py4j.protocol import Py4JJavaError
         from pyspark.errors import PySparkException
         from pyspark.sql import types as T
 
-        spark = cls.session()
         ansi = bool(options.get("ansi", True))
         spark.conf.set("spark.sql.ansi.enabled", "true" if ansi else "false")
         kinds = {"double": T.DoubleType(), "bigint": T.LongType(), "string": T.StringType()}
