@@ -7,6 +7,12 @@ start, SQL and C keywords, names equal up to case, very long names). For each
 generated model every built-in target's artifact is emitted, run in its real
 runtime and compared with the reference evaluator, so an artifact that executed
 anything a name says, or mis-parsed one, fails.
+
+The default run takes one profile per emitter_key (tests/profile_tags.py: profiles of one
+key render names the same way, so c-double stands for c-double-portable-exp and both
+Cortex-M boards, onnx-double for onnx-double-reference); every profile still runs the
+committed hostile model in the conformance suite. `--runslow` runs every profile, with
+ten times as many models, drawn anew.
 """
 
 from __future__ import annotations
@@ -18,13 +24,14 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import tally
+from profile_tags import params_one_per_emitter_key
 from scorewright.emit import emitter
 from scorewright.model import CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature
 from scorewright.plan import build_plan
 from scorewright.errors import ScorewrightError
 from scorewright.verify.compare import compare
 from scorewright.verify.harness import oracle
-from scorewright.verify.profiles import builtin_names, load_profile
+from scorewright.verify.profiles import load_profile
 from scorewright.verify.runners import runner
 
 BREAKERS = ['"', "'", "`", "\u2019", "\u201c", "\\", "\\\\", "*/", "/*", "--", "#", ";", "\n",
@@ -34,7 +41,6 @@ BREAKERS = ['"', "'", "`", "\u2019", "\u201c", "\\", "\\\\", "*/", "/*", "--", "
             "def", "import os", "#include <stdio.h>", "#define x 1\n", "\\\n", "é", "É",
             "\U0001d518", "温度", "\u202e", " ", "x" * 300]
 EXAMPLES = 320
-PROFILES = builtin_names()
 
 text = st.one_of(
     st.text(min_size=1, max_size=16),
@@ -98,7 +104,7 @@ def _options(profile, request):
     return opts
 
 
-@pytest.mark.parametrize("profile_name", PROFILES)
+@pytest.mark.parametrize("profile_name", params_one_per_emitter_key())
 def test_hostile_strings_reach_every_target_safely(profile_name, tmp_path_factory, request):
     profile = load_profile(profile_name)
     lacks = profile.missing_requirements()
