@@ -70,8 +70,8 @@ def test_models_past_the_layer_boundaries_run_on_every_target(kind, profile_name
         options["dsn"] = request.getfixturevalue("postgres_dsn")
     got = runner(profile.runner)(tmp_path, model, rows, options)
     result = compare(expected, got, profile.tolerance)
-    tally.add(f"boundary run: {n} {kind} on {profile_name}", 1)
     assert result.ok, (result.max_ulps, result.reasons)
+    tally.add("scale: models just past a layer boundary, run on a target and agreeing", 1)
 
 
 @pytest.mark.parametrize("profile_name", sorted(ENGINE_LIMITS))
