@@ -9,6 +9,7 @@ test suite checks the same paths past each emitter's layer boundaries on every r
 and at these sizes with --runslow, but never asserts a time.
 
 Run: python bench/bench_scale.py [--features N] [--levels N] [--rows N] [--target NAME ...]
+The table goes to stdout; Spark's progress and log lines go to stderr (2>/dev/null).
 The full default run takes about 30 minutes on a 2-core machine (the 10,000-feature
 model on SQLite long, DuckDB, Spark and two Cortex-M cross-builds take minutes each).
 """
