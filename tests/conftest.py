@@ -1,4 +1,6 @@
-"""Shared fixtures: the test models and a real PostgreSQL server for the session."""
+"""Shared set-up, made once per test session: a real PostgreSQL server (postgres_dsn) and
+a local Spark session (spark). The test tiers: the default run, and --runslow for the
+tests marked slow (DEVELOPERS.md, Tests)."""
 
 from __future__ import annotations
 
@@ -16,6 +18,33 @@ def pytest_collection_modifyitems(config, items):
     for item in items:
         if "slow" in item.keywords:
             item.add_marker(skip)
+
+
+def pytest_configure(config):
+    """Count the PostgreSQL servers this process starts: one is expected (postgres_dsn); a
+    runner given no dsn would start its own for every query."""
+    import tally
+    from scorewright.verify.postgres import TemporaryServer
+
+    start = TemporaryServer.start
+    if getattr(start, "counted", False):
+        return
+
+    def counted_start(self, *args, **kwargs):
+        tally.add("PostgreSQL servers started by the test process (1 expected)", 1)
+        return start(self, *args, **kwargs)
+
+    counted_start.counted = True
+    TemporaryServer.start = counted_start
+
+
+@pytest.fixture(scope="session")
+def spark():
+    """The local Spark session (local[2], 4 GB driver heap) the spark dialect's runner uses;
+    one JVM serves the whole run."""
+    from scorewright.verify.runners.sql import Spark
+
+    return Spark.session()
 
 
 @pytest.fixture(scope="session")

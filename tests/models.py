@@ -208,3 +208,23 @@ def wide_model(n: int, prefix: str = "sensor", spread: float = 0.02) -> FrozenMo
                 (tuple(rng.gauss(0, spread) for _ in range(n)),), 0.0)
     return FrozenModel(f"wide_{n}", feats, tuple(DesignColumn(f.name) for f in feats), head,
                        {"scorewright_version": "test", "source": "scale test"}).sealed()
+
+
+def many_levels_model(n_levels: int) -> FrozenModel:
+    """An invented binary model of one load reading and one categorical of n_levels sites
+    (seeded by n_levels): the shape that tests how far each target scales in levels."""
+    import random
+
+    from scorewright.model import (CategoricalFeature, DesignColumn, Head, NumericFeature,
+                                   ScalingStep)
+
+    rng = random.Random(n_levels)
+    levels = tuple(f"site-{i:05d}" for i in range(n_levels))
+    feats = (NumericFeature("load_pct", 50.0, (ScalingStep("subtract", 50.0),
+                                                ScalingStep("divide", 20.0))),
+             CategoricalFeature("site", levels, None, None))
+    design = (DesignColumn("load_pct"),) + tuple(DesignColumn("site", (lv,)) for lv in levels)
+    coefs = (0.4,) + tuple(rng.gauss(0, 0.5) for _ in levels)
+    return FrozenModel(f"levels_{n_levels}", feats, design,
+                       Head("binary", "logit", (0, 1), (0.1,), (coefs,), 0.0),
+                       {"scorewright_version": "test", "source": "scale test"}).sealed()

@@ -475,3 +475,18 @@ def test_a_row_of_missing_inputs_is_scored_by_the_runtime_exp(profile_name, tmp_
     assert list(got.class_index) == [1, 1], "-99: the batch function disagreed with a row one"
     assert got.margins[0, 0] == got.margins[1, 0] == 1.140625
     assert got.probabilities[0, 1].hex() == got.probabilities[1, 1].hex()
+
+
+def test_tool_versions_are_asked_once_per_process():
+    """The runtime line of every run names the compiler and emulator versions; each is
+    asked of the tool once per process, not once per build (960 gcc builds, hundreds of
+    qemu boots a test run)."""
+    _require()
+    options = load_profile("c-cortex-m3").run_options
+    first = cortex_m.runtime_of(options)
+    asked = (crunner.compiler_version.cache_info().misses,
+             cortex_m.emulator_version.cache_info().misses)
+    assert cortex_m.runtime_of(options) == first
+    assert (crunner.compiler_version.cache_info().misses,
+            cortex_m.emulator_version.cache_info().misses) == asked
+    assert "arm-none-eabi-gcc" in first and "QEMU" in first

@@ -7,6 +7,12 @@ start, SQL and C keywords, names equal up to case, very long names). For each
 generated model every built-in target's artifact is emitted, run in its real
 runtime and compared with the reference evaluator, so an artifact that executed
 anything a name says, or mis-parsed one, fails.
+
+The default run takes one profile per emitter_key (tests/profile_tags.py: profiles of one
+key render names the same way, so c-double stands for c-double-portable-exp and both
+Cortex-M boards, onnx-double for onnx-double-reference), with fewer models where a run is
+costly (Spark); every profile still runs the committed hostile model in the conformance
+suite. `--runslow` runs every profile, with ten times as many models, drawn anew.
 """
 
 from __future__ import annotations
@@ -18,13 +24,14 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 import tally
+from profile_tags import params_one_per_emitter_key
 from scorewright.emit import emitter
 from scorewright.model import CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature
 from scorewright.plan import build_plan
 from scorewright.errors import ScorewrightError
 from scorewright.verify.compare import compare
 from scorewright.verify.harness import oracle
-from scorewright.verify.profiles import builtin_names, load_profile
+from scorewright.verify.profiles import load_profile
 from scorewright.verify.runners import runner
 
 BREAKERS = ['"', "'", "`", "\u2019", "\u201c", "\\", "\\\\", "*/", "/*", "--", "#", ";", "\n",
@@ -34,7 +41,9 @@ BREAKERS = ['"', "'", "`", "\u2019", "\u201c", "\\", "\\\\", "*/", "/*", "--", "
             "def", "import os", "#include <stdio.h>", "#define x 1\n", "\\\n", "é", "É",
             "\U0001d518", "温度", "\u202e", " ", "x" * 300]
 EXAMPLES = 320
-PROFILES = builtin_names()
+# The default run's models per profile, by its cost tag: a Spark run is a JVM job of about
+# 0.5-1 s, so its two keys take 80 models each by default (the 320 and more with --runslow).
+DEFAULT_EXAMPLES = {"low": EXAMPLES, "medium": EXAMPLES, "high": 80}
 
 text = st.one_of(
     st.text(min_size=1, max_size=16),
@@ -98,13 +107,14 @@ def _options(profile, request):
     return opts
 
 
-@pytest.mark.parametrize("profile_name", PROFILES)
+@pytest.mark.parametrize("profile_name", params_one_per_emitter_key())
 def test_hostile_strings_reach_every_target_safely(profile_name, tmp_path_factory, request):
     profile = load_profile(profile_name)
     lacks = profile.missing_requirements()
     assert not lacks, f"{profile_name} cannot run here: lacks {lacks}"
     options = _options(profile, request)
-    examples = EXAMPLES * (10 if request.config.getoption("--runslow") else 1)
+    examples = EXAMPLES * 10 if request.config.getoption("--runslow") else \
+        DEFAULT_EXAMPLES[profile.tags["cost"]]
     seen, refused = [], []
 
     # The CI run draws the same examples every time (a failure there is reproducible);

@@ -1,5 +1,6 @@
 """The SQL target's spark dialect on a real local Spark session (pyspark from PyPI,
-local[2], the image's Java 17). One session serves the whole test run.
+local[2], the image's Java 17). One session serves the whole test run (`spark` in
+conftest.py).
 
 Margins must agree with the reference evaluator bit for bit; probabilities and the
 log-link value within the profile's stated ULPs, because Spark's exp is Java's
@@ -31,11 +32,6 @@ PROFILE = tomllib.loads((Path(__file__).parent.parent / "targets" / "sql-spark.t
                         .read_text())
 ULPS = PROFILE["tolerance"]["probability_ulps"]
 SPARK = DIALECTS["spark"]
-
-
-@pytest.fixture(scope="module")
-def spark():
-    return sql_runner.Spark.session()
 
 
 def ulp_gap(a, b) -> int:

@@ -11,7 +11,8 @@ from ..emit.templating import templates_dir
 from ..errors import ScorewrightError
 from .compare import Tolerance
 
-PROFILE_KEYS = ("name", "description", "emitter", "emit", "verify", "tolerance", "requires")
+PROFILE_KEYS = ("name", "description", "emitter", "emit", "verify", "tolerance", "requires",
+                "tags")
 
 
 @dataclass(frozen=True)
@@ -24,6 +25,9 @@ class Profile:
     tolerance: Tolerance
     requires: dict = field(default_factory=dict)  # {"commands": [...], "modules": [...]}
     path: Path | None = None
+    # Labels that choose which checks the test suite gives the profile (family,
+    # emitter_key, needs_server, cost; DEVELOPERS.md); scoring never reads them.
+    tags: dict = field(default_factory=dict)
 
     @property
     def runner(self) -> str:
@@ -74,9 +78,12 @@ def load_profile(name_or_path: str) -> Profile:
     for key in ("name", "emitter"):
         if not isinstance(table.get(key), str) or not table[key]:
             raise ScorewrightError(f"{path}: {key!r} must be a non-empty string")
-    for key in ("emit", "verify", "tolerance", "requires"):
+    for key in ("emit", "verify", "tolerance", "requires", "tags"):
         if not isinstance(table.get(key, {}), dict):
             raise ScorewrightError(f"{path}: [{key}] must be a table")
+    for tag, value in table.get("tags", {}).items():
+        if not isinstance(value, (str, bool, int)):
+            raise ScorewrightError(f"{path}: [tags] {tag!r} must be a string, boolean or integer")
     try:
         tolerance = Tolerance.from_table(table.get("tolerance", {}))
     except TypeError as exc:
@@ -85,4 +92,4 @@ def load_profile(name_or_path: str) -> Profile:
         raise ScorewrightError(f"{path}: {exc}") from None
     return Profile(table["name"], table.get("description", ""), table["emitter"],
                    table.get("emit", {}), table.get("verify", {}), tolerance,
-                   table.get("requires", {}), path)
+                   table.get("requires", {}), path, table.get("tags", {}))

@@ -13,6 +13,7 @@ import math
 import shlex
 import subprocess
 import tempfile
+from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
@@ -50,6 +51,7 @@ def flags_of(options: dict) -> list[str]:
     return shlex.split(flags) if isinstance(flags, str) else [str(f) for f in flags]
 
 
+@lru_cache(maxsize=None)  # asked once per process and compiler (a failure is not kept)
 def compiler_version(compiler: str) -> str:
     try:
         proc = subprocess.run([compiler, "--version"], capture_output=True, text=True,

@@ -20,6 +20,7 @@ import struct
 import subprocess
 import tempfile
 from dataclasses import dataclass
+from functools import lru_cache
 from pathlib import Path
 
 import numpy as np
@@ -159,11 +160,16 @@ def emulate(image: Path, rows_bin: bytes, options: dict, workdir: Path) -> str:
     return out.read_text(encoding="ascii")
 
 
+@lru_cache(maxsize=None)  # asked once per process and emulator (a failure is not kept)
+def emulator_version(qemu: str) -> str:
+    return _run([qemu, "--version"], "qemu --version", 60).stdout.splitlines()[0].strip()
+
+
 def runtime_of(options: dict) -> str:
     board = Board(options)
-    qemu = _run([board["qemu"], "--version"], "qemu --version", 60).stdout.splitlines()[0]
+    qemu = emulator_version(board["qemu"])
     return (f"{compiler_version(board['compiler'])} {' '.join(board.flags('arch_flags'))} "
-            f"{' '.join(board.flags('cflags'))}; {board['cpu']} on {qemu.strip()} "
+            f"{' '.join(board.flags('cflags'))}; {board['cpu']} on {qemu} "
             f"-M {board['machine']}")
 
 
