@@ -3,8 +3,11 @@ local[2], the image's Java 17). One session serves the whole test run (`spark` i
 conftest.py).
 
 Margins must agree with the reference evaluator bit for bit; probabilities and the
-log-link value within the profile's stated ULPs, because Spark's exp is Java's
-StrictMath.exp (fdlibm) rather than the C library's (shown below). The expressions
+log-link value within the profile's stated tolerance (its ULPs, or for a probability
+its absolute bound: a row passes if either holds, as verify's rule says), because
+Spark's exp is Java's StrictMath.exp (fdlibm) rather than the C library's (shown
+below). A binary p0 = 1 - p1 inherits p1's absolute error, which is many ULPs of a
+small p0 (8 ULPs of 0.168 from a 2-ULP p1 on mixed_scalers). The expressions
 form (selectExpr) must give the query's bits exactly.
 """
 
@@ -31,6 +34,7 @@ from scorewright.verify.runners import sql as sql_runner
 PROFILE = tomllib.loads((Path(__file__).parent.parent / "targets" / "sql-spark.toml")
                         .read_text())
 ULPS = PROFILE["tolerance"]["probability_ulps"]
+PROBABILITY_ABS = PROFILE["tolerance"]["probability_abs"]
 SPARK = DIALECTS["spark"]
 
 
@@ -61,7 +65,10 @@ def test_agrees_with_reference(tmp_path, spark, name, form, ansi):
     if plan.task == "regression":
         assert ulp_gap(got.value, [s.value for s in ref]) <= ULPS
     else:
-        assert ulp_gap(got.probabilities, [s.probabilities for s in ref]) <= ULPS
+        want = np.array([s.probabilities for s in ref])
+        gap = np.abs(bits(got.probabilities) - bits(want))
+        excused = np.abs(got.probabilities - want) <= PROBABILITY_ABS
+        assert ((gap <= ULPS) | excused).all(), int(gap[~excused].max(initial=0))
         assert list(got.class_index) == [s.class_index for s in ref]
 
 
