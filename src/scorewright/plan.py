@@ -71,6 +71,7 @@ class NumericInput:
     steps: tuple[ScalingStep, ...]
     clip: tuple[float, float] | None
     kind: str = "numeric"
+    boolean: bool = False       # fitted on a boolean column: true/false read as 1/0
 
 
 @dataclass(frozen=True)
@@ -175,7 +176,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
     for i, feat in enumerate(model.features):
         if isinstance(feat, NumericFeature):
             bound = _numeric_bound(feat, term_of.get(i), budgets, prec)
-            built.append(NumericInput(i, feat.name, feat.fill, bound, feat.scaling, feat.clip))
+            built.append(NumericInput(i, feat.name, feat.fill, bound, feat.scaling, feat.clip,
+                                      boolean=feat.boolean))
         else:
             built.append(_categorical_input(i, feat))
     return Plan(
