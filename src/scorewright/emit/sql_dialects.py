@@ -166,7 +166,9 @@ SQLITE = Dialect(
     raises_on_underflow=False,
     fold_identifiers=True,
     identifier_max_bytes=None,
-    view="CREATE VIEW {name} AS",
+    # No CREATE OR REPLACE VIEW in SQLite: the file drops its own view first, so it
+    # can be run again.
+    view="DROP VIEW IF EXISTS {name};\nCREATE VIEW {name} AS",
     # SQLite types each value, not the column: typeof() per value. CAST alone reads
     # 'abc' as 0.0 and '1.5abc' as 1.5, so text is read only after a grammar check;
     # a blob is no number.
@@ -203,7 +205,7 @@ POSTGRES = Dialect(
     raises_on_underflow=True,
     fold_identifiers=False,
     identifier_max_bytes=63,
-    view="CREATE VIEW {name} AS",
+    view="CREATE OR REPLACE VIEW {name} AS",
     # No TRY_CAST in PostgreSQL and static types: every arm compiles for the column's
     # type, text is cast only after its grammar and range are checked.
     type_name="pg_typeof({x})",
@@ -249,7 +251,7 @@ DUCKDB = Dialect(
     raises_on_underflow=False,
     fold_identifiers=True,
     identifier_max_bytes=None,
-    view="CREATE VIEW {name} AS",
+    view="CREATE OR REPLACE VIEW {name} AS",
     # TRY_CAST alone takes '1_000', 'NaN' and 'inf': text is grammar-checked first.
     type_name="typeof({x})",
     text_types=("VARCHAR",),
