@@ -433,3 +433,64 @@ def test_function_and_view_files_run_twice(postgres_dsn, dialect, form):
     got = np.array([[r[names.index("margin")]] for r in
                     sorted(result, key=lambda r: r[names.index("scorewright_row")])])
     assert_same(spector(), got, rows)
+
+
+# ---------------------------------------------------------------- verify's text pass
+
+def _shell_import(tmp_path, header, records):
+    """The rows written as CSV and loaded by the real sqlite3 shell's .import."""
+    import csv
+
+    path = tmp_path / "rows.csv"
+    with path.open("w", newline="") as f:
+        writer = csv.writer(f)
+        writer.writerow(header)
+        for r in records:
+            writer.writerow(["" if c is None else c for c in r])
+    db = tmp_path / "rows.db"
+    subprocess.run([shutil.which("sqlite3"), str(db), f".import --csv {path} input"],
+                   check=True, capture_output=True)
+    return db
+
+
+@pytest.mark.skipif(shutil.which("sqlite3") is None, reason="the sqlite3 shell is not installed "
+                    "(apt-get install sqlite3; scripts/test.sh does)")
+def test_sqlite_shell_import_scores_as_the_reference(tmp_path):
+    """The real `.import` makes TEXT columns and '' for an empty field; the emitted query
+    over that table gives the reference's bits, and the runner's text pass loads the
+    same table the shell does."""
+    model = spector()
+    texts = [t for t in TEXTS if "\n" not in t and "\t" not in t]
+    rows = text_rows(texts) + [{"GPA": None, "TUCE": "20", "PSI": None}]
+    records = [[r["GPA"], r["TUCE"], r["PSI"]] for r in rows]
+    db = _shell_import(tmp_path, ["GPA", "TUCE", "PSI"], records)
+    con = sqlite3.connect(db)
+    assert "TEXT" in con.execute("SELECT sql FROM sqlite_master").fetchone()[0]
+    stored = con.execute("SELECT GPA, TUCE, PSI FROM input ORDER BY rowid").fetchall()
+    assert {type(v) for r in stored for v in r} == {str}
+    plan = build_plan(model)
+    s = settings(plan, {"dialect": "sqlite"})
+    typed = sql_runner.Table(plan, s, rows, sql_runner.SQLite.TYPES)
+    text = sql_runner.TextTable(typed, rows, "TEXT", sql_runner.SQLite.EMPTY_FIELD)
+    assert [tuple(r[1:]) for r in text.records()] == stored
+    query = emit(model, {"dialect": "sqlite"})[0].content.decode()
+    cur = con.execute(query)
+    names = [c[0] for c in cur.description]
+    got = np.array([[r[names.index("margin")]] for r in cur.fetchall()])
+    assert_same(model, got, rows)
+
+
+def test_runner_fails_when_text_columns_score_differently(tmp_path):
+    """A query that reads the typed table right but takes '' as 0.0 (SQLite's CAST of
+    text) fails the run, naming the row."""
+    model = spector()
+    plan = build_plan(model)
+    s = settings(plan, {"dialect": "sqlite"})
+    from scorewright.emit.sql import artifact_name
+
+    (tmp_path / artifact_name(plan, s)).write_text(
+        'SELECT t.*, CAST(t."GPA" AS REAL) AS margin, 0.5 AS probability, '
+        '1 AS predicted_class FROM "input" AS t')
+    rows = [{"GPA": 2.5, "TUCE": 20.0, "PSI": 1.0}, {"GPA": None, "TUCE": 20.0, "PSI": 1.0}]
+    with pytest.raises(Exception, match="row 1 .* scores differently when loaded as text"):
+        sql_runner.run(tmp_path, model, rows, {"dialect": "sqlite"})
