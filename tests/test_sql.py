@@ -296,7 +296,7 @@ def test_trap_postgres_jit_gives_the_same_bits(tmp_path, postgres_dsn):
         rows = edge_rows(name, n_frame=50)
         got = run_sql(tmp_path, tm.model, rows, options_for("postgres", name,
                                                             settings=FORCED_JIT), postgres_dsn)
-        assert got.runtime.endswith("jit_optimize_above_cost=0"), got.runtime
+        assert "jit_optimize_above_cost=0" in got.runtime, got.runtime
         assert_agrees(tm.model, rows, got)
     # Compiling is slow (260 features: 19 s wide, 95 s long), so the long layout runs
     # on a model of one layer.
