@@ -183,7 +183,7 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     # one layer reads; flat sums without rejoin need neither.
     flat = flat_sums(plan, d)
     if rejoin is not None:
-        per = d.terms_per_join or d.terms_per_layer
+        per = min(d.terms_per_join or d.terms_per_layer, d.read_width or len(terms) or 1)
     else:
         per = len(terms) if flat else d.terms_per_layer
     blocks = [terms[i:i + per] for i in range(0, len(terms), per)]
@@ -579,7 +579,8 @@ def rowid_joined(plan: Plan, d: Dialect) -> bool:
     """A wide model on an engine with row ids reads its inputs a block at a time,
     joining the table again by rowid (carrying thousands of values through the
     layers instead made DuckDB take minutes to plan a 1,000-feature query)."""
-    return d.rowid is not None and layered(plan, d)
+    return d.rowid is not None and (layered(plan, d) or (
+        d.read_width is not None and len(plan.inputs) > d.read_width))
 
 
 def scoring_query(plan: Plan, s: Settings) -> str:

@@ -124,6 +124,10 @@ class Dialect:
     # passthrough "row": the input row `t` as one value, and its columns again from `s.rw`.
     row_value: str = "t"
     row_columns: str = "(s.rw).*"
+    # At most this many inputs read in one layer: a SELECT holds at most 2,000 columns
+    # in SQLite and its text reading carries up to seven values per input
+    # (sql_sqlite_text); a wider model reads its inputs in blocks joined by rowid.
+    read_width: int | None = None
     # The layers as a flat WITH list instead of nested subqueries: SQLite's parser
     # stack overflowed on the text reading (sql_sqlite_text) nested under them.
     flat_layers: bool = False
@@ -178,6 +182,7 @@ SQLITE = Dialect(
     trim_blanks="trim({t}, char(32, 9, 10, 13, 12, 11))",
     text_double_rule="staged",
     flat_layers=True,
+    read_width=250,
     function_form=None,
     nul_char="char(0)",
     # A column of one of these names shadows the rowid the query joins on.

@@ -55,18 +55,18 @@ def number(d: Dialect, x: str, literal, boolean: bool = False) -> str:
     `boolean`: the words true/false read as 1.0/0.0 too. `literal(d, v)` spells a
     double."""
     text = f"CAST({x} AS {d.text})"
-    arms = [(type_test(d, x, d.text_types), text_number(d, text, literal, boolean))]
-    if d.boolean_type is not None:
+    # Text, and numbers whose exact decimal text is read instead of their cast.
+    arms = [(type_test(d, x, d.text_types + d.exact_text_types),
+             text_number(d, text, literal, boolean))]
+    if boolean and d.boolean_type is not None:
+        # No cast from boolean to double compiles here, so the boolean column is read
+        # through its text and every other number too: a real column's shortest text
+        # read back as real, the others' text as double (exact while
+        # extra_float_digits > 0, the default). A plain numeric feature keeps the
+        # cast, so a boolean column is refused loudly there.
         arms.append((type_test(d, x, (d.boolean_type,)),
                      f"CASE WHEN {text} = 'true' THEN {literal(d, 1.0)} "
                      f"WHEN {text} = 'false' THEN {literal(d, 0.0)} END"))
-    if d.exact_text_types:
-        arms.append((type_test(d, x, d.exact_text_types),
-                     text_number(d, text, literal, False)))
-    if boolean and d.boolean_type is not None:
-        # No cast from boolean to double compiles here, so every other number is read
-        # through its text too: a real column's shortest text read back as real, the
-        # others' text as double (exact while extra_float_digits > 0, the default).
         arms.append((type_test(d, x, d.single_types),
                      f"CAST(CAST(CASE WHEN {type_test(d, x, d.single_types)} THEN {text} "
                      f"END AS {d.single}) AS {d.double})"))

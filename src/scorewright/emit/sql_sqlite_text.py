@@ -51,29 +51,37 @@ def _grammar(s: str) -> str:
     return "CASE WHEN " + " AND ".join(tests) + " THEN 1 ELSE 0 END"
 
 
-def _powers_of_five(j: str) -> str:
+def _five_to(j: str) -> str:
+    """5^{j} for 1 <= j <= 23 (NULL otherwise): below 2^54, so a remainder times 2^8
+    stays below 2^62."""
     whens = " ".join(f"WHEN {i} THEN {5 ** i}" for i in range(1, 24))
     return f"CASE {j} {whens} END"
 
 
+def _exponent_of_five(dv: str) -> str:
+    whens = " ".join(f"WHEN {5 ** i} THEN {i}" for i in range(1, 24))
+    return f"CASE {dv} {whens} END"
+
+
 def stages(x: str, number_cast: str, literal_of, boolean: bool) -> list[list[tuple[str, str]]]:
     """The stages reading the value {x} of any type to `n` (a double or NULL).
-    `literal_of(v)` spells a double; `number_cast` reads a non-text value."""
-    s, p = "s", P
+    `literal_of(v)` spells a double; `number_cast` reads a non-text value. At most
+    seven values per input in any stage (SQLite: 2,000 columns a SELECT)."""
+    p = P
     first = [("s", f"CASE WHEN typeof({x}) = 'text' THEN lower(trim({x}, {BLANKS})) END"),
              ("nn", number_cast.format(x=x))]
+    second = [("s", f"{p}s"), ("nn", f"{p}nn"), ("e", f"instr({p}s || 'e', 'e')")]
     mant = f"substr({p}s, 1, {p}e - 1)"
     digits = f"replace({mant}, '.', '')"
     fraction = (f"CASE WHEN instr({mant}, '.') > 0 THEN length({mant}) - instr({mant}, '.') "
                 "ELSE 0 END")
-    second = [("s", f"{p}s"), ("nn", f"{p}nn"), ("ok", _grammar(f"{p}s")),
-              ("e", f"instr({p}s || 'e', 'e')")]
-    third = [("s", f"{p}s"), ("nn", f"{p}nn"), ("ok", f"{p}ok"),
-             ("m", f"CASE WHEN {p}ok = 1 AND length({digits}) <= 20 "
+    k3 = f"(CAST(substr({p}s, {p}e + 1) AS INTEGER) - ({fraction}))"
+    third = [("s", f"{p}s"), ("nn", f"{p}nn"), ("ok", _grammar(f"{p}s")),
+             ("m", f"CASE WHEN length({digits}) <= 20 AND {digits} NOT GLOB '*[^0-9+-]*' "
                    f"THEN CAST({digits} AS INTEGER) END"),
              ("sig", f"length(ltrim(replace(replace({digits}, '-', ''), '+', ''), '0'))"),
-             ("k", f"CAST(substr({p}s, {p}e + 1) AS INTEGER) - ({fraction})")]
-    m, k, sig = f"{p}m", f"{p}k", f"{p}sig"
+             ("k", k3), ("dv", _five_to(f"-{k3}"))]
+    m, k, sig, dv = f"{p}m", f"{p}k", f"{p}sig", f"{p}dv"
     am = f"abs({m})"
     zero = f"CASE WHEN {p}s GLOB '-*' THEN {literal_of(-0.0)} ELSE {literal_of(0.0)} END"
     fast = (f"CASE WHEN {k} >= 0 THEN CAST({m} AS REAL) * CAST('1e' || {k} AS REAL) "
@@ -86,41 +94,39 @@ def stages(x: str, number_cast: str, literal_of, boolean: bool) -> list[list[tup
     whens += [
         f"WHEN {p}ok = 0 THEN NULL",
         f"WHEN {sig} = 0 THEN {zero}",
-        f"WHEN {sig} > 18 THEN CAST({p}s AS REAL)",
+        f"WHEN {sig} > 18 OR {m} IS NULL THEN CAST({p}s AS REAL)",
         f"WHEN {am} <= {2 ** 53} AND {k} BETWEEN -22 AND 22 THEN {fast}",
         f"WHEN {k} BETWEEN 0 AND 18 AND {am} <= {2 ** 63 - 1} / {ten_k} "
         f"THEN CAST({m} * {ten_k} AS REAL)",
-        f"WHEN {am} > {2 ** 53} AND {k} BETWEEN -23 AND -1 THEN NULL",
     ]
     direct = (f"CASE WHEN {p}s IS NULL THEN {p}nn {' '.join(whens)} "
               f"ELSE CAST({p}s AS REAL) END")
-    long_division = (f"CASE WHEN {p}s IS NOT NULL AND {p}ok = 1 AND {sig} BETWEEN 1 AND 18 "
-                     f"AND {am} > {2 ** 53} AND {k} BETWEEN -23 AND -1 THEN 1 ELSE 0 END")
+    # Long division where nothing above applies: |m| > 2^53, -23 <= k < 0.
+    division = (f"{p}s IS NOT NULL AND {p}ok = 1 AND {sig} BETWEEN 1 AND 18 "
+                f"AND {am} > {2 ** 53} AND {k} BETWEEN -23 AND -1")
     if boolean:
-        long_division = (f"CASE WHEN {p}s IN ('true', 'false') THEN 0 "
-                         f"ELSE {long_division} END")
-    fourth = [("n", direct), ("ld", long_division), ("neg", f"CASE WHEN {m} < 0 THEN 1 ELSE 0 END"),
-              ("j", f"-{k}"), ("dv", _powers_of_five(f"-{k}")),
-              ("am", am)]
-    fifth = [("n", f"{p}n"), ("ld", f"{p}ld"), ("neg", f"{p}neg"), ("j", f"{p}j"),
-             ("dv", f"{p}dv"),
-             ("q", f"CASE WHEN {p}ld = 1 THEN {p}am / {p}dv END"),
-             ("r", f"CASE WHEN {p}ld = 1 THEN {p}am % {p}dv END"), ("sh", "0")]
-    out = [first, second, third, fourth, fifth]
+        division += f" AND {p}s NOT IN ('true', 'false')"
+    # q: the quotient (NULL: no division; r then holds the value read); r: the
+    # remainder; w: 5^-k * 256 + 2 * (steps taken) + (1 if negative).
+    fourth = [("q", f"CASE WHEN {division} THEN {am} / {dv} END"),
+              ("r", f"CASE WHEN {division} THEN {am} % {dv} ELSE {direct} END"),
+              ("w", f"CASE WHEN {division} THEN {dv} * 256 + CASE WHEN {m} < 0 THEN 1 "
+                    "ELSE 0 END END")]
+    out = [first, second, third, fourth]
     scale = 2 ** STEP_BITS
+    divisor = f"({p}w / 256)"
     for _ in range(STEPS):
-        go = f"{p}ld = 1 AND {p}q < {TOP}"
-        out.append([("n", f"{p}n"), ("ld", f"{p}ld"), ("neg", f"{p}neg"), ("j", f"{p}j"),
-                    ("dv", f"{p}dv"),
-                    ("q", f"CASE WHEN {go} THEN {p}q * {scale} + ({p}r * {scale}) / {p}dv "
+        go = f"{p}q < {TOP}"
+        out.append([("q", f"CASE WHEN {go} THEN {p}q * {scale} + ({p}r * {scale}) / {divisor} "
                           f"ELSE {p}q END"),
-                    ("r", f"CASE WHEN {go} THEN ({p}r * {scale}) % {p}dv ELSE {p}r END"),
-                    ("sh", f"CASE WHEN {go} THEN {p}sh + {STEP_BITS} ELSE {p}sh END")])
+                    ("r", f"CASE WHEN {go} THEN ({p}r * {scale}) % {divisor} ELSE {p}r END"),
+                    ("w", f"CASE WHEN {go} THEN {p}w + 2 ELSE {p}w END")])
     # 2Q + sticky, rounded once, then divided by 2^(sh + 1) and 2^j (exact: normal range).
+    sh = f"(({p}w % 256) / 2 * {STEP_BITS})"
     wide = f"CAST(2 * {p}q + CASE WHEN {p}r > 0 THEN 1 ELSE 0 END AS REAL)"
-    half = f"(({p}sh + 1) / 2)"
-    value = (f"{wide} / CAST(1 << {half} AS REAL) / CAST(1 << ({p}sh + 1 - {half}) AS REAL) "
-             f"/ CAST(1 << {p}j AS REAL)")
-    out.append([("n", f"CASE WHEN {p}ld = 1 THEN CASE WHEN {p}neg = 1 THEN -({value}) "
-                      f"ELSE {value} END ELSE {p}n END")])
+    half = f"(({sh} + 1) / 2)"
+    value = (f"{wide} / CAST(1 << {half} AS REAL) / CAST(1 << ({sh} + 1 - {half}) AS REAL) "
+             f"/ CAST(1 << {_exponent_of_five(divisor)} AS REAL)")
+    out.append([("n", f"CASE WHEN {p}q IS NULL THEN {p}r WHEN {p}w % 2 = 1 THEN -({value}) "
+                      f"ELSE {value} END")])
     return out
