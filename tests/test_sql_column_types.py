@@ -328,8 +328,7 @@ def test_boolean_feature_reads_true_and_false_text(postgres_dsn, dialect, text_t
 
 
 @pytest.mark.parametrize("dialect,bool_type,form", [
-    ("postgres", "BOOLEAN", "select"), ("postgres", "BOOLEAN", "function"),
-    ("duckdb", "BOOLEAN", "select"), ("duckdb", "BOOLEAN", "function"),
+    ("postgres", "BOOLEAN", "select"), ("duckdb", "BOOLEAN", "select"), ("duckdb", "BOOLEAN", "function"),
     ("spark", "boolean", "select")])
 def test_boolean_columns(postgres_dsn, dialect, bool_type, form):
     """A BOOLEAN column (every feature boolean-typed here: GPA and TUCE too) reads 1/0."""
@@ -355,10 +354,13 @@ def test_plain_numeric_feature_over_a_boolean_column(postgres_dsn, dialect, bool
 
 def test_postgres_plain_numeric_feature_refuses_a_boolean_column(postgres_dsn):
     """PostgreSQL has no cast from boolean to double: the query fails loudly (the model
-    does not record a boolean column); it never scores silently."""
+    does not record a boolean column); it never scores silently. The function form takes
+    double or text arguments, so a BOOLEAN column finds no function at all."""
     cells = [{"GPA": True, "TUCE": False, "PSI": True}]
     with pytest.raises(Exception, match="cannot cast type boolean"):
         run_typed(postgres_dsn, spector(), "postgres", "BOOLEAN", cells)
+    with pytest.raises(Exception, match="does not exist"):
+        run_typed(postgres_dsn, boolean_model(), "postgres", "BOOLEAN", cells, "function")
 
 
 # ---------------------------------------------------------------- integer levels

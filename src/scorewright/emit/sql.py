@@ -2,8 +2,8 @@
 
 The query is a stack of subqueries, innermost first, one layer per stage of the
 plan, so each expression is computed once and the operation order is the
-plan's: read (cast to double; NULL, NaN and +-inf are missing; category
-codes) -> design values (fill, clamp, scaling, clip) -> margins (terms in plan
+plan's: read (any column type to double, sql_reading; NULL, NaN, +-inf and
+text that is no number are missing; category codes) -> design values (fill, clamp, scaling, clip) -> margins (terms in plan
 order, then the intercept) -> link -> probabilities and the decision. Every
 user string enters as a quoted identifier or string literal; the header
 comment escapes it. The dialect record (sql_dialects) says how to spell each
@@ -664,15 +664,31 @@ def function_call(plan: Plan, s: Settings) -> str:
 
 
 def typed_argument(d: Dialect, inp, arg: str, typ: str) -> str:
-    """A column as the typed function's argument: a number read from any column type
-    (sql_reading), a category as text (a float NaN, which is missing, as NULL: its
-    text 'NaN' would be an unseen level)."""
+    """A column as the typed function's argument: numbers as they are (the function
+    has an overload over text for a table of text columns), a category as text (a
+    float NaN, which is missing, as NULL: its text 'NaN' would be an unseen level)."""
     if inp.kind == "numeric":
-        return sql_reading.number(d, arg, literal, inp.boolean)
+        return arg
     if inp.integer_levels:
         nan = sql_reading.category_missing(d, arg)
         return f"CASE WHEN {nan} THEN NULL ELSE CAST({arg} AS {typ}) END"
     return f"CAST({arg} AS {typ})"
+
+
+def text_overload(plan: Plan, d: Dialect) -> tuple[list[str], list[str]] | None:
+    """(parameters, arguments) of the function over text arguments, which reads each
+    text as the select form does and calls the function over doubles: a table loaded
+    from a CSV (text columns) calls this one. None: no numeric input, so the two
+    would have one signature."""
+    if not d.typed_parameters or not any(inp.kind == "numeric" for inp in plan.inputs):
+        return None
+    parameters, arguments = [], []
+    for inp in plan.inputs:
+        p = d.parameter.format(n=inp.index + 1, i=inp.index)
+        parameters.append(d.parameter_decl.format(n=inp.index + 1, i=inp.index, type=d.text))
+        arguments.append(sql_reading.number(d, p, literal, inp.boolean)
+                         if inp.kind == "numeric" else p)
+    return parameters, arguments
 
 
 def _dollar_tag(body: str) -> str:
@@ -692,6 +708,9 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
         lines.append("Arguments, in order (feature: SQL type):")
         for inp, typ in zip(plan.inputs, parameter_types(plan, d)):
             lines.append(f"  {comment_text(inp.name)}: {typ}")
+        if text_overload(plan, d) is not None:
+            lines.append(f"A second function of this name takes every argument as {d.text} "
+                         "(a table loaded from a CSV) and reads numbers from the text.")
         lines.append("Call it on a table (here: the default table and column names):")
         lines += ["  " + line for line in function_call(plan, s).split("\n")]
     elif s.layout == "long":
@@ -715,7 +734,10 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
     lines.append(f"Outputs: {outputs}")
     if plan.task == "binary":
         lines.append(f"probability is that of class {comment_text(str(plan.classes[1]))}")
-    lines.append("Missing: NULL, NaN and +-inf numbers; NULL or '' categories.")
+    lines.append("Numbers may be held in any number, boolean or text column; text is read as "
+                 "a decimal number.")
+    lines.append("Missing: NULL, NaN and +-inf numbers and text that is no number; NULL or '' "
+                 "categories.")
     if d.large_query_note and layered(plan, d):
         lines += textwrap.wrap(d.large_query_note, 86)
     return lines
@@ -769,7 +791,8 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
             parameters=[d.parameter_decl.format(n=i + 1, i=i, type=t)
                         for i, t in enumerate(parameter_types(plan, d))],
             returns=[(d.quote(n), t) for (n, _), t in zip(q.outputs, output_types(plan, d))],
-            tag=_dollar_tag("\n".join(q.body)), quote=d.quote)
+            tag=_dollar_tag("\n".join(q.body)), quote=d.quote,
+            text_overload=text_overload(plan, d))
         text = render(d.function_form, **context)
     elif s.form == "expressions":
         text = expressions_file(plan, s)
