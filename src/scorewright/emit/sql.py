@@ -249,7 +249,7 @@ def _read_layers(plan: Plan, d: Dialect, source: dict[str, str], used, typed: bo
                            [(f"x{inp.index}", missing)]))
         else:
             inputs.append((inp.index, [], [(_alias(inp), _read_code(d, inp, col))]))
-    depth = max([len(read) for _, read, _ in inputs], default=1)
+    depth = max([len(read) for _, read, _ in inputs] + [1])
 
     def layer(t: int):
         def columns(ref):
@@ -257,7 +257,10 @@ def _read_layers(plan: Plan, d: Dialect, source: dict[str, str], used, typed: bo
             for index, read, fixed in inputs:
                 prefix = f"{ref}.r{index}_"
                 if t < len(read):
-                    out += [(f"r{index}_{name}", expr.replace(sql_sqlite_text.P, prefix))
+                    # The first stage reads the column (user text); only later stages
+                    # name the stage below.
+                    out += [(f"r{index}_{name}",
+                             expr if ref is None else expr.replace(sql_sqlite_text.P, prefix))
                             for name, expr in read[t]]
                 elif read:
                     out.append((f"r{index}_n", prefix + "n"))

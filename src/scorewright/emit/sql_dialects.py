@@ -206,6 +206,8 @@ POSTGRES = Dialect(
     # every input reference, which fails past 1,664 keys ("number of columns exceeds
     # limit", measured from 250 features on rows with few distinct values).
     passthrough="row",
+    # A column named t would be read where the query means the whole row t.
+    reserved_columns=("t",),
     fence=" OFFSET 0",
     raises_on_underflow=True,
     fold_identifiers=False,

@@ -27,7 +27,9 @@ stack (which a single expression doing all this did).
 
 from __future__ import annotations
 
-P = "\x01"  # stands for the previous stage's alias prefix; replaced by emit/sql.py
+# Stands for the previous stage's alias prefix (replaced by emit/sql.py): no raw NUL
+# reaches an artifact (names holding one are renamed, literals spell it as a call).
+P = "\x00P"
 STEP_BITS = 8
 STEPS = 8  # from a quotient of at least 2^7 after one step to 2^54 and beyond
 TOP = 2 ** 54
