@@ -2,8 +2,8 @@
 
 The query is a stack of subqueries, innermost first, one layer per stage of the
 plan, so each expression is computed once and the operation order is the
-plan's: read (cast to double; NULL, NaN and +-inf are missing; category
-codes) -> design values (fill, clamp, scaling, clip) -> margins (terms in plan
+plan's: read (any column type to double, sql_reading; NULL, NaN, +-inf and
+text that is no number are missing; category codes) -> design values (fill, clamp, scaling, clip) -> margins (terms in plan
 order, then the intercept) -> link -> probabilities and the decision. Every
 user string enters as a quoted identifier or string literal; the header
 comment escapes it. The dialect record (sql_dialects) says how to spell each
@@ -25,7 +25,7 @@ from . import Artifact, reject_options
 from .sql_columns import input_columns, name_key
 from .sql_dialects import Dialect, dialect as find_dialect
 from .sql_guards import product_edge, underflow_region
-from . import sql_long
+from . import sql_long, sql_reading, sql_sqlite_text
 from .sql_inline import output_expressions
 from .templating import render
 
@@ -119,14 +119,14 @@ class Layers:
         return lines
 
 
-    def render_with(self, name, fence: str) -> list[str]:
+    def render_with(self, name, fence: str, innermost_from: str = "") -> list[str]:
         """The layers as a flat WITH list, `name(i)` naming layer i (each read as l<i>):
         no nesting for the parser to track however many layers there are (SQLite's
         parser stack held about 40 nested subqueries)."""
         lines: list[str] = []
         for i, (columns, source) in enumerate(self.layers):
             if i == 0:
-                below = [f"FROM {source}"]
+                below = [f"FROM {source or innermost_from}"] if source or innermost_from else []
             else:
                 below = [f"FROM {name(i - 1)} AS l{i - 1}"] + ([source] if source else [])
             body = ["SELECT"] + _select_list(columns) + below
@@ -154,10 +154,17 @@ class Query:
 
 
 def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: str = "",
-                extra: list[tuple[str, str]] = (), layers=None, rejoin=None) -> Query:
+                extra: list[tuple[str, str]] = (), layers=None, rejoin=None,
+                typed: bool = False) -> Query:
     """The layered scoring subquery. `source` maps each feature to the SQL expression
-    it is read from; `extra` are (alias, expression) pairs carried to the top;
-    `layers` collects the layers (default: rendered as nested SELECTs).
+    it is read from (a column of any type; `typed`: already the number, as the
+    PostgreSQL function's double parameters are); `extra` are (alias, expression)
+    pairs carried to the top; `layers` collects the layers (default: rendered as
+    nested SELECTs).
+
+    Each input is read (sql_reading: any column type to a double, or a category
+    code) in one layer and its design value computed in the next, so the read,
+    which spells the column several times, is written once per input.
 
     A model of more than the dialect's terms_per_layer terms sums its margins over
     several layers, each adding a block of terms to the sums of the layer below: the
@@ -166,8 +173,8 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
 
     With `rejoin(ref, used)`, the join clause that brings the input back beside
     layer `ref` (by a row key carried in `extra`; `ref` None: the first layer's FROM
-    source), each block's layer reads its own inputs (`used`, input indices); without
-    it, the first layer reads every input and later layers carry the values not yet
+    source), each block reads its own inputs (`used`, input indices); without it,
+    the first layers read every input and later layers carry the values not yet
     summed."""
     layers = Layers() if layers is None else layers
     carried = [alias for alias, _ in extra]
@@ -176,24 +183,35 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     # one layer reads; flat sums without rejoin need neither.
     flat = flat_sums(plan, d)
     if rejoin is not None:
-        per = d.terms_per_join or d.terms_per_layer
+        per = min(d.terms_per_join or d.terms_per_layer, d.read_width or len(terms) or 1)
     else:
         per = len(terms) if flat else d.terms_per_layer
     blocks = [terms[i:i + per] for i in range(0, len(terms), per)]
+    ms = [f"m{k}" for k in range(plan.n_outputs)]
+    zero = [("z", literal(d, 0.0))]  # a SELECT needs a column even when nothing is read
     if rejoin is not None:
         blocks = blocks or [[]]
         for b, block in enumerate(blocks):
             used = {t.input for t in block}
-            reads = dict(_reads(plan, d, source, used))
             below = None if b == 0 else layers.ref
-            sums = _sums(plan, d, block, lambda alias: f"({reads[alias]})", below,
-                         b == len(blocks) - 1, flat)
-            layers.add((list(extra) if b == 0 else layers.carry(carried)) + sums,
-                       rejoin(below, used))
+            reads = _read_layers(plan, d, source, used, typed)
+            kept = list(extra) if b == 0 else layers.carry(carried + ms)
+            layers.add(kept + reads[0](None) or zero, rejoin(below, used))
+            for columns in reads[1:]:
+                layers.add(layers.carry(carried + (ms if b else [])) + columns(layers.ref)
+                           or zero)
+            ref = layers.ref
+            values = dict(_design_values(plan, d, ref, used))
+            sums = _sums(plan, d, block, lambda alias: f"({values[alias]})",
+                         None if b == 0 else ref, b == len(blocks) - 1, flat)
+            layers.add(layers.carry(carried) + sums)
     else:
-        # A model with all-zero weights reads nothing; a SELECT needs a column all the same.
-        layers.add(list(extra) + _reads(plan, d, source, {t.input for t in terms})
-                   or [("z", literal(d, 0.0))])
+        used = {t.input for t in terms}
+        reads = _read_layers(plan, d, source, used, typed)
+        layers.add(list(extra) + reads[0](None) or zero)
+        for columns in reads[1:]:
+            layers.add(layers.carry(carried) + columns(layers.ref) or zero)
+        layers.add(layers.carry(carried) + _design_values(plan, d, layers.ref, used) or zero)
         for b, block in enumerate(blocks or [[]]):
             ref = layers.ref
             later = {t.input for rest in blocks[b + 1:] for t in rest}
@@ -209,19 +227,66 @@ def _alias(inp) -> str:
     return f"{'v' if inp.kind == 'numeric' else 'c'}{inp.index}"
 
 
-def _reads(plan: Plan, d: Dialect, source: dict[str, str], used) -> list[tuple[str, str]]:
-    """(alias, expression) of each used input's design value or category code."""
-    read = []
+def _read_layers(plan: Plan, d: Dialect, source: dict[str, str], used, typed: bool):
+    """The layers reading each used input, innermost first, as functions of the alias
+    of the layer below (None for the first): each numeric or integer-level input read
+    from a column of any type to a double r<i>_n (sql_reading; NULL when missing or
+    no number), with x<i> = 1 where an integer-level category is missing; each
+    text-level category's code c<i>."""
+    inputs = []  # (index, stages, first-layer columns carried after)
     for inp in plan.inputs:
         if inp.index not in used:
             continue
         col = source[inp.name]
         if inp.kind == "numeric":
-            region = underflow_region(inp, ()) if d.raises_on_underflow else None
-            read.append((_alias(inp), _design_value(d, inp, region, col)))
+            read = [[("n", col)]] if typed else sql_reading.stages(d, col, literal, inp.boolean)
+            inputs.append((inp.index, read, []))
+        elif inp.integer_levels:
+            # The number and the missing test, looked up a layer later: a CASE over
+            # the levels spells its operand once per level in DuckDB.
+            missing = f"CASE WHEN {sql_reading.category_missing(d, col)} THEN 1 ELSE 0 END"
+            inputs.append((inp.index, sql_reading.category_stages(d, col, literal),
+                           [(f"x{inp.index}", missing)]))
         else:
-            read.append((_alias(inp), _read_code(d, inp, col)))
-    return read
+            inputs.append((inp.index, [], [(_alias(inp), _read_code(d, inp, col))]))
+    depth = max([len(read) for _, read, _ in inputs] + [1])
+
+    def layer(t: int):
+        def columns(ref):
+            out = []
+            for index, read, fixed in inputs:
+                prefix = f"{ref}.r{index}_"
+                if t < len(read):
+                    # The first stage reads the column (user text); only later stages
+                    # name the stage below.
+                    out += [(f"r{index}_{name}",
+                             expr if ref is None else expr.replace(sql_sqlite_text.P, prefix))
+                            for name, expr in read[t]]
+                elif read:
+                    out.append((f"r{index}_n", prefix + "n"))
+                out += fixed if t == 0 else [(alias, f"{ref}.{alias}") for alias, _ in fixed]
+            return out
+        return columns
+
+    return [layer(t) for t in range(depth)]
+
+
+def _design_values(plan: Plan, d: Dialect, ref: str, used) -> list[tuple[str, str]]:
+    """(alias, expression) of each used input's design value (from layer `ref`'s
+    double) or category code (carried)."""
+    out = []
+    for inp in plan.inputs:
+        if inp.index not in used:
+            continue
+        if inp.kind == "numeric":
+            region = underflow_region(inp, ()) if d.raises_on_underflow else None
+            out.append((_alias(inp), _design_value(d, inp, region, f"{ref}.r{inp.index}_n")))
+        elif inp.integer_levels:
+            out.append((_alias(inp), _integer_code(d, inp, f"{ref}.r{inp.index}_n",
+                                                   f"{ref}.x{inp.index} = 1")))
+        else:
+            out.append((_alias(inp), f"{ref}.{_alias(inp)}"))
+    return out
 
 
 def _sums(plan: Plan, d: Dialect, block, value, below: str | None, last: bool, flat: bool):
@@ -261,28 +326,37 @@ def _factor(d: Dialect, w: float, v: str) -> str:
             f"THEN {v} * {literal(d, 0.0)} ELSE {v} END")
 
 
-def _read_code(d: Dialect, inp, col: str) -> str:
+def _codes(inp) -> tuple[int, int]:
+    """(code of a missing value, code of an unseen one)."""
     missing = inp.fill_code if inp.fill_code is not None else (
         inp.unknown_code if inp.unknown_code is not None else -1)
     unseen = inp.unknown_code if inp.unknown_code is not None else -1
-    if inp.integer_levels:
-        value = d.number_read.format(x=col)
-        is_missing = f"{col} IS NULL"
-        if d.category_nan_test is not None:
-            is_missing += " OR " + d.category_nan_test.format(x=col)
-        whens = " ".join(f"WHEN {literal(d, float(level))} THEN {code}"
-                         for code, level in enumerate(inp.levels))
-    else:
-        value = f"CAST({col} AS {d.text}){d.text_collate}"
-        is_missing = f"{col} IS NULL"
-        if d.code_list is not None and not any(unreachable(d, lv) for lv in inp.levels):
-            levels = ", ".join(d.string(level) for level in inp.levels)
-            position = d.code_list.format(levels=levels, value=value)
-            return (f"CASE WHEN {is_missing} THEN {missing} WHEN {value} = '' THEN {missing} "
-                    f"ELSE COALESCE(NULLIF({position}, 0) - 1, {unseen}) END")
-        whens = f"WHEN '' THEN {missing} " + " ".join(
-            f"WHEN {d.string(level)} THEN {code}" for code, level in enumerate(inp.levels)
-            if not unreachable(d, level))
+    return missing, unseen
+
+
+def _integer_code(d: Dialect, inp, value: str, is_missing: str) -> str:
+    """An integer-level category's code from its value as a double (sql_reading:
+    2, 2.0, '2' and ' 2.0 ' all read 2.0; NULL when no number) and its missing test."""
+    missing, unseen = _codes(inp)
+    whens = " ".join(f"WHEN {literal(d, float(level))} THEN {code}"
+                     for code, level in enumerate(inp.levels))
+    return (f"CASE WHEN {is_missing} THEN {missing} "
+            f"ELSE CASE {value} {whens} ELSE {unseen} END END")
+
+
+def _read_code(d: Dialect, inp, col: str) -> str:
+    """A text-level category's code, from the column's text."""
+    missing, unseen = _codes(inp)
+    value = f"CAST({col} AS {d.text}){d.text_collate}"
+    is_missing = f"{col} IS NULL"
+    if d.code_list is not None and not any(unreachable(d, lv) for lv in inp.levels):
+        levels = ", ".join(d.string(level) for level in inp.levels)
+        position = d.code_list.format(levels=levels, value=value)
+        return (f"CASE WHEN {is_missing} THEN {missing} WHEN {value} = '' THEN {missing} "
+                f"ELSE COALESCE(NULLIF({position}, 0) - 1, {unseen}) END")
+    whens = f"WHEN '' THEN {missing} " + " ".join(
+        f"WHEN {d.string(level)} THEN {code}" for code, level in enumerate(inp.levels)
+        if not unreachable(d, level))
     return (f"CASE WHEN {is_missing} THEN {missing} "
             f"ELSE CASE {value} {whens} ELSE {unseen} END END")
 
@@ -290,10 +364,10 @@ def _read_code(d: Dialect, inp, col: str) -> str:
 def _design_value(d: Dialect, inp, region, col: str) -> str:
     """One CASE per numeric input. Inside [-B, B] the plan's chain runs on the value;
     a finite value beyond the bound, a missing one (NULL; NaN, which PostgreSQL and
-    DuckDB order above every number; +-inf; text in SQLite, which orders above
-    numbers) take the chain's value on -B, B or the fill, computed here in IEEE
-    double exactly as the engine would compute it."""
-    x = f"CAST({col} AS {d.double})"
+    DuckDB order above every number; +-inf) take the chain's value on -B, B or the
+    fill, computed here in IEEE double exactly as the engine would compute it.
+    `col` is already the double (sql_reading)."""
+    x = col
     if region is not None:
         low, high = region
         x = (f"CASE WHEN {col} > {literal(d, low)} AND {col} < {literal(d, high)} "
@@ -508,7 +582,8 @@ def rowid_joined(plan: Plan, d: Dialect) -> bool:
     """A wide model on an engine with row ids reads its inputs a block at a time,
     joining the table again by rowid (carrying thousands of values through the
     layers instead made DuckDB take minutes to plan a 1,000-feature query)."""
-    return d.rowid is not None and layered(plan, d)
+    return d.rowid is not None and (layered(plan, d) or (
+        d.read_width is not None and len(plan.inputs) > d.read_width))
 
 
 def scoring_query(plan: Plan, s: Settings) -> str:
@@ -543,7 +618,22 @@ def scoring_query(plan: Plan, s: Settings) -> str:
     cols += [f"s.{alias} AS {d.quote(name)}" for name, alias in q.outputs]
     lines = ["SELECT"] + [f"  {c}," for c in cols]
     lines[-1] = lines[-1][:-1]
+    if d.flat_layers:
+        prefix = layer_prefix(s.table)
+        last = len(q.layers.layers) - 1
+        # (A lateral passthrough reads t from outside the layers: no flat form.)
+        with_lines = q.layers.render_with(lambda i: f"{prefix}l{i}", d.fence, f"{table} AS t")
+        return "\n".join(with_lines + lines + [open_[:-1] + f"{prefix}l{last}" + close[1:]])
     return "\n".join(lines + [open_] + indent(q.body) + [close])
+
+
+def layer_prefix(table: str) -> str:
+    """A prefix for layer names no table name can shadow (a WITH name hides a table
+    of that name)."""
+    prefix = "sw_"
+    while table.lower().startswith(prefix):
+        prefix += "_"
+    return prefix
 
 
 def _sources(s: Settings, prefix: str) -> dict[str, str]:
@@ -570,11 +660,38 @@ def function_call(plan: Plan, s: Settings) -> str:
     args = []
     for inp, typ in zip(plan.inputs, parameter_types(plan, d)):
         arg = f"t.{d.quote(s.columns[inp.name])}"
-        args.append(f"CAST({arg} AS {typ})" if d.typed_parameters and inp.kind != "numeric"
-                    else arg)
+        args.append(typed_argument(d, inp, arg, typ) if d.typed_parameters else arg)
     args = ", ".join(args)
     return d.function_call.format(name=d.quote(object_name(plan)), args=args,
                                   table=d.quote(s.table))
+
+
+def typed_argument(d: Dialect, inp, arg: str, typ: str) -> str:
+    """A column as the typed function's argument: numbers as they are (the function
+    has an overload over text for a table of text columns), a category as text (a
+    float NaN, which is missing, as NULL: its text 'NaN' would be an unseen level)."""
+    if inp.kind == "numeric":
+        return arg
+    if inp.integer_levels:
+        nan = sql_reading.category_missing(d, arg)
+        return f"CASE WHEN {nan} THEN NULL ELSE CAST({arg} AS {typ}) END"
+    return f"CAST({arg} AS {typ})"
+
+
+def text_overload(plan: Plan, d: Dialect) -> tuple[list[str], list[str]] | None:
+    """(parameters, arguments) of the function over text arguments, which reads each
+    text as the select form does and calls the function over doubles: a table loaded
+    from a CSV (text columns) calls this one. None: no numeric input, so the two
+    would have one signature."""
+    if not d.typed_parameters or not any(inp.kind == "numeric" for inp in plan.inputs):
+        return None
+    parameters, arguments = [], []
+    for inp in plan.inputs:
+        p = d.parameter.format(n=inp.index + 1, i=inp.index)
+        parameters.append(d.parameter_decl.format(n=inp.index + 1, i=inp.index, type=d.text))
+        arguments.append(sql_reading.number(d, p, literal, inp.boolean)
+                         if inp.kind == "numeric" else p)
+    return parameters, arguments
 
 
 def _dollar_tag(body: str) -> str:
@@ -594,6 +711,9 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
         lines.append("Arguments, in order (feature: SQL type):")
         for inp, typ in zip(plan.inputs, parameter_types(plan, d)):
             lines.append(f"  {comment_text(inp.name)}: {typ}")
+        if text_overload(plan, d) is not None:
+            lines.append(f"A second function of this name takes every argument as {d.text} "
+                         "(a table loaded from a CSV) and reads numbers from the text.")
         lines.append("Call it on a table (here: the default table and column names):")
         lines += ["  " + line for line in function_call(plan, s).split("\n")]
     elif s.layout == "long":
@@ -617,7 +737,10 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
     lines.append(f"Outputs: {outputs}")
     if plan.task == "binary":
         lines.append(f"probability is that of class {comment_text(str(plan.classes[1]))}")
-    lines.append("Missing: NULL, NaN and +-inf numbers; NULL or '' categories.")
+    lines.append("Numbers may be held in any number, boolean or text column; text is read as "
+                 "a decimal number.")
+    lines.append("Missing: NULL, NaN and +-inf numbers and text that is no number; NULL or '' "
+                 "categories.")
     if d.large_query_note and layered(plan, d):
         lines += textwrap.wrap(d.large_query_note, 86)
     return lines
@@ -665,13 +788,14 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
                "name": d.quote(object_name(plan))}
     if s.form == "function":
         q = build_query(plan, d, {inp.name: d.parameter.format(n=inp.index + 1, i=inp.index)
-                                  for inp in plan.inputs})
+                                  for inp in plan.inputs}, typed=d.typed_parameters)
         context.update(
             body=q.body, outputs=q.outputs,
             parameters=[d.parameter_decl.format(n=i + 1, i=i, type=t)
                         for i, t in enumerate(parameter_types(plan, d))],
             returns=[(d.quote(n), t) for (n, _), t in zip(q.outputs, output_types(plan, d))],
-            tag=_dollar_tag("\n".join(q.body)), quote=d.quote)
+            tag=_dollar_tag("\n".join(q.body)), quote=d.quote,
+            text_overload=text_overload(plan, d))
         text = render(d.function_form, **context)
     elif s.form == "expressions":
         text = expressions_file(plan, s)

@@ -18,7 +18,11 @@ engine it is writing for. Each flag names the trap it answers:
   (ASCII letters only), Spark over all of unicode (`é` = `É`); PostgreSQL
   truncates identifiers to 63 bytes (sql_columns derives names around these);
 - PostgreSQL text cannot hold NUL; the others can, but no raw NUL is written
-  into an artifact: a NUL inside a string literal is spelled as a function call.
+  into an artifact: a NUL inside a string literal is spelled as a function call;
+- an input column may be of any type (a CSV loaded by the sqlite3 shell's
+  `.import` is all TEXT): the query asks the engine for each value's type at run
+  time and reads text through a checked grammar (emit/sql_reading.py). The
+  fields after `number_cast` name the trap each answers.
 """
 
 from __future__ import annotations
@@ -47,15 +51,44 @@ class Dialect:
     fold_identifiers: bool      # quoted identifiers match case-insensitively
     identifier_max_bytes: int | None
     view: str                   # CREATE ... VIEW {name} AS
-    number_read: str            # an integer-level category's value ({x}, any column type)
-                                # as a number when it is an integer's text or a number
-    category_nan_test: str | None  # is {x} (any column type) NaN
     function_form: str | None   # template under templates/sql/ for --form function
     parameter: str = ""         # the n-th (1-based) / i-th (0-based) argument inside the body
     parameter_decl: str = ""    # its declaration
     typed_parameters: bool = False  # categorical arguments are passed CAST to text
     function_call: str = ""     # a query scoring {table} through the function {name}({args})
     no_function_reason: str = ""
+
+    # Reading a column of any type (emit/sql_reading.py).
+    type_name: str = ""         # {x}'s type, as the engine names it at run time
+    text_types: tuple[str, ...] = ()  # the names of text types
+    number_cast: str = ""       # a non-text value {x} as double (NULL where it is no number)
+    trim_blanks: str = ""       # the text {t} without the ASCII blanks around it
+    # How checked decimal text {t} becomes a double: "cast": the engine's cast
+    # (text_double) is correctly rounded and never raises; "range": PostgreSQL's
+    # raises beyond double range and on underflow to zero; "staged": SQLite's is
+    # not correctly rounded, so the text is read by integer arithmetic over several
+    # layers (sql_sqlite_text).
+    text_double_rule: str = "cast"
+    text_double: str = ""
+    full_match: str = ""        # {t} matches the whole regular expression {pattern}
+    regex_start: str = "^"      # anchors spelled into the pattern
+    regex_end: str = "$"
+    type_literal: str = "'{name}'"  # a type name as the type_name expression compares it
+    # Numbers whose cast to double is not the correctly rounded value or raises
+    # (PostgreSQL numeric beyond double range), read through their exact decimal text.
+    exact_text_types: tuple[str, ...] = ()
+    # A boolean column's type where no cast from boolean to double exists (PostgreSQL):
+    # read through its text 'true'/'false'. None: the cast gives 1/0, or no such type.
+    boolean_type: str | None = None
+    single_types: tuple[str, ...] = ()  # single-precision types (read back from their text)
+    single: str = ""                    # the single type, as written in CAST
+    # PostgreSQL folds a CAST of a constant while planning, even in a CASE arm the
+    # value never takes, so the final cast reads NULL where an earlier arm applies.
+    folds_constant_casts: bool = False
+    # Float types whose NaN reads as nan_text once cast to text: a category's NaN is
+    # missing, the text 'NaN' is unseen (values.category_code).
+    nan_types: tuple[str, ...] = ()
+    nan_text: str = "NaN"
 
     identifier_quote: str = '"'   # doubled inside a quoted name
     backslash_escapes: bool = False  # string literals treat \\ as an escape character
@@ -91,6 +124,13 @@ class Dialect:
     # passthrough "row": the input row `t` as one value, and its columns again from `s.rw`.
     row_value: str = "t"
     row_columns: str = "(s.rw).*"
+    # At most this many inputs read in one layer: a SELECT holds at most 2,000 columns
+    # in SQLite and its text reading carries up to seven values per input
+    # (sql_sqlite_text); a wider model reads its inputs in blocks joined by rowid.
+    read_width: int | None = None
+    # The layers as a flat WITH list instead of nested subqueries: SQLite's parser
+    # stack overflowed on the text reading (sql_sqlite_text) nested under them.
+    flat_layers: bool = False
     # A header note for a model summed over more than one layer (engine advice).
     large_query_note: str | None = None
 
@@ -130,12 +170,19 @@ SQLITE = Dialect(
     raises_on_underflow=False,
     fold_identifiers=True,
     identifier_max_bytes=None,
-    view="CREATE VIEW {name} AS",
-    # CAST alone would read the text '3abc' as 3: text counts only in canonical form.
-    number_read="CASE WHEN typeof({x}) IN ('integer', 'real') THEN {x} "
-                "WHEN typeof({x}) = 'text' AND CAST(CAST({x} AS INTEGER) AS TEXT) = {x} "
-                "THEN CAST({x} AS INTEGER) END",
-    category_nan_test=None,
+    # No CREATE OR REPLACE VIEW in SQLite: the file drops its own view first, so it
+    # can be run again.
+    view="DROP VIEW IF EXISTS {name};\nCREATE VIEW {name} AS",
+    # SQLite types each value, not the column: typeof() per value. CAST alone reads
+    # 'abc' as 0.0 and '1.5abc' as 1.5, so text is read only after a grammar check;
+    # a blob is no number.
+    type_name="typeof({x})",
+    text_types=("text",),
+    number_cast="CASE WHEN typeof({x}) IN ('integer', 'real') THEN CAST({x} AS REAL) END",
+    trim_blanks="trim({t}, char(32, 9, 10, 13, 12, 11))",
+    text_double_rule="staged",
+    flat_layers=True,
+    read_width=250,
     function_form=None,
     nul_char="char(0)",
     # A column of one of these names shadows the rowid the query joins on.
@@ -159,15 +206,28 @@ POSTGRES = Dialect(
     # every input reference, which fails past 1,664 keys ("number of columns exceeds
     # limit", measured from 250 features on rows with few distinct values).
     passthrough="row",
+    # A column named t would be read where the query means the whole row t.
+    reserved_columns=("t",),
     fence=" OFFSET 0",
     raises_on_underflow=True,
     fold_identifiers=False,
     identifier_max_bytes=63,
-    view="CREATE VIEW {name} AS",
-    # No TRY_CAST in PostgreSQL: a text column would raise on CAST, so read the text.
-    number_read="CASE WHEN CAST({x} AS TEXT) ~ '^\\s*[-+]?[0-9]+(\\.0*)?\\s*$' "
-                "THEN CAST(CAST({x} AS TEXT) AS DOUBLE PRECISION) END",
-    category_nan_test="CAST({x} AS TEXT) = 'NaN'",
+    view="CREATE OR REPLACE VIEW {name} AS",
+    # No TRY_CAST in PostgreSQL and static types: every arm compiles for the column's
+    # type, text is cast only after its grammar and range are checked.
+    type_name="pg_typeof({x})",
+    type_literal="CAST('{name}' AS REGTYPE)",
+    text_types=("text", "character varying", "character", "unknown"),
+    number_cast="CAST({x} AS DOUBLE PRECISION)",
+    trim_blanks="btrim({t}, chr(32) || chr(9) || chr(10) || chr(13) || chr(12) || chr(11))",
+    text_double_rule="range",
+    full_match="{t} ~ {pattern}",
+    exact_text_types=("numeric",),
+    boolean_type="boolean",
+    single_types=("real",),
+    single="REAL",
+    folds_constant_casts=True,
+    nan_types=("double precision", "real", "numeric"),
     function_form="sql/function_postgres.sql.j2",
     parameter="${n}",
     parameter_decl="{type}",
@@ -198,9 +258,19 @@ DUCKDB = Dialect(
     raises_on_underflow=False,
     fold_identifiers=True,
     identifier_max_bytes=None,
-    view="CREATE VIEW {name} AS",
-    number_read="TRY_CAST({x} AS DOUBLE)",
-    category_nan_test="isnan(TRY_CAST({x} AS DOUBLE))",
+    view="CREATE OR REPLACE VIEW {name} AS",
+    # TRY_CAST alone takes '1_000', 'NaN' and 'inf': text is grammar-checked first.
+    type_name="typeof({x})",
+    text_types=("VARCHAR",),
+    number_cast="TRY_CAST({x} AS DOUBLE)",
+    trim_blanks="trim({t}, chr(32) || chr(9) || chr(10) || chr(13) || chr(12) || chr(11))",
+    text_double_rule="cast",
+    text_double="TRY_CAST({t} AS DOUBLE)",
+    full_match="regexp_full_match({t}, {pattern})",
+    regex_start="",
+    regex_end="",
+    nan_types=("DOUBLE", "FLOAT"),
+    nan_text="nan",
     function_form="sql/function_duckdb.sql.j2",
     parameter="p{i}",
     parameter_decl="p{i}",
@@ -232,8 +302,18 @@ SPARK = Dialect(
     fold_identifiers=True,
     identifier_max_bytes=None,
     view="CREATE OR REPLACE TEMPORARY VIEW {name} AS",
-    number_read="try_cast({x} AS DOUBLE)",
-    category_nan_test="isnan(try_cast({x} AS DOUBLE))",
+    # try_cast alone takes '1.5d', 'NaN' and 'Infinity' (Java's parser): text is
+    # grammar-checked first; Java's `$` also matches before a final U+2028, so \z.
+    type_name="typeof({x})",
+    text_types=("string",),
+    number_cast="try_cast({x} AS DOUBLE)",
+    trim_blanks="trim(BOTH chr(32) || chr(9) || chr(10) || chr(13) || chr(12) || chr(11) "
+                "FROM {t})",
+    text_double_rule="cast",
+    text_double="try_cast({t} AS DOUBLE)",
+    full_match="{t} RLIKE {pattern}",
+    regex_end="\\z",
+    nan_types=("double", "float"),
     function_form=None,
     no_function_reason="the spark dialect has no function form; use --form select or view",
     identifier_quote="`",

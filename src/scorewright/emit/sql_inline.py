@@ -25,7 +25,7 @@ import re
 from ..plan import Plan
 from .sql_dialects import Dialect
 
-REF = re.compile("\x00L([0-9]+)\\.([a-z0-9]+)")
+REF = re.compile("\x00L([0-9]+)\\.([a-z0-9_]+)")
 
 
 class InlineLayers:

@@ -1,9 +1,15 @@
-"""SQL artifacts run in the real engine: SQLite (standard library), DuckDB, PostgreSQL.
+"""SQL artifacts run in the real engine: SQLite (standard library), DuckDB, PostgreSQL,
+Spark.
 
-The rows are loaded into a typed table (numeric features as the engine's double
-type; categorical features as text, or as integers for integer levels), the
-emitted file is executed as it is, and the output columns are fetched. A
-PostgreSQL run uses `options["dsn"]` or starts a temporary server of its own.
+The rows are loaded twice. First into a typed table (numeric features as the
+engine's double type; categorical features as text, or as integers for integer
+levels); then as users load a CSV, every column text (TextTable: the sqlite3
+shell's `.import` makes TEXT columns with '' for an empty field; PostgreSQL's
+COPY, DuckDB's and Spark's CSV readers text columns with NULL). The emitted file
+is executed as it is on each, and the output columns are fetched. The typed
+pass's outputs go to the comparison with the reference; the text pass must give
+the same bits on every row, or the run fails naming the first row that differs.
+A PostgreSQL run uses `options["dsn"]` or starts a temporary server of its own.
 """
 
 from __future__ import annotations
@@ -11,16 +17,17 @@ from __future__ import annotations
 import json
 import math
 import numbers
+import struct
 import tempfile
 import uuid
 from pathlib import Path
 
 from ...emit.sql import OPTIONS, artifact_name, function_call, object_name, settings
 from ...errors import ScorewrightError
+from ..interrupts import cancel_on_interrupt, forget_cancel
 from ...model import FrozenModel
 from ...plan import build_plan, output_columns
 from ...values import _integral, numeric_value
-from ..interrupts import cancel_on_interrupt, forget_cancel
 from . import RunOutput
 from .python import outputs_from_table
 
@@ -73,6 +80,7 @@ class Table:
 
     def __init__(self, plan, s, rows, types: dict, mixed_cell=as_text):
         self.columns: list[str] = []
+        self.features: list[str] = []  # the feature each column is read for
         self.kinds: list[str] = []
         converters = []
         for inp in plan.inputs:
@@ -80,6 +88,7 @@ class Table:
             if column in self.columns:
                 continue
             self.columns.append(column)
+            self.features.append(inp.name)
             if inp.kind == "numeric":
                 self.kinds.append("double")
                 converters.append((inp.name, numeric_cell))
@@ -107,6 +116,38 @@ class Table:
 
     def records(self):
         return [[i] + r for i, r in enumerate(self.values)]
+
+
+def csv_text(value):
+    """A raw value as a CSV written by pandas holds it: repr of a float (shortest
+    round trip), the decimal text of an int, True/False, the text itself; None and
+    NaN as an empty field (None here)."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return None
+    if isinstance(value, float):
+        return repr(value)
+    if isinstance(value, (bool, numbers.Integral)):
+        return str(value) if isinstance(value, bool) else str(int(value))
+    return value if isinstance(value, str) else str(value)
+
+
+class TextTable:
+    """The typed table's rows as text columns from a CSV import: `empty` is what the
+    loader makes of an empty field (None: NULL; '' for the sqlite3 shell). The long
+    layout keeps its row key typed (the rows are put back in order by it)."""
+
+    def __init__(self, typed, rows, text_type: str, empty):
+        self.row_column, self.columns = typed.row_column, typed.columns
+        self.types = [text_type] * len(self.columns)
+        if isinstance(typed, LongTable):
+            records = [[r[0]] + [csv_text(v) for v in r[1:]] for r in typed.values]
+        else:
+            records = [[i] + [csv_text(row.get(f)) for f in typed.features]
+                       for i, row in enumerate(rows)]
+        self._records = [[r[0]] + [empty if c is None else c for c in r[1:]] for r in records]
+
+    def records(self):
+        return self._records
 
 
 class LongTable:
@@ -166,7 +207,19 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     else:
         query = function_call(plan, s)
     setup = [] if s.form in ("select", "expressions") else [sql]
-    names, result, version = engine.execute(options, d, s.table, table, setup, query)
+    text = TextTable(table, rows, engine.TYPES["text"], engine.EMPTY_FIELD)
+    passes, version = engine.execute_passes(options, d, s.table, [table, text], setup, query)
+    typed = _outputs(plan, rows, table, *passes[0])
+    if passes[1] is None:
+        note = "; no text-column pass: the text columns do not fit one row"
+    else:
+        _same_bits(plan, rows, typed, _outputs(plan, rows, text, *passes[1]), engine)
+        note = f"; again from text columns ({engine.LOADER})"
+    return outputs_from_table(plan, typed, version + note)
+
+
+def _outputs(plan, rows, table, names, result) -> list[list]:
+    """The output columns, in row order."""
     cols = output_columns(plan)
     missing = [c for c in cols if c not in names]
     if missing:
@@ -177,7 +230,25 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     if len(result) != len(rows):
         raise ScorewrightError(f"sql: {len(rows)} rows in, {len(result)} rows out")
     index = [names.index(c) for c in cols]
-    return outputs_from_table(plan, [[r[i] for i in index] for r in result], version)
+    return [[r[i] for i in index] for r in result]
+
+
+def _same_bits(plan, rows, typed, text, engine) -> None:
+    """The text pass must give the typed pass's outputs bit for bit (the typed pass is
+    compared with the reference, so both are)."""
+    for i, (a, b) in enumerate(zip(typed, text)):
+        if any(_key(x) != _key(y) for x, y in zip(a, b)):
+            cells = {k: v for k, v in rows[i].items()}
+            raise ScorewrightError(
+                f"sql: row {i} {cells!r} scores differently when loaded as text columns "
+                f"({engine.LOADER}): {b!r}, typed columns: {a!r}")
+
+
+def _key(value):
+    """Bits of a float (so a signed zero counts), the value itself otherwise."""
+    if isinstance(value, float):
+        return ("f", struct.pack("<d", value))
+    return ("v", str(value))
 
 
 def _refuse_nul(plan, table, engine: str) -> None:
@@ -204,80 +275,101 @@ def _records(table):
     return table.records()
 
 
-class SQLite:
+class Engine:
+    """One pass: execute_passes with one table."""
+
+    @classmethod
+    def execute(cls, options, d, name, table, setup, query):
+        passes, version = cls.execute_passes(options, d, name, [table], setup, query)
+        return passes[0][0], passes[0][1], version
+
+
+class SQLite(Engine):
     NAME = "SQLite"
     HOLDS_NUL = True
     # No declared type: the column keeps integers, reals and text as they are.
     TYPES = {"double": "REAL", "integer": "INTEGER", "text": "TEXT", "mixed": ""}
     mixed_cell = staticmethod(lambda v: v)
+    # The sqlite3 shell's .import creates every column TEXT and stores an empty field
+    # as '' (tests/test_sql_column_types.py runs the shell to hold this to it).
+    EMPTY_FIELD = ""
+    LOADER = "TEXT columns, '' for an empty field, as the sqlite3 shell's .import makes them"
 
     @staticmethod
-    def execute(options, d, name, table, setup, query):
+    def execute_passes(options, d, name, tables, setup, query):
         import sqlite3
 
-        con = sqlite3.connect(":memory:")
-        cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
-        try:
-            con.execute(create_table(d, name, table))
-            con.executemany(insert(d, name, table, "?"), _records(table))
-            for statement in setup:
-                con.executescript(statement)
-            cur = con.execute(query)
-            names = [c[0] for c in cur.description]
-            return names, cur.fetchall(), f"SQLite {sqlite3.sqlite_version}"
-        except sqlite3.Error as exc:
-            raise ScorewrightError(f"sql: SQLite failed: {exc}") from None
-        finally:
-            forget_cancel(con.interrupt)
-            con.close()
+        passes = []
+        for table in tables:
+            con = sqlite3.connect(":memory:")
+            cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
+            try:
+                con.execute(create_table(d, name, table))
+                con.executemany(insert(d, name, table, "?"), _records(table))
+                for statement in setup:
+                    con.executescript(statement)
+                cur = con.execute(query)
+                passes.append(([c[0] for c in cur.description], cur.fetchall()))
+            except sqlite3.Error as exc:
+                raise ScorewrightError(f"sql: SQLite failed: {exc}") from None
+            finally:
+                forget_cancel(con.interrupt)
+                con.close()
+        return passes, f"SQLite {sqlite3.sqlite_version}"
 
 
-class DuckDB:
+class DuckDB(Engine):
     NAME = "DuckDB"
     HOLDS_NUL = True
     TYPES = {"double": "DOUBLE", "integer": "BIGINT", "text": "VARCHAR", "mixed": "VARCHAR"}
     mixed_cell = staticmethod(as_text)
+    EMPTY_FIELD = None
+    LOADER = "VARCHAR columns, NULL for an empty field, as read_csv(all_varchar) makes them"
 
     @staticmethod
-    def execute(options, d, name, table, setup, query):
+    def execute_passes(options, d, name, tables, setup, query):
         import duckdb
 
-        con = duckdb.connect(":memory:")
-        cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
-        try:
-            con.execute(create_table(d, name, table))
-            con.executemany(insert(d, name, table, "?"), _records(table))
-            for statement in setup:
-                con.execute(statement)
-            version = con.execute("SELECT version()").fetchone()[0]
-            cur = con.execute(query)
-            names = [c[0] for c in cur.description]
-            return names, cur.fetchall(), f"DuckDB {version}"
-        except duckdb.Error as exc:
-            raise ScorewrightError(f"sql: DuckDB failed: {exc}") from None
-        finally:
-            forget_cancel(con.interrupt)
-            con.close()
+        passes = []
+        for table in tables:
+            con = duckdb.connect(":memory:")
+            cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
+            try:
+                con.execute(create_table(d, name, table))
+                con.executemany(insert(d, name, table, "?"), _records(table))
+                for statement in setup:
+                    con.execute(statement)
+                version = con.execute("SELECT version()").fetchone()[0]
+                cur = con.execute(query)
+                passes.append(([c[0] for c in cur.description], cur.fetchall()))
+            except duckdb.Error as exc:
+                raise ScorewrightError(f"sql: DuckDB failed: {exc}") from None
+            finally:
+                forget_cancel(con.interrupt)
+                con.close()
+        return passes, f"DuckDB {version}"
 
 
-class PostgreSQL:
+class PostgreSQL(Engine):
     NAME = "PostgreSQL"
     HOLDS_NUL = False
     TYPES = {"double": "DOUBLE PRECISION", "integer": "BIGINT", "text": "TEXT",
              "mixed": "TEXT"}
     mixed_cell = staticmethod(as_text)
+    EMPTY_FIELD = None
+    LOADER = "TEXT columns, NULL for an empty field, as COPY ... (FORMAT csv) makes them"
 
     @classmethod
-    def execute(cls, options, d, name, table, setup, query):
+    def execute_passes(cls, options, d, name, tables, setup, query):
         params = cls.session_settings(options)
         dsn = options.get("dsn")
         if dsn:
-            return cls._execute(dsn, d, name, table, setup, query, params)
+            return cls._execute(dsn, d, name, tables, setup, query, params)
         from ..postgres import TemporaryServer
 
         with tempfile.TemporaryDirectory(prefix="scorewright-pg-") as tmp:
             with TemporaryServer(Path(tmp) / "pg") as server:
-                return cls._execute(server.dsn, d, name, table, setup, query, params)
+                return cls._execute(server.dsn, d, name, tables, setup, query, params)
 
     @staticmethod
     def session_settings(options) -> dict[str, str]:
@@ -291,43 +383,55 @@ class PostgreSQL:
                 for k, v in given.items()}
 
     @staticmethod
-    def _execute(dsn, d, name, table, setup, query, params):
+    def _execute(dsn, d, name, tables, setup, query, params):
         import psycopg
 
-        schema = d.quote(f"scorewright_{uuid.uuid4().hex[:12]}")
+        passes = []
         try:
             with psycopg.connect(dsn, autocommit=True) as con:
-                con.execute(f"CREATE SCHEMA {schema}")
-                try:
-                    con.execute(f"SET search_path TO {schema}")
-                    con.execute(create_table(d, name, table))
-                    columns = ", ".join(d.quote(c) for c in [table.row_column] + table.columns)
-                    with con.cursor().copy(
-                            f"COPY {d.quote(name)} ({columns}) FROM STDIN") as copy:
-                        for record in _records(table):
-                            copy.write_row(record)
-                    # Statistics, as autovacuum would gather: unanalyzed, the planner
-                    # re-ran each long-layout pivot per row (17 s instead of 1 s at
-                    # 1,000 features).
-                    con.execute(f"ANALYZE {d.quote(name)}")
-                    for statement in setup:
-                        con.execute(statement)
-                    for parameter, value in params.items():
-                        con.execute("SELECT set_config(%s, %s, false)", (parameter, value))
-                    cur = con.execute(query)
-                    names = [c.name for c in cur.description]
-                    result = cur.fetchall()
-                    version = con.execute("SHOW server_version").fetchone()[0]
-                finally:
-                    con.execute(f"DROP SCHEMA {schema} CASCADE")
+                for k, table in enumerate(tables):
+                    try:
+                        passes.append(PostgreSQL._one_pass(con, d, name, table, setup, query,
+                                                           params))
+                    except psycopg.errors.ProgramLimitExceeded:
+                        # "row is too big": so many text columns do not fit a page,
+                        # for a user's CSV import either; only a later pass may be left.
+                        if k == 0:
+                            raise
+                        passes.append(None)
+                version = con.execute("SHOW server_version").fetchone()[0]
             given = "".join(f", {k}={v}" for k, v in params.items())
-            return names, result, f"PostgreSQL {version.split()[0]}{given}"
+            return passes, f"PostgreSQL {version.split()[0]}{given}"
         except psycopg.Error as exc:
             message = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
             raise ScorewrightError(f"sql: PostgreSQL failed: {message}") from None
 
+    @staticmethod
+    def _one_pass(con, d, name, table, setup, query, params):
+        schema = d.quote(f"scorewright_{uuid.uuid4().hex[:12]}")
+        con.execute(f"CREATE SCHEMA {schema}")
+        try:
+            con.execute(f"SET search_path TO {schema}")
+            con.execute(create_table(d, name, table))
+            columns = ", ".join(d.quote(c) for c in [table.row_column] + table.columns)
+            with con.cursor().copy(f"COPY {d.quote(name)} ({columns}) FROM STDIN") as copy:
+                for record in _records(table):
+                    copy.write_row(record)
+            # Statistics, as autovacuum would gather: unanalyzed, the planner re-ran
+            # each long-layout pivot per row (17 s instead of 1 s at 1,000 features).
+            con.execute(f"ANALYZE {d.quote(name)}")
+            for statement in setup:
+                con.execute(statement)
+            for parameter, value in params.items():
+                con.execute("SELECT set_config(%s, %s, false)", (parameter, value))
+            cur = con.execute(query)
+            return [c.name for c in cur.description], cur.fetchall()
+        finally:
+            con.execute("RESET ALL")
+            con.execute(f"DROP SCHEMA {schema} CASCADE")
 
-class Spark:
+
+class Spark(Engine):
     """A local Spark session (local[2]), one per process, kept for later runs;
     options["ansi"] (default true, Spark 4's default) sets spark.sql.ansi.enabled."""
 
@@ -335,6 +439,8 @@ class Spark:
     HOLDS_NUL = True
     TYPES = {"double": "double", "integer": "bigint", "text": "string", "mixed": "string"}
     mixed_cell = staticmethod(as_text)
+    EMPTY_FIELD = None
+    LOADER = "string columns, null for an empty field, as spark.read.csv makes them"
     _session = None
 
     @classmethod
@@ -359,7 +465,15 @@ class Spark:
         return cls._session
 
     @classmethod
-    def execute(cls, options, d, name, table, setup, query):
+    def execute_passes(cls, options, d, name, tables, setup, query):
+        passes = []
+        for table in tables:
+            names, rows, version = cls._one_pass(options, d, name, table, setup, query)
+            passes.append((names, rows))
+        return passes, version
+
+    @classmethod
+    def _one_pass(cls, options, d, name, table, setup, query):
         spark = cls.session()  # first: without pyspark it says what to install
         from py4j.protocol import Py4JJavaError
         from pyspark.errors import PySparkException
