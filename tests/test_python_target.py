@@ -117,8 +117,10 @@ def test_odd_values_follow_the_documented_missing_rules(tmp_path):
     scorer = _import(_write(tm.model, tmp_path))
     base = tm.frame.iloc[0].to_dict()
     as_missing = dict(base, discharge_temp_c=None)
+    # Digits and blanks outside ASCII are not read as a number (float() would take
+    # "\u0668\u0661" as 81): every SQL target reads ASCII only, so no target does.
     for odd in ("hot", decimal.Decimal("80.5"), 10 ** 400, math.inf, -math.inf,
-                math.nan, "", "1_000", [1.0]):
+                math.nan, "", "1_000", [1.0], "\u0668\u0661", "\u00a081"):
         assert scorer.margin(dict(base, discharge_temp_c=odd)) == scorer.margin(as_missing), odd
     # A bool is 1/0, as scikit-learn reads it in a numeric column.
     for flag in (True, False):

@@ -22,7 +22,8 @@ import math
 import numbers
 import re
 
-NUMBER = re.compile(r"\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*\Z")
+# ASCII digits and the six ASCII blanks only, as every SQL target reads text
+NUMBER = re.compile(r"\s*([+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?)\s*\Z", re.ASCII)
 BOOLEAN_WORDS = {"true": 1.0, "false": 0.0}
 MISSING_CODE = -1
 UNSEEN_CODE = -2
@@ -47,7 +48,7 @@ def numeric_value(value, boolean: bool = False) -> float | None:
         return 1.0 if value else 0.0
     if isinstance(value, str):
         if boolean:
-            word = BOOLEAN_WORDS.get(value.strip().lower())
+            word = BOOLEAN_WORDS.get(value.strip(" \t\n\r\f\v").lower())
             if word is not None:
                 return word
         match = NUMBER.match(value)
