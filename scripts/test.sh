@@ -23,4 +23,4 @@ if [ ${#need[@]} -gt 0 ]; then
 fi
 
 python3 -m pip install --quiet --disable-pip-version-check -e '.[test]'
-python3 -m pytest -q "$@"
+python3 -m pytest -q --durations=15 "$@"

@@ -473,7 +473,7 @@ def test_sqlite_shell_import_scores_as_the_reference(tmp_path):
     plan = build_plan(model)
     s = settings(plan, {"dialect": "sqlite"})
     typed = sql_runner.Table(plan, s, rows, sql_runner.SQLite.TYPES)
-    text = sql_runner.TextTable(typed, rows, "TEXT", sql_runner.SQLite.EMPTY_FIELD)
+    text = sql_runner.TextTable(plan, typed, rows, "TEXT", sql_runner.SQLite.EMPTY_FIELD)
     assert [tuple(r[1:]) for r in text.records()] == stored
     query = emit(model, {"dialect": "sqlite"})[0].content.decode()
     cur = con.execute(query)

@@ -27,7 +27,7 @@ from ...errors import ScorewrightError
 from ..interrupts import cancel_on_interrupt, forget_cancel
 from ...model import FrozenModel
 from ...plan import build_plan, output_columns
-from ...values import _integral, numeric_value
+from ...values import _integral, is_bool, numeric_value
 from . import RunOutput
 from .python import outputs_from_table
 
@@ -131,18 +131,28 @@ def csv_text(value):
     return value if isinstance(value, str) else str(value)
 
 
+def _as_number(value):
+    """A bool in a plain numeric column is the number 1/0 (as scikit-learn reads it), and
+    a CSV of a numeric column holds numbers; its text 'True' would be no number there
+    (only a feature fitted on booleans reads the words)."""
+    return float(bool(value)) if is_bool(value) else value
+
+
 class TextTable:
     """The typed table's rows as text columns from a CSV import: `empty` is what the
     loader makes of an empty field (None: NULL; '' for the sqlite3 shell). The long
     layout keeps its row key typed (the rows are put back in order by it)."""
 
-    def __init__(self, typed, rows, text_type: str, empty):
+    def __init__(self, plan, typed, rows, text_type: str, empty):
         self.row_column, self.columns = typed.row_column, typed.columns
         self.types = [text_type] * len(self.columns)
         if isinstance(typed, LongTable):
             records = [[r[0]] + [csv_text(v) for v in r[1:]] for r in typed.values]
         else:
-            records = [[i] + [csv_text(row.get(f)) for f in typed.features]
+            numbers_only = {inp.name for inp in plan.inputs
+                            if inp.kind == "numeric" and not inp.boolean}
+            records = [[i] + [csv_text(_as_number(row.get(f)) if f in numbers_only
+                                       else row.get(f)) for f in typed.features]
                        for i, row in enumerate(rows)]
         self._records = [[r[0]] + [empty if c is None else c for c in r[1:]] for r in records]
 
@@ -207,7 +217,7 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     else:
         query = function_call(plan, s)
     setup = [] if s.form in ("select", "expressions") else [sql]
-    text = TextTable(table, rows, engine.TYPES["text"], engine.EMPTY_FIELD)
+    text = TextTable(plan, table, rows, engine.TYPES["text"], engine.EMPTY_FIELD)
     passes, version = engine.execute_passes(options, d, s.table, [table, text], setup, query)
     typed = _outputs(plan, rows, table, *passes[0])
     if passes[1] is None:
