@@ -5,10 +5,8 @@ reference evaluator before it became the program's interpreter) bit for bit."""
 from __future__ import annotations
 
 import json
-import math
 from pathlib import Path
 
-import numpy as np
 import pytest
 
 import models

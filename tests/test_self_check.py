@@ -11,7 +11,6 @@ from __future__ import annotations
 import csv
 import importlib.util
 import io
-import math
 import pickle
 import subprocess
 import sys
@@ -37,7 +36,6 @@ from scorewright.errors import ScorewrightError
 from scorewright.freeze import freeze_checked
 from scorewright.freeze.self_check import FreezeMismatch, check_model
 from scorewright.freeze.sklearn import freeze_estimator
-from scorewright.model import NumericFeature
 from scorewright.plan import build_plan
 from scorewright.reference import score_row
 from scorewright.values import numeric_value

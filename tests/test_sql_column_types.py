@@ -15,7 +15,6 @@ from __future__ import annotations
 import dataclasses
 import random
 import sqlite3
-import struct
 import subprocess
 import shutil
 from decimal import Decimal

@@ -45,7 +45,7 @@ def ulp_gap(a, b) -> int:
 
 
 def run(tmp_path, model, rows, options, ansi):
-    art = emit(model, options)[0]
+    art = emit(model, {k: v for k, v in options.items() if k != "text_pass"})[0]
     tmp_path.mkdir(parents=True, exist_ok=True)
     (tmp_path / art.name).write_bytes(art.content)
     return sql_runner.run(tmp_path, model, rows, dict(options, ansi=ansi))
@@ -148,7 +148,9 @@ def test_a_model_of_many_terms_sums_flat(tmp_path, spark):
     for form in ("select", "expressions"):
         text = emit(model, {"dialect": "spark", "form": form})[0].content.decode()
         assert text.count("aggregate(") == 1 and "LATERAL" not in text
-        got = run(tmp_path / form, model, rows, {"dialect": "spark", "form": form}, True)
+        # The sums are the question; the text pass is tested on its own.
+        got = run(tmp_path / form, model, rows,
+                  {"dialect": "spark", "form": form, "text_pass": False}, True)
         assert bits(got.margins[:, 0]).tolist() == bits([s.margins[0] for s in ref]).tolist()
         assert ulp_gap(got.probabilities, [s.probabilities for s in ref]) <= ULPS
 
