@@ -188,8 +188,7 @@ def program_code(program: Program, split: MarginSplit, spelling: Spelling, names
     plan = program.plan
     sources = {inp.index: f"in->{names[inp.index]}" for inp in plan.inputs}
     rename = {m: f"m[{k}]" for k, m in enumerate(split.margins) if isinstance(m, str)}
-    r = Renderer(program, spelling, sources, rename)
-    r.tables.update(tables)
+    r = Renderer(program, spelling, sources, rename, tables)
     parts = []
     started = [False] * plan.n_outputs
     for start in range(0, max(len(split.groups), 1), ROW_PART_TERMS):

@@ -49,8 +49,8 @@ def batch_code(program: Program, split: MarginSplit, spelling: Spelling, prec: C
     decls: list[str] = []
     lines: list[str] = []
     groups = split.groups
-    straight = _renderer(program, spelling, {i: f"x[{i}]" for i in range(len(plan.inputs))},
-                         tables)
+    straight = Renderer(program, spelling, {i: f"x[{i}]" for i in range(len(plan.inputs))},
+                        tables=tables)
     start = 0
     n_runs = 0
     while start < len(groups):
@@ -69,12 +69,6 @@ def batch_code(program: Program, split: MarginSplit, spelling: Spelling, prec: C
     local = [f"{prec.real} s{k} = -{prec.literal(0.0)};" for k in range(K)]
     local += ["int j;"] if n_runs else []
     return {"batch_tables": decls, "batch_lines": lines, "batch_locals": local}
-
-
-def _renderer(program, spelling, sources, tables, rename=None) -> Renderer:
-    r = Renderer(program, spelling, sources, rename)
-    r.tables.update(tables)
-    return r
 
 
 def _shape(cone: list[Op], terms) -> tuple | None:

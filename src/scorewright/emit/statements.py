@@ -37,12 +37,12 @@ class Renderer:
     """Renders operations of one program; lookup tables are shared by every call."""
 
     def __init__(self, program: Program, spelling: Spelling, sources: dict[int, str],
-                 rename: dict[str, str] | None = None):
+                 rename: dict[str, str] | None = None, tables: dict | None = None):
         self.program = program
         self.spelling = spelling
         self.sources = sources          # input index -> the text holding its raw value
         self.rename = dict(rename or {})  # program name -> text (e.g. an array element)
-        self.tables: dict[tuple, str] = {}
+        self.tables: dict[tuple, str] = dict(tables or {})  # values -> name (preset ones)
         self.outputs: dict[str, str] = {}
 
     @property

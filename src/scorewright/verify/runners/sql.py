@@ -304,6 +304,28 @@ def _insert_in_blocks(con, d, name: str, table, block: int = 200) -> None:
                     [cell for record in chunk for cell in record])
 
 
+def _in_memory_passes(engine, connect, error, d, name: str, tables, setup, query) -> list:
+    """Each table in a fresh in-memory database of an embedded engine (SQLite, DuckDB):
+    create, load, run the setup and the query; Ctrl-C interrupts a running query."""
+    passes = []
+    for table in tables:
+        con = connect(":memory:")
+        cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
+        try:
+            con.execute(create_table(d, name, table))
+            engine.load(con, d, name, table)
+            for statement in setup:
+                engine.run_setup(con, statement)
+            cur = con.execute(query)
+            passes.append(([c[0] for c in cur.description], cur.fetchall()))
+        except error as exc:
+            raise ScorewrightError(f"sql: {engine.NAME} failed: {exc}") from None
+        finally:
+            forget_cancel(con.interrupt)
+            con.close()
+    return passes
+
+
 class Engine:
     """One pass: execute_passes with one table."""
 
@@ -324,27 +346,21 @@ class SQLite(Engine):
     EMPTY_FIELD = ""
     LOADER = "TEXT columns, '' for an empty field, as the sqlite3 shell's .import makes them"
 
-    @staticmethod
-    def execute_passes(options, d, name, tables, setup, query):
+    @classmethod
+    def execute_passes(cls, options, d, name, tables, setup, query):
         import sqlite3
 
-        passes = []
-        for table in tables:
-            con = sqlite3.connect(":memory:")
-            cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
-            try:
-                con.execute(create_table(d, name, table))
-                con.executemany(insert(d, name, table, "?"), _records(table))
-                for statement in setup:
-                    con.executescript(statement)
-                cur = con.execute(query)
-                passes.append(([c[0] for c in cur.description], cur.fetchall()))
-            except sqlite3.Error as exc:
-                raise ScorewrightError(f"sql: SQLite failed: {exc}") from None
-            finally:
-                forget_cancel(con.interrupt)
-                con.close()
+        passes = _in_memory_passes(cls, sqlite3.connect, sqlite3.Error, d, name, tables,
+                                   setup, query)
         return passes, f"SQLite {sqlite3.sqlite_version}"
+
+    @staticmethod
+    def load(con, d, name, table):
+        con.executemany(insert(d, name, table, "?"), _records(table))
+
+    @staticmethod
+    def run_setup(con, statement):
+        con.executescript(statement)
 
 
 class DuckDB(Engine):
@@ -355,28 +371,19 @@ class DuckDB(Engine):
     EMPTY_FIELD = None
     LOADER = "VARCHAR columns, NULL for an empty field, as read_csv(all_varchar) makes them"
 
-    @staticmethod
-    def execute_passes(options, d, name, tables, setup, query):
+    @classmethod
+    def execute_passes(cls, options, d, name, tables, setup, query):
         import duckdb
 
-        passes = []
-        for table in tables:
-            con = duckdb.connect(":memory:")
-            cancel_on_interrupt(con.interrupt)  # Ctrl-C ends a running query at once
-            try:
-                con.execute(create_table(d, name, table))
-                _insert_in_blocks(con, d, name, table)
-                for statement in setup:
-                    con.execute(statement)
-                version = con.execute("SELECT version()").fetchone()[0]
-                cur = con.execute(query)
-                passes.append(([c[0] for c in cur.description], cur.fetchall()))
-            except duckdb.Error as exc:
-                raise ScorewrightError(f"sql: DuckDB failed: {exc}") from None
-            finally:
-                forget_cancel(con.interrupt)
-                con.close()
-        return passes, f"DuckDB {version}"
+        passes = _in_memory_passes(cls, duckdb.connect, duckdb.Error, d, name, tables,
+                                   setup, query)
+        return passes, f"DuckDB {duckdb.connect().execute('SELECT version()').fetchone()[0]}"
+
+    load = staticmethod(_insert_in_blocks)
+
+    @staticmethod
+    def run_setup(con, statement):
+        con.execute(statement)
 
 
 class PostgreSQL(Engine):
