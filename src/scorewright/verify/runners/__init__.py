@@ -28,6 +28,34 @@ class RunOutput:
     value: np.ndarray | None = None          # (n,), regression
 
 
+def class_by_label(plan):
+    """A class cell holding the class label (as text or a number): its index, -1 when it
+    names no class."""
+    labels = [str(c) for c in plan.classes]
+    return lambda cell: labels.index(str(cell)) if str(cell) in labels else -1
+
+
+def outputs_from_table(plan, table, runtime: str, number=float, class_of=None) -> RunOutput:
+    """The one reader of a runtime's output table: rows of cells in the order of
+    `plan.output_columns` (binary: margin, positive-class probability, class;
+    multiclass: K margins, K probabilities, class; regression: margin, value).
+    `number` reads a real cell (text, a hex float, a hex word...), `class_of` a class
+    cell (default: the class label, `class_by_label`). A short or unreadable row
+    raises IndexError or ValueError, which each runner words for its runtime."""
+    n, k = len(table), plan.n_outputs
+    if plan.task == "regression":
+        m = np.array([number(r[0]) for r in table]).reshape(n, 1)
+        return RunOutput(runtime, m, value=np.array([number(r[1]) for r in table]))
+    class_of = class_of or class_by_label(plan)
+    width = 1 if plan.task == "binary" else k
+    m = np.array([[number(x) for x in r[:k]] for r in table]).reshape(n, k)
+    p = np.array([[number(x) for x in r[k:k + width]] for r in table]).reshape(n, width)
+    if plan.task == "binary":
+        p = np.concatenate([1.0 - p, p], axis=1)
+    cls = np.array([class_of(r[k + width]) for r in table], dtype=np.int64)
+    return RunOutput(runtime, m, p, cls)
+
+
 # runner name (a profile's verify.runner) -> module
 RUNNERS = {
     "python": "scorewright.verify.runners.python",

@@ -24,7 +24,7 @@ from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import build_plan
 from ...values import category_code, numeric_value
-from . import RunOutput
+from . import RunOutput, outputs_from_table
 
 DEFAULT_CFLAGS = "-std=c99 -O2 -ffp-contract=off"
 
@@ -108,26 +108,11 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
 def parse_output(plan, text: str, runtime: str, decision_only: bool = False) -> RunOutput:
     """RunOutput from the driver's per-row lines (hex floats and a class index; only the
     class index from a decision-only scorer)."""
-    lines = text.splitlines()
-    table = [line.split() for line in lines]
-    k = plan.n_outputs
-    n = len(table)
+    table = [line.split() for line in text.splitlines()]
     try:
         if decision_only:
             return decisions(runtime, table)
-        if plan.task == "binary":
-            m = np.array([float.fromhex(r[0]) for r in table]).reshape(n, 1)
-            p1 = np.array([float.fromhex(r[1]) for r in table])
-            cls = np.array([int(r[2]) for r in table], dtype=np.int64)
-            return RunOutput(runtime, m, np.stack([1.0 - p1, p1], axis=1).reshape(n, 2), cls)
-        if plan.task == "multiclass":
-            m = np.array([[float.fromhex(x) for x in r[:k]] for r in table]).reshape(n, k)
-            p = np.array([[float.fromhex(x) for x in r[k:2 * k]] for r in table]).reshape(n, k)
-            cls = np.array([int(r[2 * k]) for r in table], dtype=np.int64)
-            return RunOutput(runtime, m, p, cls)
-        m = np.array([float.fromhex(r[0]) for r in table]).reshape(n, 1)
-        v = np.array([float.fromhex(r[1]) for r in table])
-        return RunOutput(runtime, m, value=v)
+        return outputs_from_table(plan, table, runtime, number=float.fromhex, class_of=int)
     except (IndexError, ValueError) as exc:
         raise ScorewrightError(f"c: unreadable scorer output ({exc})") from None
 

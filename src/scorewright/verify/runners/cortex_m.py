@@ -23,7 +23,6 @@ from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
 
-import numpy as np
 
 from ...emit.c import context
 from ...emit.c_precision import PRECISIONS
@@ -32,7 +31,7 @@ from ...emit.templating import render
 from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import Plan, build_plan
-from . import RunOutput
+from . import RunOutput, outputs_from_table
 from .c import compiler_version, decisions, encode_rows
 
 DEFAULTS = {
@@ -200,20 +199,8 @@ def word(text: str) -> float:
 def parse_table(plan: Plan, table: list[list[str]], runtime: str) -> RunOutput:
     """RunOutput from the driver's rows of hex words (and the class index). A class
     index of -99 means the batch function disagreed with the row functions."""
-    n, k = len(table), plan.n_outputs
     try:
-        if plan.task == "binary":
-            m = np.array([word(r[0]) for r in table]).reshape(n, 1)
-            p1 = np.array([word(r[1]) for r in table])
-            cls = np.array([int(r[2]) for r in table], dtype=np.int64)
-            return RunOutput(runtime, m, np.stack([1.0 - p1, p1], axis=1).reshape(n, 2), cls)
-        if plan.task == "multiclass":
-            m = np.array([[word(x) for x in r[:k]] for r in table]).reshape(n, k)
-            p = np.array([[word(x) for x in r[k:2 * k]] for r in table]).reshape(n, k)
-            cls = np.array([int(r[2 * k]) for r in table], dtype=np.int64)
-            return RunOutput(runtime, m, p, cls)
-        m = np.array([word(r[0]) for r in table]).reshape(n, 1)
-        return RunOutput(runtime, m, value=np.array([word(r[1]) for r in table]))
+        return outputs_from_table(plan, table, runtime, number=word, class_of=int)
     except (IndexError, ValueError) as exc:
         raise ScorewrightError(f"cortex-m: unreadable firmware output ({exc})") from None
 

@@ -10,13 +10,12 @@ import subprocess
 import sys
 from pathlib import Path
 
-import numpy as np
 
 from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import build_plan, output_columns
 from ...values import is_bool
-from . import RunOutput
+from . import RunOutput, outputs_from_table
 
 
 def csv_cell(value, inp=None) -> str:
@@ -58,26 +57,3 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     out_rows = list(reader)
     return outputs_from_table(plan, [[r[index[c]] for c in cols] for r in out_rows],
                               runtime=f"CPython {platform.python_version()} -I -S")
-
-
-def outputs_from_table(plan, table, runtime: str) -> RunOutput:
-    """RunOutput from rows of output-column values (text or numbers) in output_columns order."""
-    n = len(table)
-    k = plan.n_outputs
-    if plan.task == "binary":
-        m = np.array([float(r[0]) for r in table]).reshape(n, 1)
-        p1 = np.array([float(r[1]) for r in table])
-        labels = [str(c) for c in plan.classes]
-        cls = np.array([labels.index(str(r[2])) if str(r[2]) in labels else -1 for r in table])
-        return RunOutput(runtime, m, np.stack([1.0 - p1, p1], axis=1) if n else np.empty((0, 2)),
-                         cls)
-    if plan.task == "multiclass":
-        m = np.array([[float(x) for x in r[:k]] for r in table]).reshape(n, k)
-        p = np.array([[float(x) for x in r[k:2 * k]] for r in table]).reshape(n, k)
-        labels = [str(c) for c in plan.classes]
-        cls = np.array([labels.index(str(r[2 * k])) if str(r[2 * k]) in labels else -1
-                        for r in table])
-        return RunOutput(runtime, m, p, cls)
-    m = np.array([float(r[0]) for r in table]).reshape(n, 1)
-    v = np.array([float(r[1]) for r in table])
-    return RunOutput(runtime, m, value=v)

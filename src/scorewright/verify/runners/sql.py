@@ -29,7 +29,7 @@ from ...model import FrozenModel
 from ...plan import build_plan, output_columns
 from ...values import _integral, is_bool, numeric_value
 from . import RunOutput
-from .python import outputs_from_table
+from . import outputs_from_table
 
 INT64 = 2 ** 63
 
