@@ -14,6 +14,7 @@ have arm-none-eabi-gcc || need+=(gcc-arm-none-eabi)
 dpkg -s libnewlib-arm-none-eabi >/dev/null 2>&1 || need+=(libnewlib-arm-none-eabi)
 have qemu-system-arm || need+=(qemu-system-arm)
 have java || need+=(openjdk-17-jre-headless)  # the local Spark session of the Spark tests
+have javac || need+=(openjdk-17-jdk-headless)  # the Java target: javac builds each artifact
 have sqlite3 || need+=(sqlite3)  # the sqlite3 shell: its .import loads a CSV as TEXT columns
 if [ ${#need[@]} -gt 0 ]; then
   echo "installing system packages: ${need[*]}"

@@ -1,7 +1,7 @@
 """Which built-in profiles a check runs on, chosen by the [tags] table of each profile
 (targets/*.toml; DEVELOPERS.md, Tests).
 
-family        python, c, onnx or sql: the emitter
+family        python, c, onnx, sql or java: the emitter
 emitter_key   profiles with one key render names and sums the same way (one emitter,
               dialect, layout and precision): c/double holds c-double, c-double-portable-exp
               and both Cortex-M boards; onnx/double holds onnxruntime and onnx.reference

@@ -199,7 +199,7 @@ def _parse_columns(pairs) -> dict[str, str]:
 @cli.command()
 @click.argument("model_file", type=click.Path(dir_okay=False))
 @click.option("--target", "target", required=True,
-              help="Target family: python, sql, c or onnx.")
+              help="Target family: python, sql, c, onnx or java.")
 @click.option("-o", "--output", "outdir", required=True, type=click.Path(file_okay=False),
               help="Directory to write the artifact(s) into.")
 @click.option("--dialect", help="sql: sqlite, postgres, duckdb (or spark).")

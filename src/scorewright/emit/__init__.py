@@ -23,6 +23,7 @@ EMITTERS = {
     "sql": "scorewright.emit.sql",
     "onnx": "scorewright.emit.onnx",
     "c": "scorewright.emit.c",
+    "java": "scorewright.emit.java",
 }
 
 

@@ -23,6 +23,7 @@ PIP_PACKAGES = {
 # command -> Debian/Ubuntu package (as scripts/test.sh installs them)
 APT_PACKAGES = {
     "java": "openjdk-17-jre-headless",
+    "javac": "openjdk-17-jdk-headless",
     "gcc": "gcc",
     "arm-none-eabi-gcc": "gcc-arm-none-eabi libnewlib-arm-none-eabi",
     "qemu-system-arm": "qemu-system-arm",

@@ -63,6 +63,7 @@ RUNNERS = {
     "c": "scorewright.verify.runners.c",
     "onnx": "scorewright.verify.runners.onnx",
     "cortex-m": "scorewright.verify.runners.cortex_m",
+    "java": "scorewright.verify.runners.java",
 }
 
 

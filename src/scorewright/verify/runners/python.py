@@ -33,27 +33,36 @@ def csv_cell(value, inp=None) -> str:
     return str(value)
 
 
+def rows_csv(plan, rows: list[dict]) -> bytes:
+    """The rows as the CSV a scorer reads on stdin: a header of feature names, one
+    record a row (UTF-8, RFC 4180 quoting)."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\r\n")  # quotes a lone "\r" too
+    writer.writerow(list(plan.feature_names))
+    for row in rows:
+        writer.writerow([csv_cell(row.get(inp.name), inp) for inp in plan.inputs])
+    return buf.getvalue().encode("utf-8")
+
+
+def scored_table(plan, stdout: bytes) -> list[list[str]]:
+    """The output columns of a scorer's CSV on stdout (the input's columns, then
+    `output_columns`), one list of cells a row."""
+    reader = csv.reader(io.StringIO(stdout.decode("utf-8"), newline=""))
+    header = next(reader)
+    index = [header.index(c) for c in output_columns(plan)]
+    return [[r[i] for i in index] for r in reader]
+
+
 def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict) -> RunOutput:
     plan = build_plan(model)
     script = Path(artifact_dir) / f"{plan.stem}.py"
     if not script.is_file():
         raise ScorewrightError(f"python: artifact {script} is missing")
-    names = list(plan.feature_names)
-    buf = io.StringIO()
-    writer = csv.writer(buf, lineterminator="\r\n")  # quotes a lone "\r" too
-    writer.writerow(names)
-    for row in rows:
-        writer.writerow([csv_cell(row.get(inp.name), inp) for inp in plan.inputs])
     interpreter = options.get("interpreter") or sys.executable
     proc = subprocess.run([interpreter, "-I", "-S", str(script)],
-                          input=buf.getvalue().encode("utf-8"), capture_output=True)
+                          input=rows_csv(plan, rows), capture_output=True)
     if proc.returncode != 0:
         err = proc.stderr.decode("utf-8", "replace").strip()
         raise ScorewrightError(f"python: the artifact failed: {err[-300:]}")
-    reader = csv.reader(io.StringIO(proc.stdout.decode("utf-8"), newline=""))
-    header = next(reader)
-    cols = output_columns(plan)
-    index = {c: header.index(c) for c in cols}
-    out_rows = list(reader)
-    return outputs_from_table(plan, [[r[index[c]] for c in cols] for r in out_rows],
+    return outputs_from_table(plan, scored_table(plan, proc.stdout),
                               runtime=f"CPython {platform.python_version()} -I -S")
