@@ -15,6 +15,7 @@ import pytest
 
 import models
 from scorewright.emit import emitter
+from scorewright import portable_exp
 from scorewright.emit.java import class_name
 from scorewright.model import (CategoricalFeature, DesignColumn, FrozenModel, Head,
                                NumericFeature, ScalingStep)
@@ -191,3 +192,23 @@ def test_scorer_agrees_on_a_wide_and_a_many_level_model(tmp_path):
         assert proc.returncode == 0, proc.stderr
         for row, cells in zip(rows, scored_table(plan, proc.stdout), strict=True):
             assert float(cells[0]) == score_row(plan, row).margins[0]
+
+
+def test_portable_exp_gives_the_reference_bits(tmp_path):
+    """--portable-exp: a log-link model whose value is exp(x) itself, on 5,000 arguments
+    over the guarded range: the Java class gives portable_exp.exp's bits, every one."""
+    head = Head("regression", "log", None, (0.0,), ((1.0,),), None)
+    model = FrozenModel("exp_probe", (NumericFeature("x", None),), (DesignColumn("x"),), head,
+                        {"scorewright_version": "test", "source": "java test"}).sealed()
+    (art,) = emitter("java")(model, {"portable_exp": True})
+    (tmp_path / art.name).write_bytes(art.content)
+    proc = subprocess.run(["javac", "-Xlint:all", "-Werror", "-d", str(tmp_path),
+                           str(tmp_path / art.name)], capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    plan = build_plan(model, exp="portable")
+    xs = np.random.default_rng(11).uniform(-708.0, 709.0, 5000)
+    rows = [{"x": float(x)} for x in xs]
+    proc = _tool(tmp_path, art.name[:-len(".java")], rows_csv(plan, rows))
+    assert proc.returncode == 0, proc.stderr
+    got = [float(cells[1]) for cells in scored_table(plan, proc.stdout)]
+    assert [g.hex() for g in got] == [portable_exp.exp(float(x)).hex() for x in xs]

@@ -20,7 +20,9 @@ from __future__ import annotations
 import keyword
 import math
 import re
+from dataclasses import replace
 
+from .. import portable_exp
 from ..errors import ScorewrightError
 from ..model import FrozenModel
 from ..plan import Plan, build_plan, output_columns
@@ -99,7 +101,7 @@ JAVA = Spelling(
     },
 )
 # the nested classes' names, which the public class must not take
-NESTED = re.compile(r"Values|Part\d+|Levels\d+|Table\d+_\d+")
+NESTED = re.compile(r"Values|PortableExp|Part\d+|Levels\d+|Table\d+_\d+")
 TYPES = {"real": "double", "code": "int", "flag": "boolean"}
 
 
@@ -112,9 +114,16 @@ def class_name(plan: Plan) -> str:
     return name
 
 
+OPTIONS = ("portable_exp",)
+
+
 def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
-    reject_options("java", options or {}, ())
-    plan = build_plan(model)
+    """--portable-exp: the class carries scorewright's portable exp (`portable_exp.STEPS`,
+    rendered as C renders it: the same statements are Java), so it gives the reference
+    evaluator's bits on every JVM."""
+    options = options or {}
+    reject_options("java", options, OPTIONS)
+    plan = build_plan(model, exp="portable" if options.get("portable_exp") else "libm")
     name = class_name(plan)
     text = render("java/Scorer.java.j2", **context(plan, name))
     return [Artifact(f"{name}.java", text.encode("ascii"))]
@@ -127,6 +136,13 @@ def _array(values: list[str], what: str) -> str:
     return ", ".join(values)
 
 
+def spelling(plan: Plan) -> Spelling:
+    """JAVA, with the portable exp in place of StrictMath.exp when the plan carries it."""
+    if plan.exp_kind != "portable":
+        return JAVA
+    return replace(JAVA, ops={**JAVA.ops, "exp": "PortableExp.exp({0})"})
+
+
 def context(plan: Plan, name: str) -> dict:
     program = lower(plan)
     split = split_margins(program)
@@ -136,7 +152,7 @@ def context(plan: Plan, name: str) -> dict:
     for term in plan.terms:
         for k, table in enumerate(term.tables):
             tables.setdefault(table, f"Table{term.input}_{k}.T")
-    r = Renderer(program, JAVA, sources, rename, tables)
+    r = Renderer(program, spelling(plan), sources, rename, tables)
     started = [False] * plan.n_outputs
     parts = []
     for start in range(0, len(split.groups), PART_TERMS):
@@ -174,6 +190,9 @@ def context(plan: Plan, name: str) -> dict:
         "finish": finish,
         "rest": rest,
         "results": [(j, r.outputs[o]) for j, o in enumerate(outputs)],
+        "portable_exp": None if plan.exp_kind != "portable" else {
+            "locals": portable_exp.c_locals(),
+            "lines": portable_exp.c_lines("PortableExp.pow2")},
     }
 
 

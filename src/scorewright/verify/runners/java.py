@@ -38,7 +38,7 @@ def _run(cmd: list[str], what: str, timeout: float, **kwargs):
 
 
 def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict) -> RunOutput:
-    plan = build_plan(model)
+    plan = build_plan(model, exp="portable" if options.get("portable_exp") else "libm")
     name = class_name(plan)
     source = Path(artifact_dir) / f"{name}.java"
     if not source.is_file():
@@ -53,4 +53,4 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
         proc = _run([java, "-Xshare:auto", "-cp", tmp, name], "the scorer", 600,
                     input=rows_csv(plan, rows))
     return outputs_from_table(plan, scored_table(plan, proc.stdout),
-                              runtime=f"{jvm_version(java)}, StrictMath.exp")
+                              runtime=f"{jvm_version(java)}, {plan.exp_kind} exp")
