@@ -45,6 +45,7 @@ from . import Artifact, reject_options
 OPSET = 28
 IR_VERSION = 10  # below onnx 1.23's default 14; the checker and onnxruntime 1.32 accept it
 LAYOUTS = ("per-feature", "matrix")
+OPTIONS = ("precision", "inputs")
 MATRIX_INPUT = "features"
 OUTPUTS = ("margin", "probability", "class_index", "predicted_value")
 N = "N"  # the symbolic batch dimension
@@ -74,7 +75,7 @@ STEP_NODE = {"shift": "Sub", "divide": "Div", "multiply": "Mul"}
 
 def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
     options = options or {}
-    reject_options("onnx", options, ("precision", "inputs"))
+    reject_options("onnx", options, OPTIONS)
     precision = options.get("precision", "double")
     layout = options.get("inputs", "per-feature")
     if precision not in ELEMENT_TYPES:

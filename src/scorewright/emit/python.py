@@ -47,8 +47,11 @@ PYTHON = Spelling(
 )
 
 
+OPTIONS = ()
+
+
 def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
-    reject_options("python", options or {}, ())
+    reject_options("python", options or {}, OPTIONS)
     plan = build_plan(model)
     text = render("python/scorer.py.j2", **context(plan))
     return [Artifact(f"{plan.stem}.py", text.encode("utf-8"))]

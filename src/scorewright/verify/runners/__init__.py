@@ -15,6 +15,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from importlib import import_module
+from pathlib import Path
 
 import numpy as np
 
@@ -26,6 +27,22 @@ class RunOutput:
     probabilities: np.ndarray | None = None  # (n, C), classification
     class_index: np.ndarray | None = None    # (n,), classification
     value: np.ndarray | None = None          # (n,), regression
+
+
+def emitted(artifact_dir, model, options: dict, family: str, suffix: str) -> Path:
+    """The path of the artifact ending in `suffix` that the family's emitter writes for
+    this model with the emit options among `options` (a runner never recomputes a file
+    name, prefix or class name); an error naming it when the file is not there."""
+    from ...emit import EMITTERS
+    from ...errors import ScorewrightError
+
+    module = import_module(EMITTERS[family])
+    emit_options = {k: v for k, v in options.items() if k in module.OPTIONS}
+    (name,) = [a.name for a in module.emit(model, emit_options) if a.name.endswith(suffix)]
+    path = Path(artifact_dir) / name
+    if not path.is_file():
+        raise ScorewrightError(f"{family}: artifact {path} is missing")
+    return path
 
 
 def class_by_label(plan):

@@ -18,13 +18,12 @@ from pathlib import Path
 
 import numpy as np
 
-from ...emit.c import default_prefix, driver_source
-from ...emit.c_syntax import check_prefix
+from ...emit.c import driver_source
 from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import build_plan
 from ...values import category_code, numeric_value
-from . import RunOutput, outputs_from_table
+from . import RunOutput, emitted, outputs_from_table
 
 DEFAULT_CFLAGS = "-std=c99 -O2 -ffp-contract=off"
 
@@ -66,13 +65,9 @@ def compiler_version(compiler: str) -> str:
 def build_driver(artifact_dir: Path, model: FrozenModel, options: dict, workdir: Path) -> Path:
     """Compile the artifact and its host driver into `workdir`; the executable's path."""
     precision = options.get("precision", "double")
-    plan = build_plan(model, precision)
-    prefix = check_prefix(options["prefix"]) if options.get("prefix") else default_prefix(
-        plan.stem)
-    source = Path(artifact_dir) / f"{prefix}.c"
-    for path in (source, source.with_suffix(".h")):
-        if not path.is_file():
-            raise ScorewrightError(f"c: artifact {path} is missing")
+    source = emitted(artifact_dir, model, options, "c", ".c")
+    emitted(artifact_dir, model, options, "c", ".h")
+    prefix = source.stem
     driver = workdir / f"{prefix}_driver.c"
     driver.write_text(driver_source(model, prefix, precision,
                                     bool(options.get("decision_only"))), encoding="ascii")

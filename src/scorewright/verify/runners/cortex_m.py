@@ -31,7 +31,7 @@ from ...emit.templating import render
 from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import Plan, build_plan
-from . import RunOutput, outputs_from_table
+from . import RunOutput, emitted, outputs_from_table
 from .c import compiler_version, decisions, encode_rows
 
 DEFAULTS = {
@@ -112,11 +112,9 @@ def build_image(artifact_dir: Path, model: FrozenModel, options: dict, workdir: 
     """Cross-build the artifact with the firmware driver and startup; the ELF image."""
     board = Board(options)
     plan = build_plan(model, options.get("precision", "double"))
-    prefix = prefix_of(plan, options)
-    source = Path(artifact_dir) / f"{prefix}.c"
-    for path in (source, source.with_suffix(".h")):
-        if not path.is_file():
-            raise ScorewrightError(f"cortex-m: artifact {path} is missing")
+    source = emitted(artifact_dir, model, options, "c", ".c")
+    emitted(artifact_dir, model, options, "c", ".h")
+    prefix = source.stem
     for name, text in firmware_sources(plan, prefix, options).items():
         (workdir / name).write_text(text, encoding="ascii")
     image = workdir / "image.elf"

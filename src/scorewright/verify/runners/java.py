@@ -8,11 +8,10 @@ import tempfile
 from functools import lru_cache
 from pathlib import Path
 
-from ...emit.java import class_name
 from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import build_plan
-from . import RunOutput, outputs_from_table
+from . import RunOutput, emitted, outputs_from_table
 from .python import rows_csv, scored_table
 
 
@@ -39,10 +38,8 @@ def _run(cmd: list[str], what: str, timeout: float, **kwargs):
 
 def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict) -> RunOutput:
     plan = build_plan(model, exp="portable" if options.get("portable_exp") else "libm")
-    name = class_name(plan)
-    source = Path(artifact_dir) / f"{name}.java"
-    if not source.is_file():
-        raise ScorewrightError(f"java: artifact {source} is missing")
+    source = emitted(artifact_dir, model, options, "java", ".java")
+    name = source.stem  # the public class
     javac, java = options.get("javac", "javac"), options.get("java", "java")
     with tempfile.TemporaryDirectory(prefix="scorewright-java-") as tmp:
         # -Xlint:all -Werror: a warning in the artifact is a finding; javac itself runs

@@ -17,7 +17,7 @@ from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import Plan, build_plan
 from ...values import MISSING_CODE, UNSEEN_CODE, category_code, numeric_value
-from . import RunOutput
+from . import RunOutput, emitted
 
 EVALUATORS = ("onnxruntime", "reference")
 NUMPY_TYPES = {"double": np.float64, "float": np.float32}
@@ -33,9 +33,7 @@ def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict)
     if precision not in NUMPY_TYPES:
         raise ScorewrightError(f"onnx: precision {precision!r}: expected double or float")
     plan = build_plan(model, precision)
-    path = Path(artifact_dir) / f"{plan.stem}.onnx"
-    if not path.is_file():
-        raise ScorewrightError(f"onnx: artifact {path} is missing")
+    path = emitted(artifact_dir, model, options, "onnx", ".onnx")
     feeds = input_feeds(plan, rows, layout)
     if evaluator == "reference":
         _check_reference_can_hold(plan)

@@ -15,7 +15,7 @@ from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import build_plan, output_columns
 from ...values import is_bool
-from . import RunOutput, outputs_from_table
+from . import RunOutput, emitted, outputs_from_table
 
 
 def csv_cell(value, inp=None) -> str:
@@ -55,9 +55,7 @@ def scored_table(plan, stdout: bytes) -> list[list[str]]:
 
 def run(artifact_dir: Path, model: FrozenModel, rows: list[dict], options: dict) -> RunOutput:
     plan = build_plan(model)
-    script = Path(artifact_dir) / f"{plan.stem}.py"
-    if not script.is_file():
-        raise ScorewrightError(f"python: artifact {script} is missing")
+    script = emitted(artifact_dir, model, options, "python", ".py")
     interpreter = options.get("interpreter") or sys.executable
     proc = subprocess.run([interpreter, "-I", "-S", str(script)],
                           input=rows_csv(plan, rows), capture_output=True)
