@@ -3,7 +3,7 @@ predict (the reference library) against the frozen model's reference evaluator.
 
 Also the freezing faults the check exists for: boolean columns (scikit-learn reads a
 bool as 0/1), OneHotEncoder(handle_unknown='warn') (scikit-learn >= 1.6 sends unseen
-levels to the infrequent group), statsmodels results, and None against NaN in a text
+levels to the infrequent group), unsupported statsmodels results, and None against NaN in a text
 column (scikit-learn's SimpleImputer imputes NaN only)."""
 
 from __future__ import annotations
@@ -326,26 +326,30 @@ def test_none_and_nan_in_a_text_column_are_named_not_failed():
 # ---------------------------------------------------------------- statsmodels
 
 def _statsmodels_result():
+    """A multinomial logit, which freeze does not take (tests/test_statsmodels.py has the
+    results it takes)."""
     import statsmodels.api as sm
 
-    data = sm.datasets.spector.load_pandas()  # ships with statsmodels
-    return sm.Logit(data.endog, sm.add_constant(data.exog)).fit(disp=0)
+    data = sm.datasets.anes96.load_pandas().data  # ships with statsmodels
+    exog = sm.add_constant(data[["logpopul", "selfLR", "age"]])
+    return sm.MNLogit(data["PID"], exog).fit(disp=0, maxiter=200)
 
 
-def test_statsmodels_results_are_refused_plainly():
-    with pytest.raises(ScorewrightError, match=r"^statsmodels results \(\w+\) are not "
-                                               "supported"):
+def test_unsupported_statsmodels_results_are_refused_plainly():
+    with pytest.raises(ScorewrightError, match=r"^statsmodels MNLogit is not supported; "
+                                               "freeze takes Logit"):
         scorewright.freeze(_statsmodels_result())
 
 
-def test_cli_refuses_statsmodels_in_one_line(tmp_path):
-    pkl = tmp_path / "logit.pkl"
+def test_cli_refuses_unsupported_statsmodels_in_one_line(tmp_path):
+    pkl = tmp_path / "mnlogit.pkl"
     pkl.write_bytes(pickle.dumps(_statsmodels_result()))
     out = tmp_path / "m.json"
     result = CliRunner().invoke(cli, ["freeze", str(pkl), "-o", str(out)])
     assert result.exit_code == 2 and not out.exists()
     last = result.stderr.strip().splitlines()[-1]
-    assert last.startswith("error: statsmodels results") and "not fitted" not in last
+    assert last.startswith("error: statsmodels MNLogit is not supported") and \
+        "not fitted" not in last
 
 
 def test_check_rows_the_source_cannot_score_are_an_error_not_a_pass(tmp_path):

@@ -80,7 +80,8 @@ def _split_names(text: str | None) -> list[str] | None:
                    "checked).")
 @click.option("--force", is_flag=True, help="Overwrite an existing output file.")
 def freeze(pickle_file, output, name, feature_names, check_data, force):
-    """Freeze a fitted scikit-learn model from a pickle or joblib file.
+    """Freeze a fitted scikit-learn model, or statsmodels results (results.save), from a
+    pickle or joblib file.
 
     The frozen model is scored against the source estimator before it is written;
     a model that scores differently is refused. Unpickling runs code stored in

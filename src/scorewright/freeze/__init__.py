@@ -11,6 +11,7 @@ from ..errors import ScorewrightError
 from ..model import FrozenModel, NumericFeature
 from .self_check import CheckResult, FreezeNote, check_model, feature_order
 from .sklearn import freeze_estimator
+from .statsmodels import ResultsSource, freeze_results, is_statsmodels
 
 PICKLE_WARNING = ("warning: loading {path} runs code stored in the file; "
                   "load only files you trust (the in-process API, scorewright.freeze(), "
@@ -18,7 +19,8 @@ PICKLE_WARNING = ("warning: loading {path} runs code stored in the file; "
 
 
 def freeze(estimator, feature_names=None, name=None, check_rows=None) -> FrozenModel:
-    """Freeze a fitted scikit-learn estimator or pipeline (the safe, in-process path).
+    """Freeze a fitted scikit-learn estimator or pipeline, or fitted statsmodels results
+    (the safe, in-process path).
 
     The frozen model is checked against the estimator on `check_rows` (a pandas
     DataFrame, or a list of dicts, holding the raw inputs as the estimator takes
@@ -35,11 +37,18 @@ def freeze(estimator, feature_names=None, name=None, check_rows=None) -> FrozenM
 def freeze_checked(estimator, feature_names=None, name=None, check_rows=None
                    ) -> tuple[FrozenModel, CheckResult]:
     """Freeze, mark boolean features from the check rows' dtypes, and self-check."""
-    model = freeze_estimator(estimator, feature_names=feature_names, name=name)
+    if is_statsmodels(estimator):
+        model = freeze_results(estimator, feature_names=feature_names, name=name)
+        source = ResultsSource(estimator, model)
+    else:
+        model = freeze_estimator(estimator, feature_names=feature_names, name=name)
+        source = estimator
     frame = check_frame(check_rows, feature_order(model))
     if frame is not None:
         model = mark_booleans(model, frame)
-    return model, check_model(estimator, model, frame)
+    result = check_model(source, model, frame)
+    result.rules += model.provenance.get("notes", [])
+    return model, result
 
 
 def check_frame(rows, names):

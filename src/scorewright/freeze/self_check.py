@@ -52,17 +52,19 @@ class CheckResult:
     unscored: int = 0        # rows the source estimator could not score
     guarded: int = 0         # rows whose log-link margin meets the frozen exp guard
     none_rules: dict = field(default_factory=dict)  # column -> the frozen model's rule
+    rules: list = field(default_factory=list)  # rules the frozen model states for what
+    #                                            the source cannot score
 
     @property
     def notes(self) -> list[str]:
         if not self.none_rules:
-            return []
+            return list(self.rules)
         plural = "s" if len(self.none_rules) > 1 else ""
         cols = ", ".join(map(repr, self.none_rules))
         return [f"the source model reads None in text column{plural} {cols} differently from NaN (scikit-learn's SimpleImputer imputes NaN but "
                 "not None in an object column, so None scores as an unseen level there); "
                 "the frozen model reads both as missing: "
-                + "; ".join(self.none_rules.values())]
+                + "; ".join(self.none_rules.values())] + list(self.rules)
 
     def summary(self) -> str:
         line = (f"self-check: the frozen model scores {_rows(self.compared)} "

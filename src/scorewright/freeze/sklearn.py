@@ -42,7 +42,6 @@ class Unsupported(ScorewrightError):
 
 
 def freeze_estimator(estimator, feature_names=None, name=None) -> FrozenModel:
-    _refuse_foreign(estimator)
     head_est, transforms = _split(estimator)
     raw_names = _input_names(estimator, feature_names)
     chains = [Chain(i) for i in range(len(raw_names))]
@@ -65,14 +64,6 @@ def freeze_estimator(estimator, feature_names=None, name=None) -> FrozenModel:
 
 
 # ---------------------------------------------------------------- structure
-
-def _refuse_foreign(estimator) -> None:
-    """Say plainly what is not a scikit-learn model, before asking it sklearn questions."""
-    module = type(estimator).__module__ or ""
-    if module.split(".")[0] == "statsmodels":
-        raise Unsupported(f"statsmodels results ({type(estimator).__name__}) are not supported; "
-                          "freeze takes fitted scikit-learn estimators and pipelines")
-
 
 def _split(estimator):
     from sklearn.pipeline import Pipeline

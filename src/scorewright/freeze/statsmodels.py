@@ -1,0 +1,297 @@
+"""Freezing fitted statsmodels results (Logit, Poisson, NegativeBinomial, GLM, OLS, WLS, GLS)
+into a frozen model.
+
+A model fitted on arrays takes its features from `exog_names`, with the column
+`add_constant` made (statsmodels' `const_idx`) as the intercept. A model fitted
+through a formula takes its design from the formula's own design information
+(patsy's DesignInfo, which statsmodels keeps as `model.data.model_spec`): each term
+is read from its factors and their codings, never from the column names.
+
+- A numerical factor that names a data column is that feature; `center(x)` and
+  `standardize(x, center=, rescale=, ddof=)` become the scaling steps patsy's
+  stateful transforms apply, with the constants they memorized.
+- A categorical factor (`C(x)`, `C(x, Treatment(reference=...))`, `C(x, Sum)`, any
+  contrast, or a text column) is that feature's levels; whatever its contrast matrix,
+  each level's contribution to the margin is the sum over the term's columns of the
+  level's contrast entry times the coefficient, so any coding freezes the same way.
+- Interactions, splines and other transforms are refused in one line naming the term.
+
+statsmodels cannot score a row with a missing value (the prediction is NaN) or an
+unseen level (patsy raises). The frozen model states its rule instead: a missing
+numeric value's design value is 0.0 (the term adds nothing), and a missing or unseen
+level gets no contribution from its term (under treatment coding, the reference
+level's). `scorewright show` and the freeze notes say so.
+"""
+
+from __future__ import annotations
+
+import ast
+import math
+
+import numpy as np
+
+from ..errors import ScorewrightError
+from ..model import (CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
+                     ScalingStep)
+
+# model class -> (task, link) for the models whose link does not come from a family
+DISCRETE = {"Logit": ("binary", "logit"), "Poisson": ("regression", "log"),
+            "NegativeBinomial": ("regression", "log"), "GeneralizedPoisson": ("regression", "log"),
+            "OLS": ("regression", "identity"), "WLS": ("regression", "identity"),
+            "GLS": ("regression", "identity")}
+# GLM family -> the links frozen for it, as (task, link)
+GLM_LINKS = {("Binomial", "Logit"): ("binary", "logit"),
+             ("Gaussian", "Identity"): ("regression", "identity")}
+LOG_FAMILIES = ("Poisson", "Gamma", "Tweedie", "NegativeBinomial", "Gaussian", "InverseGaussian")
+LINK_ISSUE = ("probit, cloglog and the other links need the normal CDF or a log of a "
+              "log, which the scoring program does not have yet")
+
+
+class Unsupported(ScorewrightError):
+    pass
+
+
+def is_statsmodels(obj) -> bool:
+    return (type(obj).__module__ or "").split(".")[0] == "statsmodels"
+
+
+def freeze_results(results, feature_names=None, name=None) -> FrozenModel:
+    """The frozen model of fitted statsmodels results (a results object, or its wrapper)."""
+    model = getattr(results, "model", None)
+    if model is None or not hasattr(results, "params"):
+        raise Unsupported(f"{type(results).__name__}: freeze takes fitted statsmodels results "
+                          "(what .fit() returns), not a model")
+    kind = type(model).__name__
+    task, link = _task_and_link(model, kind)
+    _refuse_offsets(model, kind)
+    # the exog columns (a NegativeBinomial also names its alpha among exog_names)
+    names = list(model.exog_names)[:np.shape(model.exog)[1]]
+    params = np.asarray(results.params, dtype=np.float64).reshape(-1)[:len(names)]
+    spec = getattr(model.data, "model_spec", None)
+    if spec is not None and hasattr(spec, "term_codings"):
+        if feature_names is not None:
+            raise ScorewrightError("feature_names: a formula model names its own features")
+        features, design, coefs, intercept, inputs = _from_formula(spec, names, params)
+    elif spec is not None:
+        raise Unsupported(f"{kind} fitted through a formula engine other than patsy "
+                          f"({type(spec).__module__}): only patsy's design information is "
+                          "read; fit with patsy to freeze it")
+    else:
+        features, design, coefs, intercept, inputs = _from_arrays(model, names, params,
+                                                                  feature_names)
+    classes, cut = ((0, 1), 0.0) if task == "binary" else (None, None)
+    head = Head(task, link, classes, (intercept,), (tuple(coefs),), cut)
+    source = f"statsmodels {kind}"
+    family = getattr(model, "family", None)
+    if family is not None:
+        source += f" ({type(family).__name__}, {type(family.link).__name__} link)"
+    formula = getattr(model, "formula", None)
+    if formula:
+        source += f": {formula}"
+    return FrozenModel(name or kind.lower(), tuple(features), tuple(design), head,
+                       _provenance(source, inputs)).sealed()
+
+
+def _provenance(source: str, inputs: list[str]) -> dict:
+    import platform
+
+    import statsmodels
+
+    from .. import __version__
+
+    return {"scorewright_version": __version__, "source": source,
+            "libraries": {"python": platform.python_version(), "numpy": np.__version__,
+                          "statsmodels": statsmodels.__version__},
+            "inputs": {"feature_names": inputs},
+            "notes": ["statsmodels cannot score a missing value or an unseen level; "
+                      "the frozen model gives a missing numeric value the design "
+                      "value 0.0 and a missing or unseen level no contribution "
+                      "from its term"]}
+
+
+def _task_and_link(model, kind: str) -> tuple[str, str]:
+    family = getattr(model, "family", None)
+    if family is None:
+        if kind in DISCRETE:
+            return DISCRETE[kind]
+        raise Unsupported(f"statsmodels {kind} is not supported; freeze takes Logit, Poisson, "
+                          "NegativeBinomial, GeneralizedPoisson, GLM, OLS, WLS and GLS results"
+                          + (f" ({LINK_ISSUE})" if kind == "Probit" else ""))
+    fam, lnk = type(family).__name__, type(family.link).__name__
+    if (fam, lnk) in GLM_LINKS:
+        return GLM_LINKS[(fam, lnk)]
+    if fam in LOG_FAMILIES and lnk == "Log":
+        return "regression", "log"
+    raise Unsupported(f"GLM {fam} family with the {lnk} link is not supported; frozen links: "
+                      "Binomial/logit, Gaussian/identity, log for Poisson, Gamma, Tweedie, "
+                      f"NegativeBinomial, Gaussian and InverseGaussian ({LINK_ISSUE})")
+
+
+def _refuse_offsets(model, kind: str) -> None:
+    for attr in ("offset", "exposure"):
+        if getattr(model, attr, None) is not None:
+            raise Unsupported(f"{kind} was fitted with an {attr}: a frozen model has no "
+                              f"{attr} input yet; refit without it to freeze")
+
+
+def _from_arrays(model, names, params, feature_names):
+    const = model.data.const_idx if getattr(model.data, "k_constant", 0) else None
+    if const is not None and np.ndim(const) != 0:
+        raise Unsupported("the design has more than one constant column")
+    kept = [j for j in range(len(names)) if j != const]
+    given = list(feature_names) if feature_names is not None else [names[j] for j in kept]
+    if len(given) != len(kept):
+        raise ScorewrightError(f"feature_names: {len(given)} names for {len(kept)} "
+                               "non-constant columns")
+    features = [NumericFeature(str(n), None) for n in given]
+    design = [DesignColumn(f.name) for f in features]
+    intercept = float(params[const]) if const is not None else 0.0
+    return features, design, [float(params[j]) for j in kept], intercept, list(given)
+
+
+# ---------------------------------------------------------------- formulas (patsy)
+
+def _from_formula(spec, names, params):
+    if list(spec.column_names) != list(names):
+        raise Unsupported("the formula's design columns are not the model's exog columns")
+    features: dict[str, object] = {}
+    design, coefs, intercept = [], [], 0.0
+    for term, subterms in spec.term_codings.items():
+        sl = spec.term_slices[term]
+        if not term.factors:
+            intercept = float(params[sl][0])
+            continue
+        if len(term.factors) > 1 or len(subterms) != 1:
+            raise Unsupported(f"term {term.name()!r} is an interaction: not freezable yet "
+                              "(needs product terms)")
+        (factor,) = term.factors
+        info = spec.factor_infos[factor]
+        beta = [float(b) for b in params[sl]]
+        if info.type == "numerical":
+            feat = _numeric_factor(factor, info)
+            _add_feature(features, feat, term)
+            design.append(DesignColumn(feat.name))
+            coefs.append(beta[0])
+        else:
+            feat = _categorical_factor(factor, info)
+            _add_feature(features, feat, term)
+            matrix = subterms[0].contrast_matrices[factor].matrix
+            for level, row in zip(feat.levels, np.asarray(matrix, dtype=np.float64)):
+                contribution = math.fsum(float(r) * b for r, b in zip(row, beta))
+                if contribution != 0.0:
+                    design.append(DesignColumn(feat.name, (level,)))
+                    coefs.append(contribution)
+    inputs = list(features)
+    return list(features.values()), design, coefs, intercept, inputs
+
+
+def _add_feature(features: dict, feat, term) -> None:
+    if feat.name in features:
+        raise Unsupported(f"term {term.name()!r}: the variable {feat.name!r} appears in "
+                          "more than one term; not freezable yet")
+    features[feat.name] = feat
+
+
+def _numeric_factor(factor, info) -> NumericFeature:
+    code = info.state.get("eval_code", factor.code) if isinstance(info.state, dict) \
+        else factor.code
+    tree = _parse(code, factor)
+    if isinstance(tree, ast.Name):
+        return NumericFeature(tree.id, None)
+    call = tree
+    if (isinstance(call, ast.Call) and isinstance(call.func, ast.Attribute)
+            and call.func.attr == "transform" and isinstance(call.func.value, ast.Name)
+            and len(call.args) == 1 and isinstance(call.args[0], ast.Name)):
+        obj = info.state["transforms"].get(call.func.value.id)
+        options = {k.arg: ast.literal_eval(k.value) for k in call.keywords}
+        steps = _stateful_steps(obj, options, factor)
+        return NumericFeature(call.args[0].id, None, tuple(steps))
+    raise Unsupported(f"term {factor.name()!r}: only a column, center(x) and standardize(x) "
+                      "are frozen as numeric terms yet (transforms such as np.log need the "
+                      "transform terms)")
+
+
+def _stateful_steps(obj, options: dict, factor) -> list[ScalingStep]:
+    """The steps patsy's Center or Standardize applies, with its memorized constants
+    rounded to double as patsy's own arithmetic on a float64 column rounds them."""
+    kind = type(obj).__name__
+    if kind == "Center":
+        mean = np.asarray(obj._sum / obj._count, dtype=np.float64).reshape(-1)
+        return [ScalingStep("subtract", float(mean[0]))]
+    if kind == "Standardize":
+        steps = []
+        if options.get("center", True):
+            steps.append(ScalingStep("subtract", float(np.asarray(obj.current_mean)[0])))
+        if options.get("rescale", True):
+            ddof = options.get("ddof", 0)
+            sd = np.sqrt(obj.current_M2 / (obj.current_n - ddof))
+            steps.append(ScalingStep("divide", float(np.asarray(sd)[0])))
+        return steps
+    raise Unsupported(f"term {factor.name()!r}: the stateful transform {kind} is not "
+                      "frozen yet")
+
+
+def _categorical_factor(factor, info) -> CategoricalFeature:
+    tree = _parse(factor.code, factor)
+    if isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name) and tree.func.id == "C" \
+            and tree.args and isinstance(tree.args[0], ast.Name):
+        name = tree.args[0].id
+    elif isinstance(tree, ast.Name):
+        name = tree.id
+    else:
+        raise Unsupported(f"term {factor.name()!r}: a categorical term must be C(column, ...) "
+                          "or a text column")
+    return CategoricalFeature(name, tuple(_level(v, factor) for v in info.categories))
+
+
+def _level(value, factor):
+    if isinstance(value, (bool, np.bool_)):
+        return int(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)) and math.isfinite(value) and value == int(value):
+        return int(value)  # patsy matches 3 and 3.0 alike
+    if isinstance(value, str):
+        return value
+    raise Unsupported(f"term {factor.name()!r}: the level {value!r} is neither text nor an "
+                      "integer")
+
+
+def _parse(code: str, factor):
+    try:
+        return ast.parse(code, mode="eval").body
+    except SyntaxError:
+        raise Unsupported(f"term {factor.name()!r}: cannot read its code") from None
+
+
+# ---------------------------------------------------------------- the self-check's view
+
+class ResultsSource:
+    """The results as the self-check calls a source estimator: predict_proba for a binary
+    model (both classes), predict for the rest; rows statsmodels cannot score give NaN."""
+
+    def __init__(self, results, model: FrozenModel):
+        self.results = results
+        self.formula = getattr(results.model.data, "model_spec", None) is not None
+        self.feature_names_in_ = np.array(model.provenance["inputs"]["feature_names"],
+                                          dtype=object)
+        self.const = (results.model.data.const_idx
+                      if getattr(results.model.data, "k_constant", 0) else None)
+
+    def _exog(self, frame):
+        if self.formula:
+            return frame
+        x = np.asarray(frame, dtype=np.float64)
+        if self.const is not None:
+            x = np.insert(x, self.const, 1.0, axis=1)
+        return x
+
+    def predict(self, frame):
+        out = np.asarray(self.results.predict(self._exog(frame)), dtype=np.float64)
+        if len(out) != len(frame):  # a row dropped for a missing value
+            raise ValueError("statsmodels dropped a row it cannot score")
+        return out
+
+    def predict_proba(self, frame):
+        p = self.predict(frame)
+        return np.column_stack([1.0 - p, p])
