@@ -24,4 +24,7 @@ if [ ${#need[@]} -gt 0 ]; then
 fi
 
 python3 -m pip install --quiet --disable-pip-version-check -e '.[test]'
+# torch, for the PyTorch freeze tests: the CPU build (no GPU libraries)
+python3 -c "import torch" 2>/dev/null || python3 -m pip install --quiet \
+  --disable-pip-version-check --index-url https://download.pytorch.org/whl/cpu torch==2.13.0
 python3 -m pytest -q --durations=15 "$@"

@@ -78,10 +78,18 @@ def _split_names(text: str | None) -> list[str] | None:
               help="CSV or Parquet rows of raw inputs: the frozen model must score them "
                    "like the source estimator (rows derived from the model are always "
                    "checked).")
+@click.option("--task", type=click.Choice(["binary", "multiclass", "regression"]),
+              help="torch state_dict (.pt): what the Linear layer's outputs are.")
+@click.option("--preprocessor", type=click.Path(dir_okay=False),
+              help="torch state_dict (.pt): a pickled fitted scikit-learn transformer that "
+                   "made the layer's inputs.")
+@click.option("--classes", help="torch state_dict (.pt): comma-separated class labels.")
 @click.option("--force", is_flag=True, help="Overwrite an existing output file.")
-def freeze(pickle_file, output, name, feature_names, check_data, force):
+def freeze(pickle_file, output, name, feature_names, check_data, task, preprocessor, classes,
+           force):
     """Freeze a fitted scikit-learn model, or statsmodels results (results.save), from a
-    pickle or joblib file.
+    pickle or joblib file; or a PyTorch Linear layer from its saved state_dict (a .pt file,
+    read with weights_only=True) with --task and --feature-names or --preprocessor.
 
     The frozen model is scored against the source estimator before it is written;
     a model that scores differently is refused. Unpickling runs code stored in
@@ -96,10 +104,23 @@ def freeze(pickle_file, output, name, feature_names, check_data, force):
         raise ScorewrightError(f"{src}: no such file")
     check_writable(out, force)
     rows = None if check_data is None else read_check_data(Path(check_data))
-    click.echo(PICKLE_WARNING.format(path=src), err=True)
-    estimator = load_pickled_estimator(src)
+    extra = {}
+    if src.suffix in (".pt", ".pth"):
+        from .freeze.torch import module_from_state_dict
+
+        estimator = module_from_state_dict(src, task)
+        extra = {"task": task, "classes": _name_list("--classes", classes)}
+        if preprocessor is not None:
+            click.echo(PICKLE_WARNING.format(path=preprocessor), err=True)
+            extra["preprocessor"] = load_pickled_estimator(Path(preprocessor))
+    else:
+        if task or preprocessor or classes:
+            raise ScorewrightError("--task, --preprocessor and --classes apply to a torch "
+                                   "state_dict (.pt) only")
+        click.echo(PICKLE_WARNING.format(path=src), err=True)
+        estimator = load_pickled_estimator(src)
     model, checked = freeze_checked(estimator, feature_names=_split_names(feature_names),
-                                    name=name, check_rows=rows)
+                                    name=name, check_rows=rows, **extra)
     for note in checked.notes:
         click.echo(f"note: {note}", err=True)
     model.write(out, force=force)

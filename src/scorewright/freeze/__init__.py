@@ -9,18 +9,26 @@ from pathlib import Path
 
 from ..errors import ScorewrightError
 from ..model import FrozenModel, NumericFeature
-from .self_check import CheckResult, FreezeNote, check_model, feature_order
+from .self_check import (CheckResult, FreezeMismatch, FreezeNote, base_row, check_model,
+                         feature_order)
 from .sklearn import freeze_estimator
 from .statsmodels import ResultsSource, freeze_results, is_statsmodels
+from .torch import FLOAT32_TOLERANCE, float32_gap, is_torch_module, source_pipeline
 
 PICKLE_WARNING = ("warning: loading {path} runs code stored in the file; "
                   "load only files you trust (the in-process API, scorewright.freeze(), "
                   "avoids this)")
 
 
-def freeze(estimator, feature_names=None, name=None, check_rows=None) -> FrozenModel:
-    """Freeze a fitted scikit-learn estimator or pipeline, or fitted statsmodels results
-    (the safe, in-process path).
+def freeze(estimator, feature_names=None, name=None, check_rows=None, preprocessor=None,
+           task=None, classes=None) -> FrozenModel:
+    """Freeze a fitted scikit-learn estimator or pipeline, fitted statsmodels results, or a
+    PyTorch linear model (the safe, in-process path).
+
+    A torch module (an nn.Linear, or nn.Sequential of one Linear and an optional Sigmoid
+    or Softmax) takes `feature_names`, or the fitted scikit-learn `preprocessor` that made
+    its inputs; `task` ('binary' for a Linear that outputs a logit, 'multiclass' for class
+    logits) where the module has no Sigmoid or Softmax to say it; `classes` its labels.
 
     The frozen model is checked against the estimator on `check_rows` (a pandas
     DataFrame, or a list of dicts, holding the raw inputs as the estimator takes
@@ -28,15 +36,22 @@ def freeze(estimator, feature_names=None, name=None, check_rows=None) -> FrozenM
     refused (FreezeMismatch). A numeric column of dtype bool in `check_rows` marks
     its feature boolean. What the check found worth saying comes as warnings."""
     model, result = freeze_checked(estimator, feature_names=feature_names, name=name,
-                                   check_rows=check_rows)
+                                   check_rows=check_rows, preprocessor=preprocessor,
+                                   task=task, classes=classes)
     for note in result.notes:
         warnings.warn(note, FreezeNote, stacklevel=2)
     return model
 
 
-def freeze_checked(estimator, feature_names=None, name=None, check_rows=None
+def freeze_checked(estimator, feature_names=None, name=None, check_rows=None,
+                   preprocessor=None, task=None, classes=None
                    ) -> tuple[FrozenModel, CheckResult]:
     """Freeze, mark boolean features from the check rows' dtypes, and self-check."""
+    if is_torch_module(estimator):
+        return freeze_torch_checked(estimator, feature_names, name, check_rows, preprocessor,
+                                    task, classes)
+    if preprocessor is not None or task is not None or classes is not None:
+        raise ScorewrightError("preprocessor, task and classes apply to a torch module only")
     if is_statsmodels(estimator):
         model = freeze_results(estimator, feature_names=feature_names, name=name)
         source = ResultsSource(estimator, model)
@@ -48,6 +63,40 @@ def freeze_checked(estimator, feature_names=None, name=None, check_rows=None
         model = mark_booleans(model, frame)
     result = check_model(source, model, frame)
     result.rules += model.provenance.get("notes", [])
+    return model, result
+
+
+def freeze_torch_checked(module, feature_names, name, check_rows, preprocessor, task,
+                         classes) -> tuple[FrozenModel, CheckResult]:
+    """A torch linear model frozen as the scikit-learn model of the same function, checked
+    against it (1e-12), then against torch's own float32 forward pass (FLOAT32_TOLERANCE)."""
+    import torch
+
+    pipeline, task = source_pipeline(module, feature_names, preprocessor, task, classes)
+    model = freeze_estimator(pipeline, feature_names=feature_names, name=name or "linear")
+    layers = "".join(type(x).__name__ + ", " for x in getattr(module, "_modules", {}).values())
+    source = (f"PyTorch {type(module).__name__}"
+              + (f"({layers[:-2]})" if layers else "")
+              + ("" if preprocessor is None else f" after scikit-learn "
+                 f"{type(preprocessor).__name__}")
+              + f", task {task}; float32 weights frozen exactly as doubles")
+    prov = dict(model.provenance, source=source)
+    prov["libraries"] = dict(prov.get("libraries", {}), torch=torch.__version__)
+    model = replace(model, provenance=prov).sealed()
+    frame = check_frame(check_rows, feature_order(model))
+    if frame is not None:
+        model = mark_booleans(model, frame)
+    result = check_model(pipeline, model, frame)
+    rows = frame if frame is not None else check_frame([base_row(model)], feature_order(model))
+    gap = float32_gap(module, pipeline, task, rows)
+    if not gap <= FLOAT32_TOLERANCE:
+        raise FreezeMismatch(f"self-check failed: the frozen model differs from torch's "
+                             f"float32 forward pass by {gap:.3g} (more than "
+                             f"{FLOAT32_TOLERANCE:g}); nothing was written")
+    result.rules.append(f"torch computes in float32: the frozen model (the weights as "
+                        f"doubles, computed in double) meets torch's float32 forward pass "
+                        f"within {gap:.2g} on {len(rows)} check row"
+                        f"{'s' if len(rows) != 1 else ''} (limit {FLOAT32_TOLERANCE:g})")
     return model, result
 
 

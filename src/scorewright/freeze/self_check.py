@@ -128,6 +128,11 @@ def _plain(value):
     return value
 
 
+def base_row(model: FrozenModel) -> dict:
+    """A plain row of the model's inputs (each feature's fill, or a plain value)."""
+    return _base_row(model, None)
+
+
 def _base_row(model: FrozenModel, frame) -> dict:
     """The row derived rows vary one cell of: the first data row, else each feature's
     fill (or a plain value)."""
