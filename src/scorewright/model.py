@@ -22,10 +22,16 @@ from .errors import ModelFileError
 from .files import write_atomic
 
 FORMAT = "scorewright-frozen-model"
-FORMAT_VERSION = 1
+# Version 2 adds the probit and cloglog links. A model is written in the lowest version
+# that can say it, so every model version 1 could hold is written as before (its file
+# and sha256 unchanged); this scorewright reads both.
+FORMAT_VERSION = 2
+READS_VERSIONS = (1, 2)
 
 SCALING_OPS = ("subtract", "divide", "multiply", "add")
-TASK_LINKS = {"binary": ("logit",), "multiclass": ("softmax",), "regression": ("identity", "log")}
+TASK_LINKS = {"binary": ("logit", "probit", "cloglog"), "multiclass": ("softmax",),
+              "regression": ("identity", "log")}
+LINK_VERSION = {"probit": 2, "cloglog": 2}  # links a version 1 file cannot hold
 
 Level = Union[str, int]
 
@@ -132,6 +138,11 @@ class FrozenModel:
 
 # ---------------------------------------------------------------- writing
 
+def format_version(model: FrozenModel) -> int:
+    """The lowest format version that can hold the model."""
+    return LINK_VERSION.get(model.head.link, 1)
+
+
 def _document_body(model: FrozenModel) -> dict:
     feats = []
     for feat in model.features:
@@ -165,7 +176,7 @@ def _document_body(model: FrozenModel) -> dict:
     head = model.head
     return {
         "format": FORMAT,
-        "format_version": FORMAT_VERSION,
+        "format_version": format_version(model),
         "name": model.name,
         "features": feats,
         "design": design,
@@ -314,9 +325,9 @@ def model_from_document(doc) -> FrozenModel:
     if fmt != FORMAT:
         raise ModelFileError(f"format: expected {FORMAT!r}, got {fmt!r}")
     version = doc.get("format_version")
-    if version != FORMAT_VERSION or isinstance(version, bool):
-        raise ModelFileError(f"format_version: this scorewright reads version {FORMAT_VERSION}, "
-                             f"the file says {version!r}")
+    if version not in READS_VERSIONS or isinstance(version, bool):
+        raise ModelFileError(f"format_version: this scorewright reads versions "
+                             f"{' and '.join(map(str, READS_VERSIONS))}, the file says {version!r}")
     r.obj(doc, "model", ("format", "format_version", "name", "features", "design", "head",
                          "provenance", "sha256"))
     name = r.string(doc["name"], "name")
@@ -334,6 +345,9 @@ def model_from_document(doc) -> FrozenModel:
                    for i, c in enumerate(r.array(doc["design"], "design")))
     _check_design(design, features)
     head = _read_head(doc["head"], len(design))
+    if LINK_VERSION.get(head.link, 1) > version:
+        raise ModelFileError(f"head.link: the {head.link} link needs format_version "
+                             f"{LINK_VERSION[head.link]}, the file says {version}")
     prov = r.obj(doc["provenance"], "provenance", ("scorewright_version", "source"),
                  optional=("libraries", "inputs", "created", "metrics", "notes"))
     r.string(prov["scorewright_version"], "provenance.scorewright_version")

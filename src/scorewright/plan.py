@@ -19,8 +19,9 @@ Evaluation, in order:
    where a numeric term is `weight_k * v` and a categorical term is the looked-up
    contribution `table_k[code]` (0.0 for no level). Terms whose weights are all
    zero are left out.
-3. Link: binary, the stable sigmoid; multiclass, the max-shifted softmax;
-   regression, identity or the guarded exp. Every `exp` argument is clamped to
+3. Link: binary, the stable sigmoid (logit), the normal CDF (probit, through the
+   upper tail in `normal_tail`) or 1 - exp(-exp(m)) (cloglog); multiclass, the
+   max-shifted softmax; regression, identity or the guarded exp. Every `exp` argument is clamped to
    [-exp_guard, +exp_guard] so no runtime overflows, underflows to a subnormal or
    raises (PostgreSQL raises on both).
 4. Decision: binary, the positive class iff margin > cut; multiclass, the class
@@ -52,12 +53,20 @@ class Precision:
     exp_guard: float  # exp() arguments are clamped to [-exp_guard, exp_guard]
     log_link_max: float  # the log link clamps its exp argument to at most this
     max_value: float  # cap for any intermediate
+    normal_max: float   # probit: |margin| is clamped to this (the tail stays a normal number)
+    normal_split: float  # probit: (a + split) - split rounds a to a few bits (see program)
+    cloglog_max: float  # cloglog: the margin is clamped to at most this (exp(-exp(m)) normal)
 
 
 # exp(-708) = 3.3e-308 is still a normal double; exp(709) = 8.2e307 is finite.
-DOUBLE = Precision("double", budget=1e300, exp_guard=708.0, log_link_max=709.0, max_value=1e300)
+# Phi(-37.5) = 4.6e-308 is still normal, and its exp arguments stay >= -703.2;
+# 1.5 * 2^36 has an ULP of 2^-16; exp(-exp(6.5)) = exp(-665.1) is normal.
+DOUBLE = Precision("double", budget=1e300, exp_guard=708.0, log_link_max=709.0, max_value=1e300,
+                   normal_max=37.5, normal_split=1.5 * 2.0 ** 36, cloglog_max=6.5)
 # expf(-87) = 1.6e-38 is still a normal float; expf(88) = 1.65e38 is finite.
-FLOAT = Precision("float", budget=1e36, exp_guard=87.0, log_link_max=88.0, max_value=1e36)
+# Phi(-12.5) = 3.7e-36; 1.5 * 2^15 has a float ULP of 2^-8; exp(-exp(4.4)) = exp(-81.5).
+FLOAT = Precision("float", budget=1e36, exp_guard=87.0, log_link_max=88.0, max_value=1e36,
+                  normal_max=12.5, normal_split=1.5 * 2.0 ** 15, cloglog_max=4.4)
 PRECISIONS = {"double": DOUBLE, "float": FLOAT}
 
 # A bound below this would clamp ordinary data; such a model is refused.
@@ -106,7 +115,7 @@ class Plan:
     stem: str            # file-name-safe form of the model name
     sha256: str
     task: str            # binary | multiclass | regression
-    link: str            # logit | softmax | identity | log
+    link: str            # logit | probit | cloglog | softmax | identity | log
     classes: tuple | None
     precision: Precision
     inputs: tuple

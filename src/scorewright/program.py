@@ -24,8 +24,9 @@ Primitives (`PRIMITIVES` lists each with its operand and result types):
   output(x)               names an output column (the op's `attr`)
 
 The composites — the input guard and scaling, the missing and unseen policies,
-the stable sigmoid, the max-shifted softmax, the guarded log link and the
-decision rule — are the `_lower_*` functions. The reference evaluator's bits
+the stable sigmoid, the normal CDF (probit), the complementary log-log, the
+max-shifted softmax, the guarded log link and the decision rule — are the
+`_lower_*` functions. The reference evaluator's bits
 are the truth: `run_row` and `run_matrix` interpret this list with a scalar and
 a numpy op table, and the tests hold both to `reference.score_row` and
 `reference.score_matrix` bit for bit.
@@ -39,7 +40,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from . import portable_exp
+from . import normal_tail, portable_exp
 from .plan import CategoricalInput, NumericInput, Plan
 from .values import MISSING_CODE, UNSEEN_CODE, category_code, numeric_value
 
@@ -200,13 +201,7 @@ def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
     guard = plan.precision.exp_guard
     if plan.task == "binary":
         m = margins[0]
-        a = b.emit("abs", m)
-        a = b.emit("min", a, Const(guard))
-        t = b.emit("exp", b.emit("neg", a))
-        d = b.emit("add", Const(1.0), t)
-        p1 = b.emit("select", b.emit("ge", m, Const(0.0)),
-                    b.emit("div", Const(1.0), d), b.emit("div", t, d), hint="p")
-        p0 = b.emit("sub", Const(1.0), p1, hint="p")
+        p0, p1 = _BINARY_LINKS[plan.link](b, plan, m)
         cls = b.emit("select", b.emit("gt", m, Const(plan.cut)), Const(1), Const(0), hint="k")
         return [m, p0, p1, cls]
     if plan.task == "multiclass":
@@ -226,6 +221,85 @@ def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
         g = b.emit("min", g, Const(plan.precision.log_link_max))
         return [m, b.emit("exp", g, hint="y")]
     return [m, m]
+
+
+def _lower_logit(b: _Builder, plan: Plan, m) -> tuple[str, str]:
+    """The stable sigmoid: exp of -|m| only, so nothing overflows."""
+    a = b.emit("abs", m)
+    a = b.emit("min", a, Const(plan.precision.exp_guard))
+    t = b.emit("exp", b.emit("neg", a))
+    d = b.emit("add", Const(1.0), t)
+    p1 = b.emit("select", b.emit("ge", m, Const(0.0)),
+                b.emit("div", Const(1.0), d), b.emit("div", t, d), hint="p")
+    return b.emit("sub", Const(1.0), p1, hint="p"), p1
+
+
+def _lower_probit(b: _Builder, plan: Plan, m) -> tuple[str, str]:
+    """Phi(m) through the upper tail q = Phi(-|m|) (`normal_tail`, which states the
+    method): p1 is q for a negative margin, else 1 - q. As for every binary link, p0
+    is 1 - p1 (a binary target outputs p1 alone)."""
+    prec = plan.precision
+    coef = normal_tail.coefficients()
+    a = b.emit("min", b.emit("abs", m), Const(prec.normal_max))
+    z = b.emit("mul", a, Const(float.fromhex(normal_tail.INV_SQRT2)))
+    d = b.emit("add", Const(2.0), z)
+    y = b.emit("div", b.emit("sub", Const(2.0), z), d)
+    t = b.emit("div", Const(2.0), d)
+    # Clenshaw: b_k = (2y b_{k+1} - b_{k+2}) + c_k, down to f = (y b_1 - b_2) + c_0
+    y2 = b.emit("add", y, y)
+    b1, b2 = Const(coef[-1]), None
+    for k in range(len(coef) - 2, 0, -1):
+        r = b.emit("mul", y2, b1)
+        if b2 is not None:
+            r = b.emit("sub", r, b2)
+        b1, b2 = b.emit("add", r, Const(coef[k])), b1
+    f = b.emit("add", b.emit("sub", b.emit("mul", y, b1), b2), Const(coef[0]))
+    # exp(-a^2/2 + f) = exp(-ah^2/2) * exp(f - (a - ah)(a + ah)/2), ah^2 exact
+    ah = b.emit("sub", b.emit("add", a, Const(prec.normal_split)), Const(prec.normal_split))
+    e1 = b.emit("exp", b.emit("neg", b.emit("mul", b.emit("mul", ah, ah), Const(0.5))))
+    low = b.emit("mul", b.emit("mul", b.emit("sub", a, ah), b.emit("add", a, ah)), Const(0.5))
+    e2 = b.emit("exp", b.emit("sub", f, low))
+    q = b.emit("mul", b.emit("mul", b.emit("mul", Const(0.5), t), e2), e1, hint="q")
+    p1 = b.emit("select", b.emit("ge", m, Const(0.0)), b.emit("sub", Const(1.0), q), q,
+                hint="p")
+    return b.emit("sub", Const(1.0), p1, hint="p"), p1
+
+
+# 1 - exp(-u) = u - u^2/2! + u^3/3! - ... for u below CLOGLOG_SERIES_BELOW (11 terms:
+# the first one left out is below 4e-19 of the sum), where 1 - exp(-u) would cancel.
+CLOGLOG_SERIES_BELOW = 0.125
+CLOGLOG_SERIES = tuple((-1) ** (k + 1) / math.factorial(k) for k in range(1, 12))
+
+
+def _lower_cloglog(b: _Builder, plan: Plan, m) -> tuple[str, str]:
+    """p1 = 1 - exp(-exp(m)), m clamped to [-exp_guard, cloglog_max] so both exps stay
+    normal; by its series where u = exp(m) is small; p0 = 1 - p1."""
+    prec = plan.precision
+    g = b.emit("max", m, Const(-prec.exp_guard))
+    g = b.emit("min", g, Const(prec.cloglog_max))
+    u = b.emit("exp", g, hint="u")
+    e = b.emit("exp", b.emit("neg", u))
+    s = Const(CLOGLOG_SERIES[-1])
+    for c in reversed(CLOGLOG_SERIES[:-1]):
+        s = b.emit("add", b.emit("mul", s, u), Const(c))
+    series = b.emit("mul", s, u)
+    small = b.emit("gt", Const(CLOGLOG_SERIES_BELOW), u)
+    p1 = b.emit("select", small, series, b.emit("sub", Const(1.0), e), hint="p")
+    return b.emit("sub", Const(1.0), p1, hint="p"), p1
+
+
+_BINARY_LINKS = {"logit": _lower_logit, "probit": _lower_probit, "cloglog": _lower_cloglog}
+
+
+def link_probability(link: str, margin: float, precision=None, exp_kind: str = "libm") -> float:
+    """The positive-class probability a binary link's lowering gives for one margin, run
+    by the scalar op table (what every target computes)."""
+    from .plan import DOUBLE
+
+    plan = Plan(name="link", stem="link", sha256="", task="binary", link=link,
+                classes=(0, 1), precision=precision or DOUBLE, inputs=(), terms=(),
+                intercepts=(margin,), cut=0.0, exp_kind=exp_kind)
+    return run_row(lower(plan), {})["probability_1"]
 
 
 # ---------------------------------------------------------------- interpreters

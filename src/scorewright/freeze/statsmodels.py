@@ -1,5 +1,5 @@
-"""Freezing fitted statsmodels results (Logit, Poisson, NegativeBinomial, GLM, OLS, WLS, GLS)
-into a frozen model.
+"""Freezing fitted statsmodels results (Logit, Probit, Poisson, NegativeBinomial, GLM, OLS,
+WLS, GLS) into a frozen model.
 
 A model fitted on arrays takes its features from `exog_names`, with the column
 `add_constant` made (statsmodels' `const_idx`) as the intercept. A model fitted
@@ -35,16 +35,20 @@ from ..model import (CategoricalFeature, DesignColumn, FrozenModel, Head, Numeri
                      ScalingStep)
 
 # model class -> (task, link) for the models whose link does not come from a family
-DISCRETE = {"Logit": ("binary", "logit"), "Poisson": ("regression", "log"),
+DISCRETE = {"Logit": ("binary", "logit"), "Probit": ("binary", "probit"),
+            "Poisson": ("regression", "log"),
             "NegativeBinomial": ("regression", "log"), "GeneralizedPoisson": ("regression", "log"),
             "OLS": ("regression", "identity"), "WLS": ("regression", "identity"),
             "GLS": ("regression", "identity")}
 # GLM family -> the links frozen for it, as (task, link)
 GLM_LINKS = {("Binomial", "Logit"): ("binary", "logit"),
+             ("Binomial", "Probit"): ("binary", "probit"),
+             ("Binomial", "CLogLog"): ("binary", "cloglog"),
              ("Gaussian", "Identity"): ("regression", "identity")}
 LOG_FAMILIES = ("Poisson", "Gamma", "Tweedie", "NegativeBinomial", "Gaussian", "InverseGaussian")
-LINK_ISSUE = ("probit, cloglog and the other links need the normal CDF or a log of a "
-              "log, which the scoring program does not have yet")
+# statsmodels' deprecated lower-case link classes are subclasses of these
+LINK_NAMES = {"probit": "Probit", "cloglog": "CLogLog", "logit": "Logit", "log": "Log",
+              "identity": "Identity"}
 
 
 class Unsupported(ScorewrightError):
@@ -79,7 +83,7 @@ def freeze_results(results, feature_names=None, name=None) -> FrozenModel:
     else:
         features, design, coefs, intercept, inputs = _from_arrays(model, names, params,
                                                                   feature_names)
-    classes, cut = ((0, 1), 0.0) if task == "binary" else (None, None)
+    classes, cut = ((0, 1), half_cut(link)) if task == "binary" else (None, None)
     head = Head(task, link, classes, (intercept,), (tuple(coefs),), cut)
     source = f"statsmodels {kind}"
     family = getattr(model, "family", None)
@@ -114,17 +118,43 @@ def _task_and_link(model, kind: str) -> tuple[str, str]:
     if family is None:
         if kind in DISCRETE:
             return DISCRETE[kind]
-        raise Unsupported(f"statsmodels {kind} is not supported; freeze takes Logit, Poisson, "
-                          "NegativeBinomial, GeneralizedPoisson, GLM, OLS, WLS and GLS results"
-                          + (f" ({LINK_ISSUE})" if kind == "Probit" else ""))
+        raise Unsupported(f"statsmodels {kind} is not supported; freeze takes Logit, Probit, "
+                          "Poisson, NegativeBinomial, GeneralizedPoisson, GLM, OLS, WLS and GLS "
+                          "results")
     fam, lnk = type(family).__name__, type(family.link).__name__
+    lnk = LINK_NAMES.get(lnk, lnk)
+    if lnk == "Probit" and getattr(family.link, "dbn", None) is not _normal():
+        lnk = "CDFLink"
     if (fam, lnk) in GLM_LINKS:
         return GLM_LINKS[(fam, lnk)]
     if fam in LOG_FAMILIES and lnk == "Log":
         return "regression", "log"
     raise Unsupported(f"GLM {fam} family with the {lnk} link is not supported; frozen links: "
-                      "Binomial/logit, Gaussian/identity, log for Poisson, Gamma, Tweedie, "
-                      f"NegativeBinomial, Gaussian and InverseGaussian ({LINK_ISSUE})")
+                      "Binomial with logit, probit or cloglog, Gaussian/identity, log for "
+                      "Poisson, Gamma, Tweedie, NegativeBinomial, Gaussian and InverseGaussian")
+
+
+def half_cut(link: str) -> float:
+    """The decision cut of "probability > 0.5". The symmetric links cut at 0.0, the sign
+    of the margin (p1 is exactly 0.5 there; margins within about 1e-16 above it round to
+    0.5 too). For cloglog: the largest margin whose positive-class probability, as the
+    scoring program computes it, is at most 0.5, found near ln(ln 2) a double at a time."""
+    if link in ("logit", "probit"):
+        return 0.0
+    from ..program import link_probability
+
+    cut = math.log(math.log(2.0))
+    while link_probability(link, cut) > 0.5:
+        cut = math.nextafter(cut, -math.inf)
+    while link_probability(link, math.nextafter(cut, math.inf)) <= 0.5:
+        cut = math.nextafter(cut, math.inf)
+    return cut
+
+
+def _normal():
+    from scipy import stats
+
+    return stats.norm
 
 
 def _refuse_offsets(model, kind: str) -> None:
