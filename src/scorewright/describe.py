@@ -5,12 +5,13 @@ from __future__ import annotations
 import json
 import math
 
-from .model import FrozenModel, NumericFeature
+from .model import FrozenModel, NumericFeature, outside_text
 from .plan import build_plan
 
 
 def unit_slope(feat: NumericFeature) -> float:
-    """d(design value)/d(raw value) of a numeric feature's scaling steps."""
+    """d(design value)/d(raw value) of a numeric feature's scaling steps (after its
+    transform, if it has one: per unit of log(x), say)."""
     slope = 1.0
     for step in feat.scaling:
         if step.op == "multiply":
@@ -44,7 +45,11 @@ def describe_model(model: FrozenModel) -> str:
         if isinstance(feat, NumericFeature):
             missing = ("missing -> design value 0.0" if feat.fill is None
                        else f"missing -> {feat.fill!r}")
-            steps = " ".join(f"{s.op} {s.value!r}" for s in feat.scaling) or "none"
+            steps = " ".join(s.op if s.value is None else f"{s.op} {s.value!r}"
+                             for s in feat.scaling) or "none"
+            if feat.scaling and feat.scaling[0].value is None:
+                op = feat.scaling[0].op
+                missing += f" (so is a value {outside_text(op)}, outside {op}'s domain)"
             clip = "" if feat.clip is None else f", clip to [{feat.clip[0]!r}, {feat.clip[1]!r}]"
             kind = ("numeric, fitted on booleans (true/false read as 1/0)" if feat.boolean
                     else "numeric")

@@ -29,6 +29,12 @@ FORMAT_VERSION = 2
 READS_VERSIONS = (1, 2)
 
 SCALING_OPS = ("subtract", "divide", "multiply", "add")
+# Transforms: a numeric feature's first step (after the missing-value fill), no value. A raw
+# value outside the transform's domain (log: <= 0; log1p: <= -1; sqrt: < 0) is treated as
+# missing. Format version 2.
+TRANSFORM_OPS = ("log", "log1p", "sqrt")
+# transform -> (edge, whether the edge itself is outside): log x <= 0, log1p x <= -1, sqrt x < 0
+TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, False)}
 TASK_LINKS = {"binary": ("logit", "probit", "cloglog"), "multiclass": ("softmax",),
               "regression": ("identity", "log")}
 LINK_VERSION = {"probit": 2, "cloglog": 2}  # links a version 1 file cannot hold
@@ -39,7 +45,7 @@ Level = Union[str, int]
 @dataclass(frozen=True)
 class ScalingStep:
     op: str
-    value: float
+    value: float | None = None  # None for a transform (TRANSFORM_OPS)
 
 
 @dataclass(frozen=True)
@@ -140,7 +146,18 @@ class FrozenModel:
 
 def format_version(model: FrozenModel) -> int:
     """The lowest format version that can hold the model."""
-    return LINK_VERSION.get(model.head.link, 1)
+    return needs_version(model)[0]
+
+
+def needs_version(model: FrozenModel) -> tuple[int, str]:
+    """The lowest format version that can hold the model, and what needs it."""
+    if model.head.link in LINK_VERSION:
+        return LINK_VERSION[model.head.link], f"the {model.head.link} link"
+    for feat in model.features:
+        for step in getattr(feat, "scaling", ()):
+            if step.op in TRANSFORM_OPS:
+                return 2, f"the {step.op} transform of feature {feat.name!r}"
+    return 1, ""
 
 
 def _document_body(model: FrozenModel) -> dict:
@@ -152,7 +169,8 @@ def _document_body(model: FrozenModel) -> dict:
                 "kind": "numeric",
                 "missing": ({"policy": "zero"} if feat.fill is None
                             else {"policy": "impute", "value": feat.fill}),
-                "scaling": [{"op": s.op, "value": s.value} for s in feat.scaling],
+                "scaling": [{"op": s.op} if s.op in TRANSFORM_OPS else
+                            {"op": s.op, "value": s.value} for s in feat.scaling],
                 "clip": None if feat.clip is None else list(feat.clip),
             })
             if feat.boolean:
@@ -345,9 +363,10 @@ def model_from_document(doc) -> FrozenModel:
                    for i, c in enumerate(r.array(doc["design"], "design")))
     _check_design(design, features)
     head = _read_head(doc["head"], len(design))
-    if LINK_VERSION.get(head.link, 1) > version:
-        raise ModelFileError(f"head.link: the {head.link} link needs format_version "
-                             f"{LINK_VERSION[head.link]}, the file says {version}")
+    needed, what = needs_version(FrozenModel(name, features, design, head, {}))
+    if needed > version:
+        raise ModelFileError(f"format_version: {what} needs format_version {needed}, the file "
+                             f"says {version}")
     prov = r.obj(doc["provenance"], "provenance", ("scorewright_version", "source"),
                  optional=("libraries", "inputs", "created", "metrics", "notes"))
     r.string(prov["scorewright_version"], "provenance.scorewright_version")
@@ -381,9 +400,20 @@ def _read_feature(value, path) -> Feature:
         steps = []
         for j, step in enumerate(r.array(value["scaling"], f"{path}.scaling")):
             spath = f"{path}.scaling[{j}]"
+            if isinstance(step, dict) and step.get("op") in TRANSFORM_OPS:
+                r.obj(step, spath, ("op",))
+                if j != 0:
+                    raise ModelFileError(f"{spath}.op: a {step['op']} transform must be the "
+                                         "first step")
+                if fill is not None and not in_domain(step["op"], fill):
+                    raise ModelFileError(f"{path}.missing.value: {fill!r} is outside the "
+                                         f"domain of {step['op']}")
+                steps.append(ScalingStep(step["op"]))
+                continue
             r.obj(step, spath, ("op", "value"))
             if step["op"] not in SCALING_OPS:
-                raise ModelFileError(f"{spath}.op: expected one of {', '.join(SCALING_OPS)}, "
+                raise ModelFileError(f"{spath}.op: expected one of "
+                                     f"{', '.join(SCALING_OPS + TRANSFORM_OPS)}, "
                                      f"got {step['op']!r}")
             number = r.number(step["value"], f"{spath}.value")
             if step["op"] == "divide" and number == 0.0:
@@ -485,6 +515,18 @@ def _check_design(design, features) -> None:
     for j, feat in enumerate(features):
         if feat.name not in numeric_seen and feat.name not in level_seen:
             raise ModelFileError(f"features[{j}]: feature {feat.name!r} has no design column")
+
+
+def in_domain(op: str, x: float) -> bool:
+    """x is a value the transform takes (TRANSFORM_DOMAIN)."""
+    edge, closed = TRANSFORM_DOMAIN[op]
+    return x > edge if closed else x >= edge
+
+
+def outside_text(op: str) -> str:
+    """The values outside a transform's domain, in words: '<= 0', '< 0'..."""
+    edge, closed = TRANSFORM_DOMAIN[op]
+    return f"{'<=' if closed else '<'} {edge:g}"
 
 
 def _read_head(value, n_design) -> Head:

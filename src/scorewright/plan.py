@@ -6,12 +6,15 @@ Evaluation, in order:
 
 1. Inputs, in feature order.
    Numeric: a value that is absent, null, NaN, +-inf or not a number is
-   *missing*. A missing value takes `fill` (raw units) when there is one;
-   without a fill the feature's design value is exactly 0.0 and steps 2-4 are
-   skipped. The value is then clamped to [-bound, bound] (the guard that keeps
-   every later intermediate finite), the scaling steps are applied one by one
-   (`v = v - c`, `v = v / c`, `v = v * c`, `v = v + c`), then the optional clip
-   (`v = min(max(v, lo), hi)`).
+   *missing*; so is a value outside the domain of a feature's first step when that
+   is a transform (log: <= 0, log1p: <= -1, sqrt: < 0). A missing value takes
+   `fill` (raw units) when there is one; without a fill the feature's design value
+   is exactly 0.0 and steps 2-4 are skipped. The value is then clamped to
+   [-bound, bound] (the guard that keeps every later intermediate finite), the
+   steps are applied one by one (`v = log(v)`, `log1p(v)`, `sqrt(v)`; `v = v - c`,
+   `v = v / c`, `v = v * c`, `v = v + c`), then the optional clip
+   (`v = min(max(v, lo), hi)`). log and log1p are the portable ones the program
+   writes out (`program._lower_log`), the same bits on every target.
    Categorical: the value's level code (its index in `levels`); a missing value
    takes `fill_code` (or, without one, is treated as unseen); an unseen value
    takes `unknown_code` (or, without one, no level: every indicator is 0).
@@ -43,7 +46,7 @@ import re
 from dataclasses import dataclass
 
 from .errors import ScorewrightError
-from .model import CategoricalFeature, FrozenModel, NumericFeature, ScalingStep
+from .model import TRANSFORM_OPS, CategoricalFeature, FrozenModel, NumericFeature, ScalingStep
 
 
 @dataclass(frozen=True)
@@ -239,6 +242,17 @@ def _numeric_bound(feat, term, budgets, prec: Precision) -> float:
             if weight != 0.0:
                 allowed = min(allowed, budget / abs(weight))
     for step in reversed(feat.scaling):
+        if step.op in TRANSFORM_OPS:
+            # |log x| and |log1p x| <= 745 for every double the clamp lets through, and
+            # sqrt(x) <= x for x >= 1: a transform bounds its own output
+            if step.op == "sqrt":
+                allowed = min(allowed * allowed, prec.max_value) if allowed < 1e150 \
+                    else prec.max_value
+            elif allowed >= 745.0:
+                allowed = prec.max_value
+            else:
+                allowed = 0.0
+            continue
         c = abs(step.value)
         if step.op in ("subtract", "add"):
             allowed -= c

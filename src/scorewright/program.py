@@ -16,6 +16,7 @@ Primitives (`PRIMITIVES` lists each with its operand and result types):
   add sub mul div         one IEEE operation each
   min max                 a selection: max(a, b) is a unless b > a (and min alike)
   neg abs                 exact
+  sqrt                    the IEEE square root (correctly rounded everywhere)
   gt ge eq                comparisons (flag)
   select(f, a, b)         a if f else b (either type)
   exp(x)                  the plan's exp (libm or portable), argument already guarded
@@ -41,6 +42,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from . import normal_tail, portable_exp
+from .model import TRANSFORM_DOMAIN
 from .plan import CategoricalInput, NumericInput, Plan
 from .values import MISSING_CODE, UNSEEN_CODE, category_code, numeric_value
 
@@ -51,7 +53,7 @@ PRIMITIVES: dict[str, tuple[tuple[str, ...] | str, str]] = {
     "read_real": ((), REAL), "read_code": ((), CODE), "is_missing": ((REAL,), FLAG),
     "add": ((REAL, REAL), REAL), "sub": ((REAL, REAL), REAL), "mul": ((REAL, REAL), REAL),
     "div": ((REAL, REAL), REAL), "min": ((REAL, REAL), REAL), "max": ((REAL, REAL), REAL),
-    "neg": ((REAL,), REAL), "abs": ((REAL,), REAL),
+    "neg": ((REAL,), REAL), "abs": ((REAL,), REAL), "sqrt": ((REAL,), REAL),
     "gt": ("same", FLAG), "ge": ("same", FLAG), "eq": ("same", FLAG),
     "select": ("select", "any"), "exp": ((REAL,), REAL), "lookup": ((CODE,), REAL),
     "sum": ("reals", REAL), "output": ("one", "any"),
@@ -113,7 +115,7 @@ def lower(plan: Plan) -> Program:
     design = {}
     for inp in plan.inputs:
         if inp.kind == "numeric":
-            design[inp.index] = _lower_numeric(b, inp)
+            design[inp.index] = _lower_numeric(b, inp, plan.precision.name == "float")
         else:
             design[inp.index] = _lower_code(b, inp)
     margins = []
@@ -161,16 +163,30 @@ def prune(program: Program, outputs) -> tuple[Op, ...]:
     return _live(program.ops, set(outputs))
 
 
-def _lower_numeric(b: _Builder, inp: NumericInput) -> str:
+def _lower_numeric(b: _Builder, inp: NumericInput, single: bool = False) -> str:
     """Missing -> fill; clamp to the plan's bound; scaling steps; clip. Without a fill a
     missing value's design value is exactly 0.0."""
     x = b.emit("read_real", attr=inp.index, hint="x")
     missing = b.emit("is_missing", x, hint="f")
-    v = b.emit("select", missing, Const(0.0 if inp.fill is None else inp.fill), x, hint="v")
+    first = inp.steps[0].op if inp.steps else None
+    placeholder = 0.0
+    if first in _DOMAIN:
+        # outside the transform's domain counts as missing; with no fill, a value inside
+        # the domain stands in for it, so no intermediate is infinite or NaN (and no
+        # comparison meets a missing value: 1.0 stands in for it there too)
+        known = b.emit("select", missing, Const(1.0), x, hint="v")
+        outside = b.emit(_DOMAIN[first][0], Const(_DOMAIN[first][1]), known, hint="f")
+        missing = b.emit("select", missing, missing, outside, hint="f")
+        placeholder = 1.0
+    v = b.emit("select", missing, Const(placeholder if inp.fill is None else inp.fill), x,
+               hint="v")
     v = b.emit("max", v, Const(-inp.bound), hint="v")
     v = b.emit("min", v, Const(inp.bound), hint="v")
     for step in inp.steps:
-        v = b.emit(_STEP_OP[step.op], v, Const(step.value), hint="v")
+        if step.op in _TRANSFORM:
+            v = _TRANSFORM[step.op](b, v, single)
+        else:
+            v = b.emit(_STEP_OP[step.op], v, Const(step.value), hint="v")
     if inp.clip is not None:
         v = b.emit("max", v, Const(inp.clip[0]), hint="v")
         v = b.emit("min", v, Const(inp.clip[1]), hint="v")
@@ -180,6 +196,93 @@ def _lower_numeric(b: _Builder, inp: NumericInput) -> str:
 
 
 _STEP_OP = {"subtract": "sub", "divide": "div", "multiply": "mul", "add": "add"}
+# transform -> (comparison, edge): comparison(edge, x) says x is outside its domain
+_DOMAIN = {op: ("ge" if closed else "gt", edge) for op, (edge, closed) in TRANSFORM_DOMAIN.items()}
+
+
+def _lower_log(b: _Builder, x, single: bool = False):
+    """The natural log of x > 0 (finite), the same bits on every target: x is scaled
+    by powers of two into [sqrt(2)/2, sqrt(2)] (exactly, the count kept in k), then
+    with f = x - 1 and s = f / (2 + f), log(1 + f) = f - (hfsq - s (hfsq + R(s^2))),
+    hfsq = f^2 / 2, R fitted with mpmath (`LOG_R`); the result k ln2 + log(1 + f) with
+    ln2 in two parts, k * LN2_HI exact (a classic method). Measured against mpmath
+    (tests/test_transforms.py): at most 0.75 ULP."""
+    top = 64 if single else 512  # float: exponents within 2^127
+    tiny, lift = (2.0 ** -126, 23) if single else (2.0 ** -1022, 52)
+    k = Const(0.0)
+    sub = b.emit("gt", Const(tiny), x)  # subnormal: lift it into the normal range first
+    x = b.emit("select", sub, b.emit("mul", x, Const(2.0 ** lift)), x)
+    k = b.emit("select", sub, Const(float(-lift)), k)
+    j = top
+    while j >= 1:
+        up = b.emit("ge", x, Const(2.0 ** j))
+        x = b.emit("select", up, b.emit("mul", x, Const(2.0 ** -j)), x)
+        k = b.emit("select", up, b.emit("add", k, Const(float(j))), k)
+        j //= 2
+    j = top
+    while j >= 1:
+        down = b.emit("gt", Const(2.0 ** (1 - j)), x)
+        x = b.emit("select", down, b.emit("mul", x, Const(2.0 ** j)), x)
+        k = b.emit("select", down, b.emit("sub", k, Const(float(j))), k)
+        j //= 2
+    over = b.emit("gt", x, Const(math.sqrt(2.0)))
+    x = b.emit("select", over, b.emit("mul", x, Const(0.5)), x)
+    k = b.emit("select", over, b.emit("add", k, Const(1.0)), k)
+    f = b.emit("sub", x, Const(1.0))
+    s = b.emit("div", f, b.emit("add", Const(2.0), f))
+    z = b.emit("mul", s, s)
+    p = Const(LOG_R[-1])
+    for c in reversed(LOG_R[:-1]):
+        p = b.emit("add", b.emit("mul", p, z), Const(c))
+    r = b.emit("mul", z, p)
+    hfsq = b.emit("mul", b.emit("mul", Const(0.5), f), f)
+    lo = b.emit("add", b.emit("mul", s, b.emit("add", hfsq, r)),
+                b.emit("mul", k, Const(float.fromhex(portable_exp.CONSTANTS["LN2_LO"]))))
+    return b.emit("sub", b.emit("mul", k, Const(float.fromhex(portable_exp.CONSTANTS["LN2_HI"]))),
+                  b.emit("sub", b.emit("sub", hfsq, lo), f), hint="v")
+
+
+# R(z) / z = c0 + c1 z + ... on z in [0, (3 - 2 sqrt 2)^2], where R(s^2) = 2 atanh(s)/s - 2
+# (Chebyshev fit of 7 terms with mpmath; `fit_log_coefficients` re-derives them)
+LOG_R = tuple(float.fromhex(c) for c in (
+    "0x1.5555555555558p-1", "0x1.99999999952d7p-2", "0x1.2492492df281ap-2",
+    "0x1.c71c62e3f11e6p-3", "0x1.7462b51cb66b1p-3", "0x1.39fe51a7c18f9p-3",
+    "0x1.2b5900de53b32p-3"))
+
+
+def fit_log_coefficients(prec_bits: int = 200) -> list[str]:
+    import mpmath as mp
+
+    with mp.workprec(prec_bits):
+        top = ((mp.sqrt(2) - 1) / (mp.sqrt(2) + 1)) ** 2
+
+        def g(z):
+            if z == 0:
+                return mp.mpf(2) / 3
+            s = mp.sqrt(z)
+            return (2 * mp.atanh(s) / s - 2) / z
+
+        poly = mp.chebyfit(g, [0, top * mp.mpf("1.0001")], 7)
+        return [float.hex(float(c)) for c in reversed(poly)]
+
+
+def _lower_log1p(b: _Builder, x, single: bool = False):
+    """log(1 + x) for x > -1: u = 1 + x; x itself where u rounds to 1, else
+    log(u) * (x / (u - 1)), which cancels the rounding of u (at most 2.3 ULP, measured)."""
+    u = b.emit("add", Const(1.0), x)
+    one = b.emit("eq", u, Const(1.0))
+    # u - 1 is never 0 where it divides: no runtime meets a division by zero
+    d = b.emit("select", one, Const(1.0), b.emit("sub", u, Const(1.0)))
+    scaled = b.emit("mul", _lower_log(b, u, single), b.emit("div", x, d))
+    return b.emit("select", one, x, scaled, hint="v")
+
+
+def _lower_sqrt(b: _Builder, x, single: bool = False):
+    """IEEE square root: correctly rounded on every runtime, so a primitive."""
+    return b.emit("sqrt", x, hint="v")
+
+
+_TRANSFORM = {"log": _lower_log, "log1p": _lower_log1p, "sqrt": _lower_sqrt}
 
 
 def _lower_code(b: _Builder, inp: CategoricalInput) -> str:
@@ -327,7 +430,7 @@ SCALAR = {
     "is_missing": lambda x: not math.isfinite(x),
     "add": lambda a, b: a + b, "sub": lambda a, b: a - b,
     "mul": lambda a, b: a * b, "div": lambda a, b: a / b,
-    "min": _py_min, "max": _py_max, "neg": lambda a: -a, "abs": abs,
+    "min": _py_min, "max": _py_max, "neg": lambda a: -a, "abs": abs, "sqrt": math.sqrt,
     "gt": lambda a, b: a > b, "ge": lambda a, b: a >= b, "eq": lambda a, b: a == b,
     "select": lambda f, a, b: a if f else b, "sum": _sum_left,
 }
@@ -393,7 +496,7 @@ def _np_lookup(codes: np.ndarray, table) -> np.ndarray:
 
 VECTOR = {
     "is_missing": lambda x: ~np.isfinite(x), "add": np.add, "sub": np.subtract, "mul": np.multiply,
-    "div": np.divide, "neg": np.negative, "abs": np.abs,
+    "div": np.divide, "neg": np.negative, "abs": np.abs, "sqrt": np.sqrt,
     # max(a, b) is a unless b > a, as the scalar selection (and NaN-free here).
     "max": lambda a, b: np.where(np.greater(b, a), b, a),
     "min": lambda a, b: np.where(np.less(b, a), b, a),

@@ -27,8 +27,10 @@ EMITTERS = {
 }
 
 
-# Links a target's emitter does not render from the scoring program yet, so cannot express.
-NOT_YET = {"sql": ("probit", "cloglog"), "onnx": ("probit", "cloglog")}
+# Links and transforms a target's emitter does not render from the scoring program yet,
+# so cannot express.
+NOT_YET_LINKS = {"sql": ("probit", "cloglog"), "onnx": ("probit", "cloglog")}
+NOT_YET_TRANSFORMS = {"sql": ("log", "log1p", "sqrt"), "onnx": ("log", "log1p", "sqrt")}
 
 
 def emitter(target: str):
@@ -37,13 +39,18 @@ def emitter(target: str):
     if target not in EMITTERS:
         raise ScorewrightError(f"unknown target {target!r}; known: {', '.join(sorted(EMITTERS))}")
     emit = import_module(EMITTERS[target]).emit
-    if target not in NOT_YET:
+    if target not in NOT_YET_LINKS:
         return emit
 
     def checked(model, options):
-        if model.head.link in NOT_YET[target]:
+        if model.head.link in NOT_YET_LINKS[target]:
             raise ScorewrightError(f"target {target} cannot express the {model.head.link} "
                                    "link yet")
+        for feat in model.features:
+            for step in getattr(feat, "scaling", ()):
+                if step.op in NOT_YET_TRANSFORMS[target]:
+                    raise ScorewrightError(f"target {target} cannot express the {step.op} "
+                                           f"transform of feature {feat.name!r} yet")
         return emit(model, options)
     return checked
 

@@ -37,7 +37,7 @@ PYTHON = Spelling(
         # the program's max(a, b): a unless b > a (what builtins max does, without a call)
         "max": "({1} if {1} > {0} else {0})",
         "min": "({1} if {1} < {0} else {0})",
-        "neg": "-{0}", "abs": "abs({0})",
+        "neg": "-{0}", "abs": "abs({0})", "sqrt": "math.sqrt({0})",
         "gt": "{0} > {1}", "ge": "{0} >= {1}", "eq": "{0} == {1}",
         "select": "({1} if {0} else {2})",
         "exp": "math.exp({0})",

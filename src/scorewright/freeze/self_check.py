@@ -28,7 +28,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import CategoricalFeature, FrozenModel, NumericFeature
+from ..model import (TRANSFORM_DOMAIN, TRANSFORM_OPS, CategoricalFeature, FrozenModel,
+                     NumericFeature)
 
 TOLERANCE = 1e-12
 UNSEEN_TEXT = "\u2063unseen level"   # an invisible separator: no real level starts so
@@ -141,7 +142,8 @@ def _base_row(model: FrozenModel, frame) -> dict:
     row = {}
     for feat in model.features:
         if isinstance(feat, NumericFeature):
-            row[feat.name] = feat.fill if feat.fill is not None else 0.0
+            plain = 1.0 if feat.scaling and feat.scaling[0].op in TRANSFORM_OPS else 0.0
+            row[feat.name] = feat.fill if feat.fill is not None else plain
             if feat.boolean:
                 row[feat.name] = False
         else:
@@ -153,8 +155,13 @@ def _extremes(feat: NumericFeature) -> list[float]:
     """Far readings on the feature's own scale (its scaling steps' size), both signs:
     a hundred spreads out, beyond any clip, yet inside the range where neither side
     saturates (the frozen model's guards then change nothing)."""
-    size = max([abs(s.value) for s in feat.scaling] + [1.0])
-    return [EXTREME * size, -EXTREME * size]
+    size = max([abs(s.value) for s in feat.scaling if s.value is not None] + [1.0])
+    out = [EXTREME * size, -EXTREME * size]
+    if feat.scaling and feat.scaling[0].op in TRANSFORM_OPS:
+        # a transform's domain edge and values just inside it
+        edge = TRANSFORM_DOMAIN[feat.scaling[0].op][0]
+        out += [edge, math.nextafter(edge, math.inf), edge + 1e-300, 5e-324]
+    return out
 
 
 def _derived_frames(model: FrozenModel, names, base) -> list:

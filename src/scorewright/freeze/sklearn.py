@@ -18,8 +18,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import (CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
-                     ScalingStep)
+from ..model import (TRANSFORM_OPS, CategoricalFeature, DesignColumn, FrozenModel, Head,
+                     NumericFeature, ScalingStep, in_domain, outside_text)
 from .provenance import provenance
 
 
@@ -53,12 +53,16 @@ def freeze_estimator(estimator, feature_names=None, name=None) -> FrozenModel:
         raise ScorewrightError(f"the estimator has {n_cols} coefficients per output but the "
                                f"pipeline produces {len(chains)} columns")
     features, design = _features_and_design(chains, raw_names)
+    notes = [f"scikit-learn cannot score {f.name}'s values {outside_text(f.scaling[0].op)} "
+             f"(np.{f.scaling[0].op} has no finite value there); the frozen model treats "
+             "them as missing" for f in features
+             if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
     model = FrozenModel(
         name=name or _default_name(estimator),
         features=features,
         design=design,
         head=head,
-        provenance=provenance(estimator, raw_names),
+        provenance=provenance(estimator, raw_names, {"notes": notes} if notes else None),
     )
     return model.sealed()
 
@@ -157,6 +161,8 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
         return _one_hot(step, chains, path)
     if kind is FunctionTransformer and step.func is None and step.inverse_func is None:
         return chains  # how a fitted ColumnTransformer spells remainder="passthrough"
+    if kind is FunctionTransformer:
+        return _function(step, chains, path)
     raise Unsupported(f"unsupported component {kind.__name__} at {path}")
 
 
@@ -197,6 +203,33 @@ def _imputer(imp, chains, path):
             raise Unsupported(f"SimpleImputer at {path} has no fill value for an all-missing "
                               "column")
         chain.fill = _plain(value)
+    return chains
+
+
+def _transform_of(func) -> str | None:
+    """The frozen transform a FunctionTransformer's func is: numpy's own ufuncs only."""
+    for name in TRANSFORM_OPS:
+        if func is getattr(np, name):
+            return name
+    return None
+
+
+def _function(step, chains, path):
+    op = _transform_of(step.func)
+    if op is None or step.kw_args:
+        what = getattr(step.func, "__name__", repr(step.func))
+        raise Unsupported(f"FunctionTransformer({what}) at {path}: only np.log, np.log1p and "
+                          "np.sqrt (without kw_args) are frozen")
+    for chain in chains:
+        _require_raw(chain, path, f"FunctionTransformer({op})")
+        if chain.steps or chain.clip is not None:
+            raise Unsupported(f"FunctionTransformer(np.{op}) at {path} comes after scaling; "
+                              "put it first (after any SimpleImputer)")
+        if chain.fill is not None and (isinstance(chain.fill, str)
+                                       or not in_domain(op, float(chain.fill))):
+            raise Unsupported(f"FunctionTransformer(np.{op}) at {path}: the imputed value "
+                              f"{chain.fill!r} is outside its domain")
+        chain.steps.append(ScalingStep(op))
     return chains
 
 

@@ -14,6 +14,9 @@ is read from its factors and their codings, never from the column names.
   contrast, or a text column) is that feature's levels; whatever its contrast matrix,
   each level's contribution to the margin is the sum over the term's columns of the
   level's contrast entry times the coefficient, so any coding freezes the same way.
+- `np.log(x)`, `np.log1p(x)` and `np.sqrt(x)` of a data column are that feature with
+  the transform (a value outside its domain, where statsmodels predicts NaN, is
+  treated as missing).
 - Interactions, splines and other transforms are refused in one line naming the term.
 
 statsmodels cannot score a row with a missing value (the prediction is NaN) or an
@@ -31,8 +34,8 @@ import math
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import (CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
-                     ScalingStep)
+from ..model import (TRANSFORM_OPS, CategoricalFeature, DesignColumn, FrozenModel, Head,
+                     NumericFeature, ScalingStep, in_domain)
 
 # model class -> (task, link) for the models whose link does not come from a family
 DISCRETE = {"Logit": ("binary", "logit"), "Probit": ("binary", "probit"),
@@ -92,11 +95,13 @@ def freeze_results(results, feature_names=None, name=None) -> FrozenModel:
     formula = getattr(model, "formula", None)
     if formula:
         source += f": {formula}"
+    transforms = [(f.name, f.scaling[0].op) for f in features
+                  if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
     return FrozenModel(name or kind.lower(), tuple(features), tuple(design), head,
-                       _provenance(source, inputs)).sealed()
+                       _provenance(source, inputs, transforms)).sealed()
 
 
-def _provenance(source: str, inputs: list[str]) -> dict:
+def _provenance(source: str, inputs: list[str], transforms=()) -> dict:
     import platform
 
     import statsmodels
@@ -110,7 +115,10 @@ def _provenance(source: str, inputs: list[str]) -> dict:
             "notes": ["statsmodels cannot score a missing value or an unseen level; "
                       "the frozen model gives a missing numeric value the design "
                       "value 0.0 and a missing or unseen level no contribution "
-                      "from its term"]}
+                      "from its term"] + [
+                f"statsmodels cannot score {name}'s values outside the domain of "
+                f"np.{op} (NaN, or at the edge an infinite margin); the frozen model "
+                "treats them as missing" for name, op in transforms]}
 
 
 def _task_and_link(model, kind: str) -> tuple[str, str]:
@@ -228,6 +236,11 @@ def _numeric_factor(factor, info) -> NumericFeature:
     tree = _parse(code, factor)
     if isinstance(tree, ast.Name):
         return NumericFeature(tree.id, None)
+    if (isinstance(tree, ast.Call) and isinstance(tree.func, ast.Attribute)
+            and isinstance(tree.func.value, ast.Name) and tree.func.value.id in ("np", "numpy")
+            and tree.func.attr in TRANSFORM_OPS and len(tree.args) == 1 and not tree.keywords
+            and isinstance(tree.args[0], ast.Name)):
+        return NumericFeature(tree.args[0].id, None, (ScalingStep(tree.func.attr),))
     call = tree
     if (isinstance(call, ast.Call) and isinstance(call.func, ast.Attribute)
             and call.func.attr == "transform" and isinstance(call.func.value, ast.Name)
@@ -236,9 +249,8 @@ def _numeric_factor(factor, info) -> NumericFeature:
         options = {k.arg: ast.literal_eval(k.value) for k in call.keywords}
         steps = _stateful_steps(obj, options, factor)
         return NumericFeature(call.args[0].id, None, tuple(steps))
-    raise Unsupported(f"term {factor.name()!r}: only a column, center(x) and standardize(x) "
-                      "are frozen as numeric terms yet (transforms such as np.log need the "
-                      "transform terms)")
+    raise Unsupported(f"term {factor.name()!r}: only a column, np.log(x), np.log1p(x), "
+                      "np.sqrt(x), center(x) and standardize(x) are frozen as numeric terms")
 
 
 def _stateful_steps(obj, options: dict, factor) -> list[ScalingStep]:
@@ -307,6 +319,8 @@ class ResultsSource:
                                           dtype=object)
         self.const = (results.model.data.const_idx
                       if getattr(results.model.data, "k_constant", 0) else None)
+        self.transforms = [(f.name, f.scaling[0].op) for f in model.features
+                           if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
 
     def _exog(self, frame):
         if self.formula:
@@ -317,9 +331,17 @@ class ResultsSource:
         return x
 
     def predict(self, frame):
-        out = np.asarray(self.results.predict(self._exog(frame)), dtype=np.float64)
+        with np.errstate(all="ignore"):
+            out = np.asarray(self.results.predict(self._exog(frame)), dtype=np.float64)
         if len(out) != len(frame):  # a row dropped for a missing value
             raise ValueError("statsmodels dropped a row it cannot score")
+        # outside a transform's domain statsmodels predicts NaN, or at the edge the limit
+        # of an infinite margin (log(0) = -inf): no score either way; the frozen model
+        # treats the value as missing
+        for name, op in self.transforms:
+            values = np.asarray(frame[name], dtype=np.float64)
+            outside = ~np.isnan(values) & ~np.array([in_domain(op, v) for v in values])
+            out = np.where(outside, np.nan, out)
         return out
 
     def predict_proba(self, frame):

@@ -15,6 +15,7 @@ import struct
 from pathlib import Path
 
 from ..errors import ScorewrightError
+from ..model import TRANSFORM_DOMAIN
 from ..plan import Plan
 from ..reference import score_row
 from ..values import MISSING_CODE, category_code, numeric_value
@@ -36,7 +37,15 @@ def inverse_affine(inp, z: float) -> float | None:
     """The raw value whose scaling steps give design value z (None if not invertible)."""
     x = z
     for step in reversed(inp.steps):
-        if step.op == "subtract":
+        if step.op in ("log", "log1p"):
+            if x > 700.0:
+                return None
+            x = math.exp(x) if step.op == "log" else math.expm1(x)
+        elif step.op == "sqrt":
+            if x < 0.0:
+                return None
+            x = x * x
+        elif step.op == "subtract":
             x = x + step.value
         elif step.op == "add":
             x = x - step.value
@@ -89,6 +98,10 @@ def edge_rows(plan: Plan) -> list[tuple[str, dict]]:
                                               math.nextafter(-inp.bound, -math.inf)]
             if inp.fill is not None:
                 values.append(inp.fill)
+            if inp.steps and inp.steps[0].value is None:  # a transform's domain edge
+                edge = TRANSFORM_DOMAIN[inp.steps[0].op][0]
+                values += [edge, math.nextafter(edge, math.inf),
+                           math.nextafter(edge, -math.inf), edge + 2.0 ** -30]
             if inp.clip is not None:
                 for edge in inp.clip:
                     x = inverse_affine(inp, edge)

@@ -31,6 +31,7 @@ from ...emit.templating import render
 from ...errors import ScorewrightError
 from ...model import FrozenModel
 from ...plan import Plan, build_plan
+from ...reference import program_of
 from . import RunOutput, emitted, outputs_from_table
 from .c import compiler_version, decisions, encode_rows
 
@@ -119,8 +120,11 @@ def build_image(artifact_dir: Path, model: FrozenModel, options: dict, workdir: 
         (workdir / name).write_text(text, encoding="ascii")
     image = workdir / "image.elf"
     # Without the portable exp the scorer needs newlib's libm; with it, no libm at all
-    # (the link proves it).
-    libm = [] if options.get("portable_exp") or options.get("decision_only") else ["-lm"]
+    # (the link proves it), unless the model takes a square root (newlib's is correctly
+    # rounded, as IEEE asks).
+    uses_sqrt = any(op.op == "sqrt" for op in program_of(plan).ops)
+    libm = [] if (options.get("portable_exp") or options.get("decision_only")) \
+        and not uses_sqrt else ["-lm"]
     cmd = [board["compiler"], *board.flags("arch_flags"), *board.flags("cflags"),
            "-ffunction-sections", "-fdata-sections", "-nostartfiles",
            "-T", str(workdir / "fw.ld"), "-Wl,--gc-sections", "-I", str(artifact_dir),
