@@ -15,7 +15,7 @@ from sklearn.linear_model import (ElasticNet, GammaRegressor, Lasso, LinearRegre
                                   LogisticRegression, PoissonRegressor, Ridge, SGDClassifier,
                                   TweedieRegressor)
 from sklearn.pipeline import make_pipeline
-from sklearn.preprocessing import (MaxAbsScaler, MinMaxScaler, OneHotEncoder,
+from sklearn.preprocessing import (KBinsDiscretizer, MaxAbsScaler, MinMaxScaler, OneHotEncoder,
                                    PolynomialFeatures, RobustScaler, StandardScaler)
 
 import scorewright
@@ -189,8 +189,8 @@ def test_passthrough_and_drop_columns():
     (lambda: make_pipeline(StandardScaler(), PolynomialFeatures(), LogisticRegression()),
      "PolynomialFeatures at pipeline step 'polynomialfeatures' (position 1)"),
     (lambda: make_pipeline(StandardScaler(), SGDClassifier(loss="hinge")), "loss='hinge'"),
-    (lambda: make_pipeline(SimpleImputer(add_indicator=True), LogisticRegression()),
-     "add_indicator"),
+    (lambda: make_pipeline(KBinsDiscretizer(n_bins=3), LogisticRegression()),
+     "KBinsDiscretizer at pipeline step 'kbinsdiscretizer' (position 0)"),
 ])
 def test_unsupported_components_are_named_with_their_position(build, needle):
     X, signal = _frame()

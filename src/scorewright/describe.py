@@ -78,7 +78,11 @@ def describe_model(model: FrozenModel) -> str:
         for j, col in enumerate(model.design):
             c = head.coefficients[k][j]
             feat = model.feature(col.feature)
-            if col.levels is None:
+            if col.missing is not None:
+                # per "missing": the change from present to missing, in margin units
+                name = f"{col.feature!r} missing"
+                per_unit = c * (col.missing[1] - col.missing[0])
+            elif col.levels is None:
                 name = repr(col.feature)
                 per_unit = c * unit_slope(feat)
             else:

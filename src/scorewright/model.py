@@ -88,11 +88,15 @@ Feature = Union[NumericFeature, CategoricalFeature]
 
 @dataclass(frozen=True)
 class DesignColumn:
-    """One column of the design matrix: a numeric feature's scaled value, or the
-    indicator that a categorical feature's value is one of `levels`."""
+    """One column of the design matrix: a numeric feature's scaled value, the indicator
+    that a categorical feature's value is one of `levels`, or (`missing`, format
+    version 2) the value (present, missing) the column takes when the feature's value is
+    present or missing (missing as the feature's missing policy reads it, before any
+    fill): (0.0, 1.0) for a plain missing indicator, other pairs once it is scaled."""
 
     feature: str
     levels: tuple[Level, ...] | None = None
+    missing: tuple[float, float] | None = None
 
 
 @dataclass(frozen=True)
@@ -157,6 +161,9 @@ def needs_version(model: FrozenModel) -> tuple[int, str]:
         for step in getattr(feat, "scaling", ()):
             if step.op in TRANSFORM_OPS:
                 return 2, f"the {step.op} transform of feature {feat.name!r}"
+    for col in model.design:
+        if col.missing is not None:
+            return 2, f"the missing indicator of feature {col.feature!r}"
     return 1, ""
 
 
@@ -190,6 +197,8 @@ def _document_body(model: FrozenModel) -> dict:
         entry: dict[str, Any] = {"feature": col.feature}
         if col.levels is not None:
             entry["levels"] = list(col.levels)
+        if col.missing is not None:
+            entry["missing"] = list(col.missing)
         design.append(entry)
     head = model.head
     return {
@@ -479,11 +488,21 @@ def _known_level(value, levels, path):
 
 def _read_design(value, path, by_name) -> DesignColumn:
     r = _Reader
-    r.obj(value, path, ("feature",), optional=("levels",))
+    r.obj(value, path, ("feature",), optional=("levels", "missing"))
     name = r.string(value["feature"], f"{path}.feature")
     if name not in by_name:
         raise ModelFileError(f"{path}.feature: no feature named {name!r}")
     feat = by_name[name]
+    if "missing" in value:
+        if "levels" in value:
+            raise ModelFileError(f"{path}: a column is a missing indicator or has levels, "
+                                 "not both")
+        pair = r.array(value["missing"], f"{path}.missing")
+        if len(pair) != 2:
+            raise ModelFileError(f"{path}.missing: expected [value when present, value when "
+                                 "missing]")
+        return DesignColumn(name, missing=(r.number(pair[0], f"{path}.missing[0]"),
+                                           r.number(pair[1], f"{path}.missing[1]")))
     if isinstance(feat, NumericFeature):
         if "levels" in value:
             raise ModelFileError(f"{path}.levels: numeric feature {name!r} has no levels")
@@ -500,8 +519,11 @@ def _read_design(value, path, by_name) -> DesignColumn:
 def _check_design(design, features) -> None:
     numeric_seen: set[str] = set()
     level_seen: dict[str, set] = {}
+    indicated: set[str] = set()
     for i, col in enumerate(design):
-        if col.levels is None:
+        if col.missing is not None:
+            indicated.add(col.feature)
+        elif col.levels is None:
             if col.feature in numeric_seen:
                 raise ModelFileError(f"design[{i}]: feature {col.feature!r} has two columns")
             numeric_seen.add(col.feature)
@@ -513,7 +535,7 @@ def _check_design(design, features) -> None:
                                          f"{col.feature!r} is in two columns")
                 seen.add(level)
     for j, feat in enumerate(features):
-        if feat.name not in numeric_seen and feat.name not in level_seen:
+        if feat.name not in numeric_seen | indicated and feat.name not in level_seen:
             raise ModelFileError(f"features[{j}]: feature {feat.name!r} has no design column")
 
 

@@ -19,8 +19,10 @@ Evaluation, in order:
    takes `fill_code` (or, without one, is treated as unseen); an unseen value
    takes `unknown_code` (or, without one, no level: every indicator is 0).
 2. Margins, one per output k: s = t_0; s = s + t_1; ...; s = s + intercept_k,
-   where a numeric term is `weight_k * v` and a categorical term is the looked-up
-   contribution `table_k[code]` (0.0 for no level). Terms whose weights are all
+   where a numeric term is `weight_k * v`, a categorical term is the looked-up
+   contribution `table_k[code]` (0.0 for no level), and a missing-indicator term is
+   one of two contributions, as the input is present or missing (missing as step 1
+   reads it, before the fill). Terms whose weights are all
    zero are left out.
 3. Link: binary, the stable sigmoid (logit), the normal CDF (probit, through the
    upper tail in `normal_tail`) or 1 - exp(-exp(m)) (cloglog); multiclass, the
@@ -107,9 +109,11 @@ class Term:
     """One input's contribution to each margin."""
 
     input: int                           # index into Plan.inputs
-    kind: str                            # "numeric" or "categorical"
+    kind: str                            # "numeric", "categorical" or "missing"
     weights: tuple[float, ...] = ()      # numeric: one weight per output
-    tables: tuple[tuple[float, ...], ...] = ()  # categorical: per output, one value per level code
+    # categorical: per output, one value per level code; missing: per output, the
+    # contribution (weight * value) when the input is present and when it is missing
+    tables: tuple[tuple[float, ...], ...] = ()
 
 
 @dataclass(frozen=True)
@@ -167,13 +171,15 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
     for j, col in enumerate(model.design):
         columns.setdefault(index_of[col.feature], []).append(j)
     terms: list[Term] = []
-    for i, cols in columns.items():
+    for i, all_cols in columns.items():
         feat = model.features[i]
+        cols = [j for j in all_cols if model.design[j].missing is None]
         if isinstance(feat, NumericFeature):
-            weights = tuple(head.coefficients[k][cols[0]] for k in range(n_out))
+            weights = tuple(head.coefficients[k][cols[0]] for k in range(n_out)) if cols \
+                else ()
             if any(w != 0.0 for w in weights):
                 terms.append(Term(i, "numeric", weights=weights))
-        else:
+        elif cols:
             code = {level: c for c, level in enumerate(feat.levels)}
             tables = []
             for k in range(n_out):
@@ -184,7 +190,15 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
                 tables.append(tuple(row))
             if any(v != 0.0 for t in tables for v in t):
                 terms.append(Term(i, "categorical", tables=tuple(tables)))
-    term_of = {t.input: t for t in terms}
+        for j in all_cols:
+            pair = model.design[j].missing
+            if pair is not None:
+                # the contribution when present and when missing, each weight * value
+                tables = tuple((head.coefficients[k][j] * pair[0], head.coefficients[k][j]
+                                * pair[1]) for k in range(n_out))
+                if any(v != 0.0 for t in tables for v in t):
+                    terms.append(Term(i, "missing", tables=tables))
+    term_of = {t.input: t for t in terms if t.kind == "numeric"}
     budgets = _term_budgets(terms, head.intercepts, prec)
     built = []
     for i, feat in enumerate(model.features):
@@ -223,7 +237,7 @@ def _term_budgets(terms, intercepts, prec: Precision) -> list[float]:
     budgets = []
     for k, intercept in enumerate(intercepts):
         fixed = abs(intercept) + sum(max(abs(v) for v in t.tables[k])
-                                     for t in terms if t.kind == "categorical")
+                                     for t in terms if t.kind != "numeric")
         if fixed >= prec.budget / 2:
             raise ScorewrightError(
                 f"model coefficients are too large to score safely in {prec.name} "

@@ -92,6 +92,7 @@ class _Builder:
         self.ops: list[Op] = []
         self.types: dict[str, str] = {}
         self.count = 0
+        self.missing: dict[int, str] = {}  # input index -> its missing flag
 
     def emit(self, op: str, *args, attr=None, hint: str = "t") -> str:
         if op not in PRIMITIVES:
@@ -125,6 +126,10 @@ def lower(plan: Plan) -> Program:
             v = design[term.input]
             if term.kind == "numeric":
                 terms.append(b.emit("mul", Const(term.weights[k]), v, hint="w"))
+            elif term.kind == "missing":
+                present, missing = term.tables[k]
+                terms.append(b.emit("select", b.missing[term.input], Const(missing),
+                                    Const(present), hint="w"))
             else:
                 terms.append(b.emit("lookup", v, attr=term.tables[k], hint="w"))
         terms.append(Const(plan.intercepts[k]))
@@ -178,6 +183,7 @@ def _lower_numeric(b: _Builder, inp: NumericInput, single: bool = False) -> str:
         outside = b.emit(_DOMAIN[first][0], Const(_DOMAIN[first][1]), known, hint="f")
         missing = b.emit("select", missing, missing, outside, hint="f")
         placeholder = 1.0
+    b.missing[inp.index] = missing
     v = b.emit("select", missing, Const(placeholder if inp.fill is None else inp.fill), x,
                hint="v")
     v = b.emit("max", v, Const(-inp.bound), hint="v")

@@ -27,8 +27,8 @@ EMITTERS = {
 }
 
 
-# Links and transforms a target's emitter does not render from the scoring program yet,
-# so cannot express.
+# Links and transforms (and missing indicators) a target's emitter does not render from
+# the scoring program yet, so cannot express.
 NOT_YET_LINKS = {"sql": ("probit", "cloglog"), "onnx": ("probit", "cloglog")}
 NOT_YET_TRANSFORMS = {"sql": ("log", "log1p", "sqrt"), "onnx": ("log", "log1p", "sqrt")}
 
@@ -51,6 +51,10 @@ def emitter(target: str):
                 if step.op in NOT_YET_TRANSFORMS[target]:
                     raise ScorewrightError(f"target {target} cannot express the {step.op} "
                                            f"transform of feature {feat.name!r} yet")
+        for col in model.design:
+            if col.missing is not None:
+                raise ScorewrightError(f"target {target} cannot express the missing "
+                                       f"indicator of feature {col.feature!r} yet")
         return emit(model, options)
     return checked
 

@@ -35,6 +35,7 @@ class Chain:
     categories: tuple | None = None      # all levels the encoder knew (for indicators)
     unknown_level: object = None
     encoded: bool = False
+    indicator: bool = False              # the feature's missing indicator (0/1, then steps)
 
 
 class Unsupported(ScorewrightError):
@@ -124,7 +125,7 @@ def _default_name(estimator) -> str:
 
 def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
     from sklearn.compose import ColumnTransformer
-    from sklearn.impute import SimpleImputer
+    from sklearn.impute import MissingIndicator, SimpleImputer
     from sklearn.pipeline import Pipeline
     from sklearn.preprocessing import (FunctionTransformer, MaxAbsScaler, MinMaxScaler,
                                        OneHotEncoder, RobustScaler, StandardScaler)
@@ -140,6 +141,8 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
         return _column_transformer(step, chains, path)
     if kind is SimpleImputer:
         return _imputer(step, chains, path)
+    if kind is MissingIndicator:
+        return _indicators(step, chains, path)
     if kind is StandardScaler:
         return _scale(chains, path, "StandardScaler",
                       ("subtract", getattr(step, "mean_", None) if step.with_mean else None),
@@ -167,6 +170,8 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
 
 
 def _column_transformer(ct, chains, path):
+    from sklearn.impute import MissingIndicator
+
     selected = ct._transformer_to_input_indices  # fitted: name -> input column indices
     used: dict[int, str] = {}
     out: list[Chain] = []
@@ -174,19 +179,52 @@ def _column_transformer(ct, chains, path):
         indices = list(selected.get(name, []))
         if trans == "drop" or not indices:
             continue
-        for i in indices:
-            if i in used:
-                raise Unsupported(f"input column {i} is used by both {used[i]!r} and {name!r} "
-                                  f"at {path}; each input may feed one transformer")
-            used[i] = name
-        sub = [chains[i] for i in indices]
+        if not isinstance(trans, MissingIndicator):  # an indicator may share its input
+            for i in indices:
+                if i in used:
+                    raise Unsupported(f"input column {i} is used by both {used[i]!r} and "
+                                      f"{name!r} at {path}; each input may feed one "
+                                      "transformer (and a MissingIndicator)")
+                used[i] = name
+        sub = [_copy(chains[i]) for i in indices]
         out.extend(_apply(trans, sub, f"{path} > transformer {name!r}"))
     return out
 
 
+def _copy(chain: Chain) -> Chain:
+    return Chain(chain.feature, chain.fill, list(chain.steps), chain.clip, chain.levels,
+                 chain.categories, chain.unknown_level, chain.encoded, chain.indicator)
+
+
+def _indicator_features(ind, path) -> list[int]:
+    mv = ind.missing_values
+    if not (isinstance(mv, float) and math.isnan(mv)) and mv is not None:
+        raise Unsupported(f"missing indicator with missing_values={mv!r} at {path}: only "
+                          "NaN/None are the frozen model's missing values")
+    return [int(i) for i in ind.features_]
+
+
+def _indicators(ind, chains, path) -> list[Chain]:
+    """MissingIndicator: one 0/1 column per feature it learned to flag."""
+    out = []
+    for i in _indicator_features(ind, path):
+        chain = chains[i]
+        _require_raw(chain, path, "MissingIndicator")
+        if chain.fill is not None or chain.steps or chain.indicator:
+            raise Unsupported(f"MissingIndicator at {path} follows an imputer or a transform; "
+                              "put it first")
+        out.append(Chain(chain.feature, indicator=True))
+    return out
+
+
 def _imputer(imp, chains, path):
+    indicated = []
     if imp.add_indicator:
-        raise Unsupported(f"SimpleImputer(add_indicator=True) at {path}")
+        for i in _indicator_features(imp.indicator_, path):
+            if chains[i].fill is not None or chains[i].indicator:
+                raise Unsupported(f"SimpleImputer(add_indicator=True) at {path} follows an "
+                                  "imputer; put it first")
+            indicated.append(Chain(chains[i].feature, indicator=True))
     mv = imp.missing_values
     if not (isinstance(mv, float) and math.isnan(mv)) and mv is not None:
         raise Unsupported(f"SimpleImputer(missing_values={mv!r}) at {path}: only NaN/None "
@@ -203,7 +241,7 @@ def _imputer(imp, chains, path):
             raise Unsupported(f"SimpleImputer at {path} has no fill value for an all-missing "
                               "column")
         chain.fill = _plain(value)
-    return chains
+    return chains + indicated
 
 
 def _transform_of(func) -> str | None:
@@ -234,6 +272,8 @@ def _function(step, chains, path):
 
 
 def _require_raw(chain, path, what):
+    if chain.indicator and not what.endswith("Scaler"):
+        raise Unsupported(f"{what} at {path} takes a missing indicator; only scalers may")
     if chain.encoded:
         raise Unsupported(f"{what} at {path} comes after OneHotEncoder; put it before")
     if chain.steps and what == "SimpleImputer":
@@ -331,8 +371,14 @@ def _features_and_design(chains, raw_names):
     design: list[DesignColumn] = []
     numeric: dict[int, Chain] = {}
     categorical: dict[int, list[Chain]] = {}
+    indicated: set[int] = set()
     for chain in chains:
         name = raw_names[chain.feature]
+        if chain.indicator:
+            indicated.add(chain.feature)
+            design.append(DesignColumn(name, missing=(_indicator_value(chain, 0.0),
+                                                      _indicator_value(chain, 1.0))))
+            continue
         if chain.encoded:
             if chain.feature in numeric:
                 raise Unsupported(f"feature {name!r} is used both as a number and as a category")
@@ -352,9 +398,25 @@ def _features_and_design(chains, raw_names):
             fill = None if c.fill is None else float(c.fill)
             features.append(NumericFeature(name, fill, tuple(c.steps), c.clip))
         elif i in categorical:
+            if i in indicated:
+                raise Unsupported(f"feature {name!r}: a missing indicator of a categorical "
+                                  "feature is not frozen yet")
             c = categorical[i][0]
             features.append(CategoricalFeature(name, c.categories, c.fill, c.unknown_level))
+        elif i in indicated:
+            features.append(NumericFeature(name, None))  # its indicator alone
     return tuple(features), tuple(design)
+
+
+def _indicator_value(chain: Chain, flag: float) -> float:
+    """The indicator's design value, its steps applied as scikit-learn applies them."""
+    v = flag
+    for step in chain.steps:
+        v = {"subtract": v - step.value, "add": v + step.value,
+             "multiply": v * step.value, "divide": v / step.value}[step.op]
+    if chain.clip is not None:
+        v = min(max(v, chain.clip[0]), chain.clip[1])
+    return float(v)
 
 
 # ---------------------------------------------------------------- heads
