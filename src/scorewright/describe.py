@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import math
 
-from .model import FrozenModel, NumericFeature, outside_text
+from .model import TRANSFORM_OPS, FrozenModel, NumericFeature, outside_text
 from .plan import build_plan
 
 
@@ -45,9 +45,10 @@ def describe_model(model: FrozenModel) -> str:
         if isinstance(feat, NumericFeature):
             missing = ("missing -> design value 0.0" if feat.fill is None
                        else f"missing -> {feat.fill!r}")
-            steps = " ".join(s.op if s.value is None else f"{s.op} {s.value!r}"
+            steps = " ".join(f"bins at {list(s.edges)!r}" if s.edges is not None else
+                             s.op if s.value is None else f"{s.op} {s.value!r}"
                              for s in feat.scaling) or "none"
-            if feat.scaling and feat.scaling[0].value is None:
+            if feat.scaling and feat.scaling[0].op in TRANSFORM_OPS:
                 op = feat.scaling[0].op
                 missing += f" (so is a value {outside_text(op)}, outside {op}'s domain)"
             clip = "" if feat.clip is None else f", clip to [{feat.clip[0]!r}, {feat.clip[1]!r}]"
@@ -85,6 +86,9 @@ def describe_model(model: FrozenModel) -> str:
             elif col.levels is None:
                 name = repr(col.feature)
                 per_unit = c * unit_slope(feat)
+            elif isinstance(feat, NumericFeature):
+                name = f"{col.feature!r} in bin {', '.join(map(str, col.levels))}"
+                per_unit = c
             else:
                 name = f"{col.feature!r} in {{{', '.join(repr(v) for v in col.levels)}}}"
                 per_unit = c

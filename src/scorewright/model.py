@@ -45,7 +45,16 @@ Level = Union[str, int]
 @dataclass(frozen=True)
 class ScalingStep:
     op: str
-    value: float | None = None  # None for a transform (TRANSFORM_OPS)
+    value: float | None = None  # None for a transform (TRANSFORM_OPS) and for bins
+    edges: tuple[float, ...] | None = None  # bins: the inner edges, increasing
+
+
+# Bins (format version 2): a numeric feature's first step {"op": "bins", "edges": [...]}
+# maps a value to the number of inner edges at or below it (its bin, 0..len(edges)),
+# as scikit-learn's KBinsDiscretizer does (searchsorted, side "right"). The bin is the
+# design value (ordinal, then any scaling steps), or, when bins is the feature's only step,
+# design columns may name bins as levels (one indicator per bin).
+BINS = "bins"
 
 
 @dataclass(frozen=True)
@@ -159,7 +168,7 @@ def needs_version(model: FrozenModel) -> tuple[int, str]:
         return LINK_VERSION[model.head.link], f"the {model.head.link} link"
     for feat in model.features:
         for step in getattr(feat, "scaling", ()):
-            if step.op in TRANSFORM_OPS:
+            if step.op in TRANSFORM_OPS or step.op == BINS:
                 return 2, f"the {step.op} transform of feature {feat.name!r}"
     for col in model.design:
         if col.missing is not None:
@@ -177,6 +186,7 @@ def _document_body(model: FrozenModel) -> dict:
                 "missing": ({"policy": "zero"} if feat.fill is None
                             else {"policy": "impute", "value": feat.fill}),
                 "scaling": [{"op": s.op} if s.op in TRANSFORM_OPS else
+                            {"op": s.op, "edges": list(s.edges)} if s.op == BINS else
                             {"op": s.op, "value": s.value} for s in feat.scaling],
                 "clip": None if feat.clip is None else list(feat.clip),
             })
@@ -419,10 +429,20 @@ def _read_feature(value, path) -> Feature:
                                          f"domain of {step['op']}")
                 steps.append(ScalingStep(step["op"]))
                 continue
+            if isinstance(step, dict) and step.get("op") == BINS:
+                r.obj(step, spath, ("op", "edges"))
+                if j != 0:
+                    raise ModelFileError(f"{spath}.op: bins must be the first step")
+                edges = tuple(r.number(e, f"{spath}.edges[{i}]")
+                              for i, e in enumerate(r.array(step["edges"], f"{spath}.edges")))
+                if not edges or any(not a < b for a, b in zip(edges, edges[1:])):
+                    raise ModelFileError(f"{spath}.edges: expected increasing numbers")
+                steps.append(ScalingStep(BINS, edges=edges))
+                continue
             r.obj(step, spath, ("op", "value"))
             if step["op"] not in SCALING_OPS:
                 raise ModelFileError(f"{spath}.op: expected one of "
-                                     f"{', '.join(SCALING_OPS + TRANSFORM_OPS)}, "
+                                     f"{', '.join(SCALING_OPS + TRANSFORM_OPS + (BINS,))}, "
                                      f"got {step['op']!r}")
             number = r.number(step["value"], f"{spath}.value")
             if step["op"] == "divide" and number == 0.0:
@@ -504,9 +524,17 @@ def _read_design(value, path, by_name) -> DesignColumn:
         return DesignColumn(name, missing=(r.number(pair[0], f"{path}.missing[0]"),
                                            r.number(pair[1], f"{path}.missing[1]")))
     if isinstance(feat, NumericFeature):
-        if "levels" in value:
-            raise ModelFileError(f"{path}.levels: numeric feature {name!r} has no levels")
-        return DesignColumn(name)
+        n_bins = bin_count(feat)
+        if "levels" not in value:
+            return DesignColumn(name)
+        if n_bins is None or len(feat.scaling) != 1:
+            raise ModelFileError(f"{path}.levels: numeric feature {name!r} has no levels "
+                                 "(only a feature whose one step is bins has: its bins)")
+        levels = r.array(value["levels"], f"{path}.levels")
+        if not levels or any(type(v) is not int or not 0 <= v < n_bins for v in levels):
+            raise ModelFileError(f"{path}.levels: expected bins of {name!r}, integers from 0 "
+                                 f"to {n_bins - 1}")
+        return DesignColumn(name, tuple(levels))
     if "levels" not in value:
         raise ModelFileError(f"{path}: missing key 'levels' for categorical feature {name!r}")
     levels = tuple(_known_level(v, feat.levels, f"{path}.levels[{j}]")
@@ -535,8 +563,17 @@ def _check_design(design, features) -> None:
                                          f"{col.feature!r} is in two columns")
                 seen.add(level)
     for j, feat in enumerate(features):
+        if feat.name in numeric_seen and feat.name in level_seen:
+            raise ModelFileError(f"features[{j}]: feature {feat.name!r} has both a value "
+                                 "column and bin columns")
         if feat.name not in numeric_seen | indicated and feat.name not in level_seen:
             raise ModelFileError(f"features[{j}]: feature {feat.name!r} has no design column")
+
+
+def bin_count(feat) -> int | None:
+    """The number of bins of a numeric feature whose first step is bins (else None)."""
+    steps = getattr(feat, "scaling", ())
+    return len(steps[0].edges) + 1 if steps and steps[0].op == BINS else None
 
 
 def in_domain(op: str, x: float) -> bool:

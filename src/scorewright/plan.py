@@ -20,7 +20,8 @@ Evaluation, in order:
    takes `unknown_code` (or, without one, no level: every indicator is 0).
 2. Margins, one per output k: s = t_0; s = s + t_1; ...; s = s + intercept_k,
    where a numeric term is `weight_k * v`, a categorical term is the looked-up
-   contribution `table_k[code]` (0.0 for no level), and a missing-indicator term is
+   contribution `table_k[code]` (0.0 for no level), a bins term the contribution of
+   the value's bin (0.0 when missing without a fill), and a missing-indicator term is
    one of two contributions, as the input is present or missing (missing as step 1
    reads it, before the fill). Terms whose weights are all
    zero are left out.
@@ -48,7 +49,8 @@ import re
 from dataclasses import dataclass
 
 from .errors import ScorewrightError
-from .model import TRANSFORM_OPS, CategoricalFeature, FrozenModel, NumericFeature, ScalingStep
+from .model import (BINS, TRANSFORM_OPS, CategoricalFeature, FrozenModel, NumericFeature,
+                    ScalingStep, bin_count)
 
 
 @dataclass(frozen=True)
@@ -109,10 +111,10 @@ class Term:
     """One input's contribution to each margin."""
 
     input: int                           # index into Plan.inputs
-    kind: str                            # "numeric", "categorical" or "missing"
+    kind: str                            # "numeric", "categorical", "bins" or "missing"
     weights: tuple[float, ...] = ()      # numeric: one weight per output
-    # categorical: per output, one value per level code; missing: per output, the
-    # contribution (weight * value) when the input is present and when it is missing
+    # categorical: per output, one value per level code (bins: per bin); missing: per
+    # output, the contribution (weight * value) when the input is present and missing
     tables: tuple[tuple[float, ...], ...] = ()
 
 
@@ -174,7 +176,18 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
     for i, all_cols in columns.items():
         feat = model.features[i]
         cols = [j for j in all_cols if model.design[j].missing is None]
-        if isinstance(feat, NumericFeature):
+        if isinstance(feat, NumericFeature) and cols and model.design[cols[0]].levels:
+            # one indicator per bin: per output, the contribution of each bin
+            tables = []
+            for k in range(n_out):
+                row = [0.0] * bin_count(feat)
+                for j in cols:
+                    for b in model.design[j].levels:
+                        row[b] = head.coefficients[k][j]
+                tables.append(tuple(row))
+            if any(v != 0.0 for t in tables for v in t):
+                terms.append(Term(i, "bins", tables=tuple(tables)))
+        elif isinstance(feat, NumericFeature):
             weights = tuple(head.coefficients[k][cols[0]] for k in range(n_out)) if cols \
                 else ()
             if any(w != 0.0 for w in weights):
@@ -204,8 +217,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
     for i, feat in enumerate(model.features):
         if isinstance(feat, NumericFeature):
             bound = _numeric_bound(feat, term_of.get(i), budgets, prec)
-            built.append(NumericInput(i, feat.name, feat.fill, bound, feat.scaling, feat.clip,
-                                      feat.boolean))
+            built.append(NumericInput(i, feat.name, feat.fill, bound,
+                                      _steps_in(feat.scaling, prec), feat.clip, feat.boolean))
         else:
             built.append(_categorical_input(i, feat))
     return Plan(
@@ -222,6 +235,18 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
         cut=head.cut,
         exp_kind=exp,
     )
+
+
+def _steps_in(steps, prec: Precision) -> tuple:
+    """The steps as a plan of this precision holds them: in single precision a bin edge
+    is the float a float target compares with (the inputs reach it as floats too), so
+    the reference puts a value on the same side of it."""
+    if prec.name != "float":
+        return steps
+    import numpy as np
+
+    return tuple(ScalingStep(s.op, s.value, tuple(float(np.float32(e)) for e in s.edges))
+                 if s.edges is not None else s for s in steps)
 
 
 def _categorical_input(index: int, feat: CategoricalFeature) -> CategoricalInput:
@@ -256,6 +281,9 @@ def _numeric_bound(feat, term, budgets, prec: Precision) -> float:
             if weight != 0.0:
                 allowed = min(allowed, budget / abs(weight))
     for step in reversed(feat.scaling):
+        if step.op == BINS:  # a bin number, 0..len(edges)
+            allowed = prec.max_value if allowed >= len(step.edges) else 0.0
+            continue
         if step.op in TRANSFORM_OPS:
             # |log x| and |log1p x| <= 745 for every double the clamp lets through, and
             # sqrt(x) <= x for x >= 1: a transform bounds its own output

@@ -42,7 +42,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from . import normal_tail, portable_exp
-from .model import TRANSFORM_DOMAIN
+from .model import BINS, TRANSFORM_DOMAIN
 from .plan import CategoricalInput, NumericInput, Plan
 from .values import MISSING_CODE, UNSEEN_CODE, category_code, numeric_value
 
@@ -126,6 +126,15 @@ def lower(plan: Plan) -> Program:
             v = design[term.input]
             if term.kind == "numeric":
                 terms.append(b.emit("mul", Const(term.weights[k]), v, hint="w"))
+            elif term.kind == "bins":
+                # the bin number (the design value, exact small integers) picks the
+                # contribution; missing without a fill contributes nothing
+                inp = plan.inputs[term.input]
+                bins = [float(i) for i in range(1, len(term.tables[k]))]
+                w = _select_by_bin(b, v, bins, term.tables[k])
+                if inp.fill is None:
+                    w = b.emit("select", b.missing[term.input], Const(0.0), w, hint="w")
+                terms.append(w)
             elif term.kind == "missing":
                 present, missing = term.tables[k]
                 terms.append(b.emit("select", b.missing[term.input], Const(missing),
@@ -189,7 +198,9 @@ def _lower_numeric(b: _Builder, inp: NumericInput, single: bool = False) -> str:
     v = b.emit("max", v, Const(-inp.bound), hint="v")
     v = b.emit("min", v, Const(inp.bound), hint="v")
     for step in inp.steps:
-        if step.op in _TRANSFORM:
+        if step.op == BINS:
+            v = _select_by_bin(b, v, step.edges, [float(i) for i in range(len(step.edges) + 1)])
+        elif step.op in _TRANSFORM:
             v = _TRANSFORM[step.op](b, v, single)
         else:
             v = b.emit(_STEP_OP[step.op], v, Const(step.value), hint="v")
@@ -198,6 +209,15 @@ def _lower_numeric(b: _Builder, inp: NumericInput, single: bool = False) -> str:
         v = b.emit("min", v, Const(inp.clip[1]), hint="v")
     if inp.fill is None:
         v = b.emit("select", missing, Const(0.0), v, hint="v")
+    return v
+
+
+def _select_by_bin(b: _Builder, x, edges, values):
+    """values[i] for the bin of x: i = the number of edges at or below x (the side
+    scikit-learn's KBinsDiscretizer takes: a value on an edge is in the bin above it)."""
+    v = Const(values[0])
+    for i, edge in enumerate(edges, start=1):
+        v = b.emit("select", b.emit("ge", x, Const(edge)), Const(values[i]), v, hint="v")
     return v
 
 

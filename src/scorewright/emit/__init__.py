@@ -30,7 +30,8 @@ EMITTERS = {
 # Links and transforms (and missing indicators) a target's emitter does not render from
 # the scoring program yet, so cannot express.
 NOT_YET_LINKS = {"sql": ("probit", "cloglog"), "onnx": ("probit", "cloglog")}
-NOT_YET_TRANSFORMS = {"sql": ("log", "log1p", "sqrt"), "onnx": ("log", "log1p", "sqrt")}
+NOT_YET_TRANSFORMS = {"sql": ("log", "log1p", "sqrt", "bins"),
+                      "onnx": ("log", "log1p", "sqrt", "bins")}
 
 
 def emitter(target: str):

@@ -155,9 +155,13 @@ def _extremes(feat: NumericFeature) -> list[float]:
     """Far readings on the feature's own scale (its scaling steps' size), both signs:
     a hundred spreads out, beyond any clip, yet inside the range where neither side
     saturates (the frozen model's guards then change nothing)."""
-    size = max([abs(s.value) for s in feat.scaling if s.value is not None] + [1.0])
+    size = max([abs(s.value) for s in feat.scaling if s.value is not None]
+               + [abs(e) for s in feat.scaling for e in (s.edges or ())] + [1.0])
     out = [EXTREME * size, -EXTREME * size]
-    if feat.scaling and feat.scaling[0].op in TRANSFORM_OPS:
+    if feat.scaling and feat.scaling[0].edges is not None:  # every bin edge, either side
+        out += [x for e in feat.scaling[0].edges
+                for x in (e, math.nextafter(e, math.inf), math.nextafter(e, -math.inf))]
+    elif feat.scaling and feat.scaling[0].op in TRANSFORM_OPS:
         # a transform's domain edge and values just inside it
         edge = TRANSFORM_DOMAIN[feat.scaling[0].op][0]
         out += [edge, math.nextafter(edge, math.inf), edge + 1e-300, 5e-324]

@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import (TRANSFORM_OPS, CategoricalFeature, DesignColumn, FrozenModel, Head,
+from ..model import (BINS, TRANSFORM_OPS, CategoricalFeature, DesignColumn, FrozenModel, Head,
                      NumericFeature, ScalingStep, in_domain, outside_text)
 from .provenance import provenance
 
@@ -36,6 +36,7 @@ class Chain:
     unknown_level: object = None
     encoded: bool = False
     indicator: bool = False              # the feature's missing indicator (0/1, then steps)
+    binned: bool = False                 # one of KBinsDiscretizer's one-hot columns (levels)
 
 
 class Unsupported(ScorewrightError):
@@ -127,8 +128,9 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
     from sklearn.compose import ColumnTransformer
     from sklearn.impute import MissingIndicator, SimpleImputer
     from sklearn.pipeline import Pipeline
-    from sklearn.preprocessing import (FunctionTransformer, MaxAbsScaler, MinMaxScaler,
-                                       OneHotEncoder, RobustScaler, StandardScaler)
+    from sklearn.preprocessing import (FunctionTransformer, KBinsDiscretizer, MaxAbsScaler,
+                                       MinMaxScaler, OneHotEncoder, RobustScaler,
+                                       StandardScaler)
 
     if step in (None, "passthrough"):
         return chains
@@ -143,6 +145,8 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
         return _imputer(step, chains, path)
     if kind is MissingIndicator:
         return _indicators(step, chains, path)
+    if kind is KBinsDiscretizer:
+        return _bins(step, chains, path)
     if kind is StandardScaler:
         return _scale(chains, path, "StandardScaler",
                       ("subtract", getattr(step, "mean_", None) if step.with_mean else None),
@@ -193,7 +197,8 @@ def _column_transformer(ct, chains, path):
 
 def _copy(chain: Chain) -> Chain:
     return Chain(chain.feature, chain.fill, list(chain.steps), chain.clip, chain.levels,
-                 chain.categories, chain.unknown_level, chain.encoded, chain.indicator)
+                 chain.categories, chain.unknown_level, chain.encoded, chain.indicator,
+                 chain.binned)
 
 
 def _indicator_features(ind, path) -> list[int]:
@@ -271,7 +276,37 @@ def _function(step, chains, path):
     return chains
 
 
+def _bins(kb, chains, path):
+    """KBinsDiscretizer: the bin (the count of inner edges at or below the value), as a
+    number (ordinal) or as one indicator column per bin (onehot, onehot-dense)."""
+    if kb.dtype not in (None, np.float64):
+        raise Unsupported(f"KBinsDiscretizer(dtype={kb.dtype!r}) at {path}: only float64 "
+                          "binning is frozen")
+    out = []
+    for i, chain in enumerate(chains):
+        _require_raw(chain, path, "KBinsDiscretizer")
+        if chain.steps or chain.clip is not None or isinstance(chain.fill, str):
+            raise Unsupported(f"KBinsDiscretizer at {path} comes after scaling; put it first "
+                              "(after any SimpleImputer)")
+        inner = tuple(float(e) for e in np.asarray(kb.bin_edges_[i], dtype=np.float64)[1:-1])
+        if not inner:
+            raise Unsupported(f"KBinsDiscretizer at {path}: feature column {i} has a single "
+                              "bin (a constant column); drop it")
+        step = ScalingStep(BINS, edges=inner)
+        if kb.encode == "ordinal":
+            chain.steps.append(step)
+            out.append(chain)
+            continue
+        for b in range(len(inner) + 1):
+            out.append(Chain(chain.feature, fill=chain.fill, steps=[step], levels=(b,),
+                             binned=True))
+    return out
+
+
 def _require_raw(chain, path, what):
+    if chain.binned:
+        raise Unsupported(f"{what} at {path} takes KBinsDiscretizer's one-hot columns; "
+                          "nothing may follow them but the estimator")
     if chain.indicator and not what.endswith("Scaler"):
         raise Unsupported(f"{what} at {path} takes a missing indicator; only scalers may")
     if chain.encoded:
@@ -372,8 +407,15 @@ def _features_and_design(chains, raw_names):
     numeric: dict[int, Chain] = {}
     categorical: dict[int, list[Chain]] = {}
     indicated: set[int] = set()
+    binned: dict[int, Chain] = {}
     for chain in chains:
         name = raw_names[chain.feature]
+        if chain.binned:
+            if chain.feature in numeric or chain.feature in categorical:
+                raise Unsupported(f"feature {name!r} reaches the estimator twice")
+            binned[chain.feature] = chain
+            design.append(DesignColumn(name, chain.levels))
+            continue
         if chain.indicator:
             indicated.add(chain.feature)
             design.append(DesignColumn(name, missing=(_indicator_value(chain, 0.0),
@@ -385,7 +427,8 @@ def _features_and_design(chains, raw_names):
             categorical.setdefault(chain.feature, []).append(chain)
             design.append(DesignColumn(name, tuple(chain.levels)))
         else:
-            if chain.feature in numeric or chain.feature in categorical:
+            if chain.feature in numeric or chain.feature in categorical or \
+                    chain.feature in binned:
                 raise Unsupported(f"feature {name!r} reaches the estimator twice")
             if isinstance(chain.fill, str):
                 raise Unsupported(f"feature {name!r} is imputed with text but not encoded")
@@ -397,6 +440,10 @@ def _features_and_design(chains, raw_names):
             c = numeric[i]
             fill = None if c.fill is None else float(c.fill)
             features.append(NumericFeature(name, fill, tuple(c.steps), c.clip))
+        elif i in binned:
+            c = binned[i]
+            fill = None if c.fill is None else float(c.fill)
+            features.append(NumericFeature(name, fill, tuple(c.steps)))
         elif i in categorical:
             if i in indicated:
                 raise Unsupported(f"feature {name!r}: a missing indicator of a categorical "

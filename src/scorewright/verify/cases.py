@@ -37,6 +37,8 @@ def inverse_affine(inp, z: float) -> float | None:
     """The raw value whose scaling steps give design value z (None if not invertible)."""
     x = z
     for step in reversed(inp.steps):
+        if step.op == "bins":
+            return None
         if step.op in ("log", "log1p"):
             if x > 700.0:
                 return None
@@ -62,6 +64,9 @@ def inverse_affine(inp, z: float) -> float | None:
 
 def typical_value(inp) -> float:
     x = inverse_affine(inp, 0.0)
+    if x is None and inp.steps and inp.steps[0].op == "bins":
+        edges = inp.steps[0].edges
+        x = edges[len(edges) // 2]
     if x is None:
         x = inp.fill if inp.fill is not None else 0.0
     return x
@@ -98,7 +103,11 @@ def edge_rows(plan: Plan) -> list[tuple[str, dict]]:
                                               math.nextafter(-inp.bound, -math.inf)]
             if inp.fill is not None:
                 values.append(inp.fill)
-            if inp.steps and inp.steps[0].value is None:  # a transform's domain edge
+            if inp.steps and inp.steps[0].op == "bins":  # every edge and either side
+                for edge in inp.steps[0].edges:
+                    values += [edge, math.nextafter(edge, math.inf),
+                               math.nextafter(edge, -math.inf)]
+            elif inp.steps and inp.steps[0].value is None:  # a transform's domain edge
                 edge = TRANSFORM_DOMAIN[inp.steps[0].op][0]
                 values += [edge, math.nextafter(edge, math.inf),
                            math.nextafter(edge, -math.inf), edge + 2.0 ** -30]
