@@ -469,12 +469,17 @@ def _indicator_value(chain: Chain, flag: float) -> float:
 # ---------------------------------------------------------------- heads
 
 def _head(est, path) -> Head:
-    from sklearn.linear_model import (ElasticNet, GammaRegressor, Lasso, LinearRegression,
-                                      LogisticRegression, PoissonRegressor, Ridge,
-                                      SGDClassifier, TweedieRegressor)
+    from sklearn.discriminant_analysis import LinearDiscriminantAnalysis
+    from sklearn.linear_model import (ARDRegression, BayesianRidge, ElasticNet, ElasticNetCV,
+                                      GammaRegressor, HuberRegressor, Lasso, LassoCV,
+                                      LinearRegression, LogisticRegression,
+                                      LogisticRegressionCV, PoissonRegressor,
+                                      QuantileRegressor, Ridge, RidgeCV, SGDClassifier,
+                                      SGDRegressor, TweedieRegressor)
 
     kind = type(est)
-    if kind in (LogisticRegression, SGDClassifier):
+    if kind in (LogisticRegression, LogisticRegressionCV, SGDClassifier,
+                LinearDiscriminantAnalysis):
         if kind is SGDClassifier and est.loss != "log_loss":
             raise Unsupported(f"SGDClassifier(loss={est.loss!r}) at {path}: only loss='log_loss' "
                               "gives probabilities")
@@ -484,13 +489,15 @@ def _head(est, path) -> Head:
         if len(classes) == 2:
             return Head("binary", "logit", classes, (float(intercept[0]),),
                         (tuple(map(float, coef[0])),), 0.0)
-        if kind is SGDClassifier or _one_vs_rest(est):
+        if kind is SGDClassifier or (kind is not LinearDiscriminantAnalysis
+                                     and _one_vs_rest(est)):
             raise Unsupported(f"{kind.__name__} at {path} is one-vs-rest; only multinomial "
                               "(softmax) multiclass models are supported")
         return Head("multiclass", "softmax", classes, tuple(map(float, intercept)),
                     tuple(tuple(map(float, row)) for row in coef), None)
     if kind in (LinearRegression, Ridge, Lasso, ElasticNet, PoissonRegressor, GammaRegressor,
-                TweedieRegressor):
+                TweedieRegressor, RidgeCV, LassoCV, ElasticNetCV, BayesianRidge,
+                ARDRegression, HuberRegressor, QuantileRegressor, SGDRegressor):
         coef = np.asarray(est.coef_, dtype=np.float64)
         if coef.ndim == 2:
             if coef.shape[0] != 1:
