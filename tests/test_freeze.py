@@ -15,8 +15,9 @@ from sklearn.linear_model import (ElasticNet, GammaRegressor, Lasso, LinearRegre
                                   LogisticRegression, PoissonRegressor, Ridge, SGDClassifier,
                                   TweedieRegressor)
 from sklearn.pipeline import make_pipeline
-from sklearn.preprocessing import (KBinsDiscretizer, MaxAbsScaler, MinMaxScaler, OneHotEncoder,
-                                   PolynomialFeatures, RobustScaler, StandardScaler)
+from sklearn.preprocessing import (MaxAbsScaler, MinMaxScaler, OneHotEncoder,
+                                   QuantileTransformer, RobustScaler, SplineTransformer,
+                                   StandardScaler)
 
 import scorewright
 from scorewright.errors import ScorewrightError
@@ -186,11 +187,11 @@ def test_passthrough_and_drop_columns():
 
 
 @pytest.mark.parametrize("build,needle", [
-    (lambda: make_pipeline(StandardScaler(), PolynomialFeatures(), LogisticRegression()),
-     "PolynomialFeatures at pipeline step 'polynomialfeatures' (position 1)"),
+    (lambda: make_pipeline(StandardScaler(), SplineTransformer(), LogisticRegression()),
+     "SplineTransformer at pipeline step 'splinetransformer' (position 1)"),
     (lambda: make_pipeline(StandardScaler(), SGDClassifier(loss="hinge")), "loss='hinge'"),
-    (lambda: make_pipeline(KBinsDiscretizer(n_bins=3), LogisticRegression()),
-     "KBinsDiscretizer at pipeline step 'kbinsdiscretizer' (position 0)"),
+    (lambda: make_pipeline(QuantileTransformer(n_quantiles=50), LogisticRegression()),
+     "QuantileTransformer at pipeline step 'quantiletransformer' (position 0)"),
 ])
 def test_unsupported_components_are_named_with_their_position(build, needle):
     X, signal = _frame()

@@ -21,6 +21,14 @@ def unit_slope(feat: NumericFeature) -> float:
     return slope
 
 
+def _factor_name(f) -> str:
+    if f.missing is not None:
+        return f"{f.feature} missing"
+    if f.levels is not None:
+        return f"{f.feature} in {{{', '.join(map(repr, f.levels))}}}"
+    return f.feature
+
+
 def _odds(x: float) -> str:
     try:
         return f"{math.exp(x):.6g}"
@@ -79,7 +87,10 @@ def describe_model(model: FrozenModel) -> str:
         for j, col in enumerate(model.design):
             c = head.coefficients[k][j]
             feat = model.feature(col.feature)
-            if col.missing is not None:
+            if col.product is not None:
+                name = " * ".join(_factor_name(f) for f in col.product)
+                per_unit = c
+            elif col.missing is not None:
                 # per "missing": the change from present to missing, in margin units
                 name = f"{col.feature!r} missing"
                 per_unit = c * (col.missing[1] - col.missing[0])

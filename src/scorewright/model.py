@@ -106,6 +106,11 @@ class DesignColumn:
     feature: str
     levels: tuple[Level, ...] | None = None
     missing: tuple[float, float] | None = None
+    # format version 2: a product of factors (each a column as above; a numeric factor with
+    # its own `scaling`), multiplied left to right, then this column's own `scaling`;
+    # `feature` is the first factor's. One factor: a scaled indicator column.
+    product: tuple["DesignColumn", ...] | None = None
+    scaling: tuple[ScalingStep, ...] | None = None
 
 
 @dataclass(frozen=True)
@@ -173,6 +178,8 @@ def needs_version(model: FrozenModel) -> tuple[int, str]:
     for col in model.design:
         if col.missing is not None:
             return 2, f"the missing indicator of feature {col.feature!r}"
+        if col.product is not None:
+            return 2, f"the product column of feature {col.feature!r}"
     return 1, ""
 
 
@@ -185,9 +192,7 @@ def _document_body(model: FrozenModel) -> dict:
                 "kind": "numeric",
                 "missing": ({"policy": "zero"} if feat.fill is None
                             else {"policy": "impute", "value": feat.fill}),
-                "scaling": [{"op": s.op} if s.op in TRANSFORM_OPS else
-                            {"op": s.op, "edges": list(s.edges)} if s.op == BINS else
-                            {"op": s.op, "value": s.value} for s in feat.scaling],
+                "scaling": _steps_entry(feat.scaling),
                 "clip": None if feat.clip is None else list(feat.clip),
             })
             if feat.boolean:
@@ -202,14 +207,7 @@ def _document_body(model: FrozenModel) -> dict:
                 "unknown": ({"policy": "zeros"} if feat.unknown_level is None
                             else {"policy": "level", "level": feat.unknown_level}),
             })
-    design = []
-    for col in model.design:
-        entry: dict[str, Any] = {"feature": col.feature}
-        if col.levels is not None:
-            entry["levels"] = list(col.levels)
-        if col.missing is not None:
-            entry["missing"] = list(col.missing)
-        design.append(entry)
+    design = [_column_entry(col) for col in model.design]
     head = model.head
     return {
         "format": FORMAT,
@@ -227,6 +225,25 @@ def _document_body(model: FrozenModel) -> dict:
         },
         "provenance": model.provenance,
     }
+
+
+def _steps_entry(steps) -> list:
+    return [{"op": s.op} if s.op in TRANSFORM_OPS else
+            {"op": s.op, "edges": list(s.edges)} if s.op == BINS else
+            {"op": s.op, "value": s.value} for s in steps]
+
+
+def _column_entry(col: DesignColumn) -> dict:
+    entry: dict[str, Any] = {"feature": col.feature}
+    if col.levels is not None:
+        entry["levels"] = list(col.levels)
+    if col.missing is not None:
+        entry["missing"] = list(col.missing)
+    if col.product is not None:
+        entry["product"] = [_column_entry(f) for f in col.product]
+    if col.scaling is not None:
+        entry["scaling"] = _steps_entry(col.scaling)
+    return entry
 
 
 def canonical_bytes(doc: dict) -> bytes:
@@ -398,6 +415,44 @@ def model_from_document(doc) -> FrozenModel:
     return FrozenModel(name, features, design, head, prov, sha)
 
 
+def _read_steps(array, where: str, fill, path: str, affine_only: bool = False) -> tuple:
+    """A list of steps: a transform or bins first (unless affine_only), then affine steps."""
+    r = _Reader
+    steps = []
+    for j, step in enumerate(r.array(array, where)):
+        spath = f"{where}[{j}]"
+        if not affine_only and isinstance(step, dict) and step.get("op") in TRANSFORM_OPS:
+            r.obj(step, spath, ("op",))
+            if j != 0:
+                raise ModelFileError(f"{spath}.op: a {step['op']} transform must be the "
+                                     "first step")
+            if fill is not None and not in_domain(step["op"], fill):
+                raise ModelFileError(f"{path}.missing.value: {fill!r} is outside the "
+                                     f"domain of {step['op']}")
+            steps.append(ScalingStep(step["op"]))
+            continue
+        if not affine_only and isinstance(step, dict) and step.get("op") == BINS:
+            r.obj(step, spath, ("op", "edges"))
+            if j != 0:
+                raise ModelFileError(f"{spath}.op: bins must be the first step")
+            edges = tuple(r.number(e, f"{spath}.edges[{i}]")
+                          for i, e in enumerate(r.array(step["edges"], f"{spath}.edges")))
+            if not edges or any(not a < b for a, b in zip(edges, edges[1:])):
+                raise ModelFileError(f"{spath}.edges: expected increasing numbers")
+            steps.append(ScalingStep(BINS, edges=edges))
+            continue
+        r.obj(step, spath, ("op", "value"))
+        if step["op"] not in SCALING_OPS:
+            allowed = SCALING_OPS if affine_only else SCALING_OPS + TRANSFORM_OPS + (BINS,)
+            raise ModelFileError(f"{spath}.op: expected one of {', '.join(allowed)}, "
+                                 f"got {step['op']!r}")
+        number = r.number(step["value"], f"{spath}.value")
+        if step["op"] == "divide" and number == 0.0:
+            raise ModelFileError(f"{spath}.value: division by zero")
+        steps.append(ScalingStep(step["op"], number))
+    return tuple(steps)
+
+
 def _read_feature(value, path) -> Feature:
     r = _Reader
     if not isinstance(value, dict):
@@ -416,38 +471,7 @@ def _read_feature(value, path) -> Feature:
             fill = None
         else:
             raise ModelFileError(f"{path}.missing.policy: expected 'impute' or 'zero', got {policy!r}")
-        steps = []
-        for j, step in enumerate(r.array(value["scaling"], f"{path}.scaling")):
-            spath = f"{path}.scaling[{j}]"
-            if isinstance(step, dict) and step.get("op") in TRANSFORM_OPS:
-                r.obj(step, spath, ("op",))
-                if j != 0:
-                    raise ModelFileError(f"{spath}.op: a {step['op']} transform must be the "
-                                         "first step")
-                if fill is not None and not in_domain(step["op"], fill):
-                    raise ModelFileError(f"{path}.missing.value: {fill!r} is outside the "
-                                         f"domain of {step['op']}")
-                steps.append(ScalingStep(step["op"]))
-                continue
-            if isinstance(step, dict) and step.get("op") == BINS:
-                r.obj(step, spath, ("op", "edges"))
-                if j != 0:
-                    raise ModelFileError(f"{spath}.op: bins must be the first step")
-                edges = tuple(r.number(e, f"{spath}.edges[{i}]")
-                              for i, e in enumerate(r.array(step["edges"], f"{spath}.edges")))
-                if not edges or any(not a < b for a, b in zip(edges, edges[1:])):
-                    raise ModelFileError(f"{spath}.edges: expected increasing numbers")
-                steps.append(ScalingStep(BINS, edges=edges))
-                continue
-            r.obj(step, spath, ("op", "value"))
-            if step["op"] not in SCALING_OPS:
-                raise ModelFileError(f"{spath}.op: expected one of "
-                                     f"{', '.join(SCALING_OPS + TRANSFORM_OPS + (BINS,))}, "
-                                     f"got {step['op']!r}")
-            number = r.number(step["value"], f"{spath}.value")
-            if step["op"] == "divide" and number == 0.0:
-                raise ModelFileError(f"{spath}.value: division by zero")
-            steps.append(ScalingStep(step["op"], number))
+        steps = _read_steps(value["scaling"], f"{path}.scaling", fill, path)
         clip = value["clip"]
         if clip is not None:
             r.array(clip, f"{path}.clip")
@@ -461,7 +485,7 @@ def _read_feature(value, path) -> Feature:
         boolean = value.get("boolean", False)
         if boolean is not True and "boolean" in value:
             raise ModelFileError(f"{path}.boolean: expected true (or no key), got {_kind(boolean)}")
-        return NumericFeature(name, fill, tuple(steps), clip, boolean)
+        return NumericFeature(name, fill, steps, clip, boolean)
     if kind == "categorical":
         r.obj(value, path, ("name", "kind", "levels", "missing", "unknown"))
         name = r.string(value["name"], f"{path}.name")
@@ -508,6 +532,18 @@ def _known_level(value, levels, path):
 
 def _read_design(value, path, by_name) -> DesignColumn:
     r = _Reader
+    if isinstance(value, dict) and "product" in value:
+        r.obj(value, path, ("feature", "product", "scaling"))
+        factors = tuple(_read_factor(f, f"{path}.product[{i}]", by_name)
+                        for i, f in enumerate(r.array(value["product"], f"{path}.product")))
+        if not factors:
+            raise ModelFileError(f"{path}.product: a product needs a factor")
+        if value["feature"] != factors[0].feature:
+            raise ModelFileError(f"{path}.feature: expected the first factor's feature "
+                                 f"{factors[0].feature!r}")
+        return DesignColumn(factors[0].feature, product=factors,
+                            scaling=_read_steps(value["scaling"], f"{path}.scaling", None, path,
+                                                affine_only=True))
     r.obj(value, path, ("feature",), optional=("levels", "missing"))
     name = r.string(value["feature"], f"{path}.feature")
     if name not in by_name:
@@ -544,12 +580,33 @@ def _read_design(value, path, by_name) -> DesignColumn:
     return DesignColumn(name, levels)
 
 
+def _read_factor(value, path, by_name) -> DesignColumn:
+    """A factor of a product: a column of its own (a numeric one with its own scaling)."""
+    r = _Reader
+    if isinstance(value, dict) and "product" in value:
+        raise ModelFileError(f"{path}: a factor cannot itself be a product")
+    if isinstance(value, dict) and "scaling" in value:
+        r.obj(value, path, ("feature", "scaling"))
+        col = _read_design({"feature": value["feature"]}, path, by_name)
+        feat = by_name[col.feature]
+        if not isinstance(feat, NumericFeature):
+            raise ModelFileError(f"{path}.scaling: only a numeric factor has scaling")
+        return DesignColumn(col.feature, scaling=_read_steps(value["scaling"], f"{path}.scaling",
+                                                             feat.fill, path))
+    col = _read_design(value, path, by_name)
+    if col.levels is None and col.missing is None:
+        raise ModelFileError(f"{path}: a numeric factor states its scaling")
+    return col
+
+
 def _check_design(design, features) -> None:
     numeric_seen: set[str] = set()
     level_seen: dict[str, set] = {}
     indicated: set[str] = set()
     for i, col in enumerate(design):
-        if col.missing is not None:
+        if col.product is not None:
+            indicated.update(f.feature for f in col.product)
+        elif col.missing is not None:
             indicated.add(col.feature)
         elif col.levels is None:
             if col.feature in numeric_seen:

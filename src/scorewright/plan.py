@@ -116,6 +116,10 @@ class Term:
     # categorical: per output, one value per level code (bins: per bin); missing: per
     # output, the contribution (weight * value) when the input is present and missing
     tables: tuple[tuple[float, ...], ...] = ()
+    # product: its factors, each (input index, "numeric", steps) | (input, "levels", codes)
+    # | (input, "missing", (present, missing)), multiplied left to right; then `steps`
+    factors: tuple = ()
+    steps: tuple = ()
 
 
 @dataclass(frozen=True)
@@ -175,7 +179,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
     terms: list[Term] = []
     for i, all_cols in columns.items():
         feat = model.features[i]
-        cols = [j for j in all_cols if model.design[j].missing is None]
+        cols = [j for j in all_cols if model.design[j].missing is None
+                and model.design[j].product is None]
         if isinstance(feat, NumericFeature) and cols and model.design[cols[0]].levels:
             # one indicator per bin: per output, the contribution of each bin
             tables = []
@@ -204,6 +209,12 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
             if any(v != 0.0 for t in tables for v in t):
                 terms.append(Term(i, "categorical", tables=tuple(tables)))
         for j in all_cols:
+            if model.design[j].product is not None:
+                weights = tuple(head.coefficients[k][j] for k in range(n_out))
+                if any(w != 0.0 for w in weights):
+                    terms.append(_product_term(model, index_of, model.design[j], weights,
+                                               prec))
+                continue
             pair = model.design[j].missing
             if pair is not None:
                 # the contribution when present and when missing, each weight * value
@@ -216,7 +227,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
     built = []
     for i, feat in enumerate(model.features):
         if isinstance(feat, NumericFeature):
-            bound = _numeric_bound(feat, term_of.get(i), budgets, prec)
+            bound = _numeric_bound(feat, term_of.get(i), budgets, prec, i,
+                                   [t for t in terms if t.kind == "product"])
             built.append(NumericInput(i, feat.name, feat.fill, bound,
                                       _steps_in(feat.scaling, prec), feat.clip, feat.boolean))
         else:
@@ -235,6 +247,30 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
         cut=head.cut,
         exp_kind=exp,
     )
+
+
+def _product_term(model, index_of, col, weights, prec: Precision) -> Term:
+    if prec.name == "float" and len(col.product) > 2:
+        # measured: float targets miss their stated tolerance on cubic terms near the guards
+        raise ScorewrightError(f"feature {col.feature!r}: a product of {len(col.product)} "
+                               "factors is not scored in single precision; use a double "
+                               "target")
+    factors = []
+    for f in col.product:
+        i = index_of[f.feature]
+        feat = model.features[i]
+        if f.missing is not None:
+            factors.append((i, "missing", f.missing))
+        elif f.levels is not None:
+            if isinstance(feat, NumericFeature):
+                raise ScorewrightError(f"feature {feat.name!r}: a bin in a product is not "
+                                       "frozen yet")
+            codes = {level: c for c, level in enumerate(feat.levels)}
+            factors.append((i, "levels", tuple(codes[v] for v in f.levels)))
+        else:
+            factors.append((i, "numeric", _steps_in(f.scaling, prec)))
+    return Term(index_of[col.feature], "product", weights=weights,
+                factors=tuple(factors), steps=tuple(col.scaling or ()))
 
 
 def _steps_in(steps, prec: Precision) -> tuple:
@@ -258,11 +294,11 @@ def _categorical_input(index: int, feat: CategoricalFeature) -> CategoricalInput
 def _term_budgets(terms, intercepts, prec: Precision) -> list[float]:
     """Per output, the largest |weight * value| one numeric term may reach so the margin
     stays within the precision's budget."""
-    n_numeric = max(1, sum(1 for t in terms if t.kind == "numeric"))
+    n_numeric = max(1, sum(1 for t in terms if t.kind in ("numeric", "product")))
     budgets = []
     for k, intercept in enumerate(intercepts):
         fixed = abs(intercept) + sum(max(abs(v) for v in t.tables[k])
-                                     for t in terms if t.kind != "numeric")
+                                     for t in terms if t.kind not in ("numeric", "product"))
         if fixed >= prec.budget / 2:
             raise ScorewrightError(
                 f"model coefficients are too large to score safely in {prec.name} "
@@ -271,16 +307,10 @@ def _term_budgets(terms, intercepts, prec: Precision) -> list[float]:
     return budgets
 
 
-def _numeric_bound(feat, term, budgets, prec: Precision) -> float:
-    """The largest power of ten B such that clamping the raw value to [-B, B] keeps every
-    scaling intermediate, every term and every margin finite (the margin stays within the
-    precision's budget)."""
-    allowed = prec.max_value
-    if term is not None:
-        for budget, weight in zip(budgets, term.weights):
-            if weight != 0.0:
-                allowed = min(allowed, budget / abs(weight))
-    for step in reversed(feat.scaling):
+def _backward(allowed: float, steps, prec: Precision) -> float:
+    """The largest |input| of these steps whose every intermediate and output stays
+    within `allowed` (and the precision's cap)."""
+    for step in reversed(steps):
         if step.op == BINS:  # a bin number, 0..len(edges)
             allowed = prec.max_value if allowed >= len(step.edges) else 0.0
             continue
@@ -305,6 +335,35 @@ def _numeric_bound(feat, term, budgets, prec: Precision) -> float:
         allowed = min(allowed, prec.max_value)
         if not allowed > 0:
             break
+    return allowed
+
+
+def _numeric_bound(feat, term, budgets, prec: Precision, index: int = -1,
+                   products=()) -> float:
+    """The largest power of ten B such that clamping the raw value to [-B, B] keeps every
+    scaling intermediate, every term and every margin finite (the margin stays within the
+    precision's budget). A product term shares its allowance among its numeric factors
+    (the n-th root, after its other factors' largest magnitudes)."""
+    allowed = prec.max_value
+    if term is not None:
+        for budget, weight in zip(budgets, term.weights):
+            if weight != 0.0:
+                allowed = min(allowed, budget / abs(weight))
+    allowed = _backward(allowed, feat.scaling, prec)
+    for t in products:
+        mine = [f for f in t.factors if f[0] == index and f[1] == "numeric"]
+        if not mine:
+            continue
+        room = min(budget / abs(w) for budget, w in zip(budgets, t.weights) if w != 0.0)
+        room = _backward(room, t.steps, prec)
+        others = 1.0
+        for f in t.factors:
+            if f[1] == "missing":
+                others *= max(1.0, abs(f[2][0]), abs(f[2][1]))
+        n = sum(1 for f in t.factors if f[1] == "numeric")
+        room = (room / others) ** (1.0 / n) if room > 0 else 0.0
+        for f in mine:
+            allowed = min(allowed, _backward(room, f[2], prec))
     limit = allowed / 2  # slack for rounding in the forward direction
     if not limit >= MIN_USEFUL_BOUND[prec.name]:
         raise ScorewrightError(

@@ -93,6 +93,9 @@ class _Builder:
         self.types: dict[str, str] = {}
         self.count = 0
         self.missing: dict[int, str] = {}  # input index -> its missing flag
+        self.clamped: dict[int, str] = {}  # numeric input -> its value, filled and clamped
+        self.codes: dict[int, str] = {}    # categorical input -> its code after policies
+        self.products: dict[int, str] = {}  # a product term (by id) -> its value
 
     def emit(self, op: str, *args, attr=None, hint: str = "t") -> str:
         if op not in PRIMITIVES:
@@ -118,7 +121,7 @@ def lower(plan: Plan) -> Program:
         if inp.kind == "numeric":
             design[inp.index] = _lower_numeric(b, inp, plan.precision.name == "float")
         else:
-            design[inp.index] = _lower_code(b, inp)
+            design[inp.index] = b.codes[inp.index] = _lower_code(b, inp)
     margins = []
     for k in range(plan.n_outputs):
         terms = []
@@ -126,6 +129,8 @@ def lower(plan: Plan) -> Program:
             v = design[term.input]
             if term.kind == "numeric":
                 terms.append(b.emit("mul", Const(term.weights[k]), v, hint="w"))
+            elif term.kind == "product":
+                terms.append(_lower_product(b, plan, term, k))
             elif term.kind == "bins":
                 # the bin number (the design value, exact small integers) picks the
                 # contribution; missing without a fill contributes nothing
@@ -197,19 +202,52 @@ def _lower_numeric(b: _Builder, inp: NumericInput, single: bool = False) -> str:
                hint="v")
     v = b.emit("max", v, Const(-inp.bound), hint="v")
     v = b.emit("min", v, Const(inp.bound), hint="v")
-    for step in inp.steps:
-        if step.op == BINS:
-            v = _select_by_bin(b, v, step.edges, [float(i) for i in range(len(step.edges) + 1)])
-        elif step.op in _TRANSFORM:
-            v = _TRANSFORM[step.op](b, v, single)
-        else:
-            v = b.emit(_STEP_OP[step.op], v, Const(step.value), hint="v")
+    b.clamped[inp.index] = v
+    v = _apply_steps(b, v, inp.steps, single)
     if inp.clip is not None:
         v = b.emit("max", v, Const(inp.clip[0]), hint="v")
         v = b.emit("min", v, Const(inp.clip[1]), hint="v")
     if inp.fill is None:
         v = b.emit("select", missing, Const(0.0), v, hint="v")
     return v
+
+
+def _apply_steps(b: _Builder, v, steps, single: bool = False):
+    for step in steps:
+        if step.op == BINS:
+            v = _select_by_bin(b, v, step.edges, [float(i) for i in range(len(step.edges) + 1)])
+        elif step.op in _TRANSFORM:
+            v = _TRANSFORM[step.op](b, v, single)
+        else:
+            v = b.emit(_STEP_OP[step.op], v, Const(step.value), hint="v")
+    return v
+
+
+def _lower_product(b: _Builder, plan: Plan, term, k: int):
+    """weight_k * steps(f_1 * f_2 * ...): a numeric factor is its input's clamped value
+    through the factor's own steps (0.0 when missing without a fill), a levels factor 1.0
+    when the code is one of them (else 0.0), a missing factor its two values."""
+    if id(term) in b.products:
+        return b.emit("mul", Const(term.weights[k]), b.products[id(term)], hint="w")
+    single = plan.precision.name == "float"
+    p = None
+    for i, kind, data in term.factors:
+        inp = plan.inputs[i]
+        if kind == "numeric":
+            f = _apply_steps(b, b.clamped[i], data, single)
+            if inp.fill is None:
+                f = b.emit("select", b.missing[i], Const(0.0), f, hint="v")
+        elif kind == "levels":
+            hit = None
+            for code in data:
+                eq = b.emit("eq", b.codes[i], Const(code), hint="f")
+                hit = eq if hit is None else b.emit("select", hit, hit, eq, hint="f")
+            f = b.emit("select", hit, Const(1.0), Const(0.0), hint="v")
+        else:
+            f = b.emit("select", b.missing[i], Const(data[1]), Const(data[0]), hint="v")
+        p = f if p is None else b.emit("mul", p, f, hint="v")
+    p = b.products[id(term)] = _apply_steps(b, p, term.steps, single)
+    return b.emit("mul", Const(term.weights[k]), p, hint="w")
 
 
 def _select_by_bin(b: _Builder, x, edges, values):

@@ -53,6 +53,9 @@ def emitter(target: str):
                     raise ScorewrightError(f"target {target} cannot express the {step.op} "
                                            f"transform of feature {feat.name!r} yet")
         for col in model.design:
+            if col.product is not None:
+                raise ScorewrightError(f"target {target} cannot express the product column "
+                                       f"of feature {col.feature!r} yet")
             if col.missing is not None:
                 raise ScorewrightError(f"target {target} cannot express the missing "
                                        f"indicator of feature {col.feature!r} yet")

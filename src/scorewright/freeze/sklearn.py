@@ -37,6 +37,8 @@ class Chain:
     encoded: bool = False
     indicator: bool = False              # the feature's missing indicator (0/1, then steps)
     binned: bool = False                 # one of KBinsDiscretizer's one-hot columns (levels)
+    product: tuple | None = None         # PolynomialFeatures: the factors (DesignColumns)
+    constant: bool = False               # PolynomialFeatures' bias column (then steps)
 
 
 class Unsupported(ScorewrightError):
@@ -54,7 +56,13 @@ def freeze_estimator(estimator, feature_names=None, name=None) -> FrozenModel:
     if n_cols != len(chains):
         raise ScorewrightError(f"the estimator has {n_cols} coefficients per output but the "
                                f"pipeline produces {len(chains)} columns")
-    features, design = _features_and_design(chains, raw_names)
+    features, design, constants = _features_and_design(chains, raw_names)
+    if constants:  # a bias column: its coefficient times its value joins the intercept
+        keep = [j for j in range(n_cols) if j not in constants]
+        head = Head(head.task, head.link, head.classes,
+                    tuple(b + math.fsum(row[j] * v for j, v in constants.items())
+                          for b, row in zip(head.intercepts, head.coefficients)),
+                    tuple(tuple(row[j] for j in keep) for row in head.coefficients), head.cut)
     notes = [f"scikit-learn cannot score {f.name}'s values {outside_text(f.scaling[0].op)} "
              f"(np.{f.scaling[0].op} has no finite value there); the frozen model treats "
              "them as missing" for f in features
@@ -129,8 +137,8 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
     from sklearn.impute import MissingIndicator, SimpleImputer
     from sklearn.pipeline import Pipeline
     from sklearn.preprocessing import (FunctionTransformer, KBinsDiscretizer, MaxAbsScaler,
-                                       MinMaxScaler, OneHotEncoder, RobustScaler,
-                                       StandardScaler)
+                                       MinMaxScaler, OneHotEncoder, PolynomialFeatures,
+                                       RobustScaler, StandardScaler)
 
     if step in (None, "passthrough"):
         return chains
@@ -147,6 +155,8 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
         return _indicators(step, chains, path)
     if kind is KBinsDiscretizer:
         return _bins(step, chains, path)
+    if kind is PolynomialFeatures:
+        return _polynomial(step, chains, path)
     if kind is StandardScaler:
         return _scale(chains, path, "StandardScaler",
                       ("subtract", getattr(step, "mean_", None) if step.with_mean else None),
@@ -198,7 +208,7 @@ def _column_transformer(ct, chains, path):
 def _copy(chain: Chain) -> Chain:
     return Chain(chain.feature, chain.fill, list(chain.steps), chain.clip, chain.levels,
                  chain.categories, chain.unknown_level, chain.encoded, chain.indicator,
-                 chain.binned)
+                 chain.binned, chain.product, chain.constant)
 
 
 def _indicator_features(ind, path) -> list[int]:
@@ -303,7 +313,76 @@ def _bins(kb, chains, path):
     return out
 
 
+def _polynomial(poly, chains, path):
+    """PolynomialFeatures: its columns in its own order and multiplication order (each
+    column of degree d is a column of degree d - 1 times one input column, as its dense
+    transform computes it); the bias column becomes a constant folded into the intercept."""
+    if poly._min_degree > 1:
+        raise Unsupported(f"PolynomialFeatures(degree={poly.degree!r}) at {path}: a minimum "
+                          "degree above 1 is not frozen")
+    if len(chains) != poly.n_features_in_:
+        raise Unsupported(f"PolynomialFeatures at {path} sees {poly.n_features_in_} columns, "
+                          f"the pipeline gives it {len(chains)}")
+    factors = [_factor(c, path) for c in chains]
+    # the dense transform's column order: degree 1, then each degree from the last
+    columns: list[tuple[int, ...]] = [(j,) for j in range(len(chains))]
+    index = list(range(len(chains))) + [len(chains)]
+    for _ in range(2, poly._max_degree + 1):
+        new_index = []
+        end = index[-1]
+        for j in range(len(chains)):
+            start = index[j]
+            new_index.append(len(columns))
+            if poly.interaction_only:
+                start += index[j + 1] - index[j]
+            if start >= end:
+                break
+            columns += [columns[c] + (j,) for c in range(start, end)]
+        new_index.append(len(columns))
+        index = new_index
+    powers = [tuple(int(p) for p in row) for row in poly.powers_]
+    out = [Chain(chains[0].feature, constant=True)] if poly.include_bias else []
+    for cols in columns:
+        if len(cols) == 1:
+            out.append(chains[cols[0]])
+        else:
+            out.append(Chain(chains[cols[0]].feature, product=tuple(factors[c] for c in cols)))
+    made = [tuple(sum(1 for c in cols if c == j) for j in range(len(chains)))
+            for cols in columns]
+    if ([(1 if c.constant else 0) for c in out[:1]] != [int(poly.include_bias)]
+            or powers != ([(0,) * len(chains)] if poly.include_bias else []) + made):
+        raise Unsupported(f"PolynomialFeatures at {path}: its columns are not in the order "
+                          "this scikit-learn version was read for")
+    return out
+
+
+def _factor(chain, path) -> DesignColumn:
+    """A column as a factor of a product, as it stands now (a later scaler changes the
+    column, not the factor)."""
+    if chain.product is not None or chain.constant or chain.binned:
+        raise Unsupported(f"PolynomialFeatures at {path} takes a column that is already a "
+                          "product, a constant or a bin")
+    if chain.clip is not None:
+        raise Unsupported(f"PolynomialFeatures at {path} takes a clipped column")
+    if chain.indicator:
+        return _named(chain, missing=(_indicator_value(chain, 0.0),
+                                      _indicator_value(chain, 1.0)))
+    if chain.encoded:
+        return _named(chain, levels=tuple(chain.levels))
+    return _named(chain, scaling=tuple(chain.steps))
+
+
+def _named(chain, **fields) -> DesignColumn:
+    # the feature's name is set when the design is read out (raw names are known there)
+    return DesignColumn(str(chain.feature), **fields)
+
+
 def _require_raw(chain, path, what):
+    if chain.product is not None or chain.constant:
+        if not what.endswith("Scaler"):
+            raise Unsupported(f"{what} at {path} takes a PolynomialFeatures or scaled one-hot "
+                              "column; only scalers may")
+        return
     if chain.binned:
         raise Unsupported(f"{what} at {path} takes KBinsDiscretizer's one-hot columns; "
                           "nothing may follow them but the estimator")
@@ -317,6 +396,9 @@ def _require_raw(chain, path, what):
 
 def _scale(chains, path, what, *ops):
     for chain_index, chain in enumerate(chains):
+        if chain.encoded and chain.product is None and not chain.binned:
+            # a scaled one-hot column: the one-factor product of its indicator, then steps
+            chain.product = (_factor(chain, path),)
         _require_raw(chain, path, what)
         if chain.clip is not None:
             raise Unsupported(f"{what} at {path} follows a clipping MinMaxScaler")
@@ -325,7 +407,7 @@ def _scale(chains, path, what, *ops):
                 continue
             value = float(np.asarray(values, dtype=np.float64)[chain_index])
             chain.steps.append(ScalingStep(op, value))
-        if isinstance(chain.fill, str):
+        if isinstance(chain.fill, str) and chain.product is None:
             raise Unsupported(f"{what} at {path} scales a column imputed with text")
     return chains
 
@@ -408,8 +490,20 @@ def _features_and_design(chains, raw_names):
     categorical: dict[int, list[Chain]] = {}
     indicated: set[int] = set()
     binned: dict[int, Chain] = {}
-    for chain in chains:
+    constants: dict[int, float] = {}
+    for position, chain in enumerate(chains):
         name = raw_names[chain.feature]
+        if chain.constant:
+            constants[position] = _indicator_value(chain, 1.0)
+            continue
+        if chain.product is not None:
+            if chain.encoded:  # a scaled one-hot column: its feature is categorical
+                categorical.setdefault(chain.feature, []).append(chain)
+            factors = tuple(DesignColumn(raw_names[int(f.feature)], f.levels, f.missing,
+                                         None, f.scaling) for f in chain.product)
+            design.append(DesignColumn(factors[0].feature, product=factors,
+                                       scaling=tuple(chain.steps)))
+            continue
         if chain.binned:
             if chain.feature in numeric or chain.feature in categorical:
                 raise Unsupported(f"feature {name!r} reaches the estimator twice")
@@ -452,7 +546,7 @@ def _features_and_design(chains, raw_names):
             features.append(CategoricalFeature(name, c.categories, c.fill, c.unknown_level))
         elif i in indicated:
             features.append(NumericFeature(name, None))  # its indicator alone
-    return tuple(features), tuple(design)
+    return tuple(features), tuple(design), constants
 
 
 def _indicator_value(chain: Chain, flag: float) -> float:
