@@ -84,9 +84,13 @@ def _split_names(text: str | None) -> list[str] | None:
               help="torch state_dict (.pt): a pickled fitted scikit-learn transformer that "
                    "made the layer's inputs.")
 @click.option("--classes", help="torch state_dict (.pt): comma-separated class labels.")
+@click.option("--offset", metavar="COLUMN",
+              help="statsmodels results fitted with offset=: the column that holds it.")
+@click.option("--exposure", metavar="COLUMN",
+              help="statsmodels results fitted with exposure=: the column that holds it.")
 @click.option("--force", is_flag=True, help="Overwrite an existing output file.")
 def freeze(pickle_file, output, name, feature_names, check_data, task, preprocessor, classes,
-           force):
+           offset, exposure, force):
     """Freeze a fitted scikit-learn model, or statsmodels results (results.save), from a
     pickle or joblib file; or a PyTorch Linear layer from its saved state_dict (a .pt file,
     read with weights_only=True) with --task and --feature-names or --preprocessor.
@@ -119,6 +123,8 @@ def freeze(pickle_file, output, name, feature_names, check_data, task, preproces
                                    "state_dict (.pt) only")
         click.echo(PICKLE_WARNING.format(path=src), err=True)
         estimator = load_pickled_estimator(src)
+    if offset is not None or exposure is not None:
+        extra.update(offset=offset, exposure=exposure)
     model, checked = freeze_checked(estimator, feature_names=_split_names(feature_names),
                                     name=name, check_rows=rows, **extra)
     for note in checked.notes:

@@ -21,7 +21,7 @@ PICKLE_WARNING = ("warning: loading {path} runs code stored in the file; "
 
 
 def freeze(estimator, feature_names=None, name=None, check_rows=None, preprocessor=None,
-           task=None, classes=None) -> FrozenModel:
+           task=None, classes=None, offset=None, exposure=None) -> FrozenModel:
     """Freeze a fitted scikit-learn estimator or pipeline, fitted statsmodels results, or a
     PyTorch linear model (the safe, in-process path).
 
@@ -34,17 +34,22 @@ def freeze(estimator, feature_names=None, name=None, check_rows=None, preprocess
     DataFrame, or a list of dicts, holding the raw inputs as the estimator takes
     them) and on rows derived from the model; a model that scores differently is
     refused (FreezeMismatch). A numeric column of dtype bool in `check_rows` marks
-    its feature boolean. What the check found worth saying comes as warnings."""
+    its feature boolean. What the check found worth saying comes as warnings.
+
+    statsmodels results fitted with an `offset=` or `exposure=` array take the name of
+    the column that holds it (`offset="..."`, `exposure="..."`): an input of the frozen
+    model, whose artifacts then output the expected count."""
     model, result = freeze_checked(estimator, feature_names=feature_names, name=name,
                                    check_rows=check_rows, preprocessor=preprocessor,
-                                   task=task, classes=classes)
+                                   task=task, classes=classes, offset=offset,
+                                   exposure=exposure)
     for note in result.notes:
         warnings.warn(note, FreezeNote, stacklevel=2)
     return model
 
 
 def freeze_checked(estimator, feature_names=None, name=None, check_rows=None,
-                   preprocessor=None, task=None, classes=None
+                   preprocessor=None, task=None, classes=None, offset=None, exposure=None
                    ) -> tuple[FrozenModel, CheckResult]:
     """Freeze, mark boolean features from the check rows' dtypes, and self-check."""
     if is_torch_module(estimator):
@@ -53,8 +58,11 @@ def freeze_checked(estimator, feature_names=None, name=None, check_rows=None,
     if preprocessor is not None or task is not None or classes is not None:
         raise ScorewrightError("preprocessor, task and classes apply to a torch module only")
     if is_statsmodels(estimator):
-        model = freeze_results(estimator, feature_names=feature_names, name=name)
+        model = freeze_results(estimator, feature_names=feature_names, name=name,
+                               offset=offset, exposure=exposure)
         source = ResultsSource(estimator, model)
+    elif offset is not None or exposure is not None:
+        raise ScorewrightError("offset and exposure apply to statsmodels results only")
     else:
         model = freeze_estimator(estimator, feature_names=feature_names, name=name)
         source = estimator

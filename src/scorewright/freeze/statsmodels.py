@@ -62,15 +62,22 @@ def is_statsmodels(obj) -> bool:
     return (type(obj).__module__ or "").split(".")[0] == "statsmodels"
 
 
-def freeze_results(results, feature_names=None, name=None) -> FrozenModel:
-    """The frozen model of fitted statsmodels results (a results object, or its wrapper)."""
+def freeze_results(results, feature_names=None, name=None, offset=None,
+                   exposure=None) -> FrozenModel:
+    """The frozen model of fitted statsmodels results (a results object, or its wrapper).
+
+    A model fitted with an `offset=` or `exposure=` array needs the name of the column
+    that holds it when scoring (`offset="..."`, `exposure="..."`): it becomes an input
+    added to the margin with weight 1 (the exposure through its log), so the artifacts
+    output the expected count. A missing offset counts as 0; a missing or non-positive
+    exposure as 1 (the count is then the rate per unit of exposure)."""
     model = getattr(results, "model", None)
     if model is None or not hasattr(results, "params"):
         raise Unsupported(f"{type(results).__name__}: freeze takes fitted statsmodels results "
                           "(what .fit() returns), not a model")
     kind = type(model).__name__
     task, link = _task_and_link(model, kind)
-    _refuse_offsets(model, kind)
+    offsets = _offset_columns(model, kind, link, offset, exposure)
     # the exog columns (a NegativeBinomial also names its alpha among exog_names)
     names = list(model.exog_names)[:np.shape(model.exog)[1]]
     params = np.asarray(results.params, dtype=np.float64).reshape(-1)[:len(names)]
@@ -86,6 +93,16 @@ def freeze_results(results, feature_names=None, name=None) -> FrozenModel:
     else:
         features, design, coefs, intercept, inputs = _from_arrays(model, names, params,
                                                                   feature_names)
+    taken = {f.name for f in features}
+    for attr, column in offsets:
+        if column in taken:
+            raise ScorewrightError(f"{attr}={column!r}: the model already has a feature of "
+                                   "that name")
+        steps = (ScalingStep("log"),) if attr == "exposure" else ()
+        features.append(NumericFeature(column, None, steps))
+        design.append(DesignColumn(column))
+        coefs.append(1.0)
+        inputs.append(column)
     classes, cut = ((0, 1), half_cut(link)) if task == "binary" else (None, None)
     head = Head(task, link, classes, (intercept,), (tuple(coefs),), cut)
     source = f"statsmodels {kind}"
@@ -97,8 +114,16 @@ def freeze_results(results, feature_names=None, name=None) -> FrozenModel:
         source += f": {formula}"
     transforms = [(f.name, f.scaling[0].op) for f in features
                   if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
+    prov = _provenance(source, inputs, [t for t in transforms
+                                        if t[0] not in dict(offsets).values()])
+    for attr, column in offsets:
+        prov["inputs"][attr] = column
+        prov["notes"].append(
+            f"{column} is the {attr}: missing, it counts as 0" if attr == "offset" else
+            f"{column} is the exposure: missing or not positive, it counts as 1 (the "
+            "count is then the rate per unit of exposure)")
     return FrozenModel(name or kind.lower(), tuple(features), tuple(design), head,
-                       _provenance(source, inputs, transforms)).sealed()
+                       prov).sealed()
 
 
 def _provenance(source: str, inputs: list[str], transforms=()) -> dict:
@@ -165,11 +190,23 @@ def _normal():
     return stats.norm
 
 
-def _refuse_offsets(model, kind: str) -> None:
-    for attr in ("offset", "exposure"):
-        if getattr(model, attr, None) is not None:
-            raise Unsupported(f"{kind} was fitted with an {attr}: a frozen model has no "
-                              f"{attr} input yet; refit without it to freeze")
+def _offset_columns(model, kind: str, link: str, offset, exposure) -> list:
+    """[(attr, column)] for the offset and exposure the model was fitted with."""
+    out = []
+    for attr, column in (("offset", offset), ("exposure", exposure)):
+        fitted = getattr(model, attr, None) is not None
+        if fitted and column is None:
+            raise Unsupported(f"{kind} was fitted with an {attr}: name the column that holds "
+                              f"it, freeze(results, {attr}='column') or --{attr} COLUMN")
+        if column is not None and not fitted:
+            raise ScorewrightError(f"{attr}={column!r}: {kind} was fitted without an {attr}")
+        if column is not None:
+            if not isinstance(column, str) or not column:
+                raise ScorewrightError(f"{attr}: expected a column name, got {column!r}")
+            if attr == "exposure" and link != "log":
+                raise Unsupported(f"{kind} has an exposure but no log link")
+            out.append((attr, column))
+    return out
 
 
 def _from_arrays(model, names, params, feature_names):
@@ -314,6 +351,8 @@ class ResultsSource:
 
     def __init__(self, results, model: FrozenModel):
         self.results = results
+        inputs = model.provenance["inputs"]
+        self.offsets = {attr: inputs[attr] for attr in ("offset", "exposure") if attr in inputs}
         self.formula = getattr(results.model.data, "model_spec", None) is not None
         self.feature_names_in_ = np.array(model.provenance["inputs"]["feature_names"],
                                           dtype=object)
@@ -323,6 +362,7 @@ class ResultsSource:
                            if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
 
     def _exog(self, frame):
+        frame = frame.drop(columns=list(self.offsets.values()))
         if self.formula:
             return frame
         x = np.asarray(frame, dtype=np.float64)
@@ -331,8 +371,11 @@ class ResultsSource:
         return x
 
     def predict(self, frame):
+        given = {attr: np.asarray(frame[column], dtype=np.float64)
+                 for attr, column in self.offsets.items()}
         with np.errstate(all="ignore"):
-            out = np.asarray(self.results.predict(self._exog(frame)), dtype=np.float64)
+            out = np.asarray(self.results.predict(self._exog(frame), **given),
+                             dtype=np.float64)
         if len(out) != len(frame):  # a row dropped for a missing value
             raise ValueError("statsmodels dropped a row it cannot score")
         # outside a transform's domain statsmodels predicts NaN, or at the edge the limit
