@@ -90,6 +90,9 @@ def describe_model(model: FrozenModel) -> str:
             if col.product is not None:
                 name = " * ".join(_factor_name(f) for f in col.product)
                 per_unit = c
+            elif col.encoded is not None:
+                name = f"{col.feature!r} encoded"
+                per_unit = c
             elif col.missing is not None:
                 # per "missing": the change from present to missing, in margin units
                 name = f"{col.feature!r} missing"

@@ -111,6 +111,10 @@ class DesignColumn:
     # `feature` is the first factor's. One factor: a scaled indicator column.
     product: tuple["DesignColumn", ...] | None = None
     scaling: tuple[ScalingStep, ...] | None = None
+    # format version 2: a categorical feature's levels encoded as numbers (an ordinal or
+    # target encoding, after any scaling): (value per level, value when unseen, value
+    # when missing)
+    encoded: tuple[tuple[float, ...], float, float] | None = None
 
 
 @dataclass(frozen=True)
@@ -180,6 +184,8 @@ def needs_version(model: FrozenModel) -> tuple[int, str]:
             return 2, f"the missing indicator of feature {col.feature!r}"
         if col.product is not None:
             return 2, f"the product column of feature {col.feature!r}"
+        if col.encoded is not None:
+            return 2, f"the encoded column of feature {col.feature!r}"
     return 1, ""
 
 
@@ -243,6 +249,9 @@ def _column_entry(col: DesignColumn) -> dict:
         entry["product"] = [_column_entry(f) for f in col.product]
     if col.scaling is not None:
         entry["scaling"] = _steps_entry(col.scaling)
+    if col.encoded is not None:
+        entry["encoded"] = {"values": list(col.encoded[0]), "unseen": col.encoded[1],
+                            "missing": col.encoded[2]}
     return entry
 
 
@@ -544,11 +553,25 @@ def _read_design(value, path, by_name) -> DesignColumn:
         return DesignColumn(factors[0].feature, product=factors,
                             scaling=_read_steps(value["scaling"], f"{path}.scaling", None, path,
                                                 affine_only=True))
-    r.obj(value, path, ("feature",), optional=("levels", "missing"))
+    r.obj(value, path, ("feature",), optional=("levels", "missing", "encoded"))
     name = r.string(value["feature"], f"{path}.feature")
     if name not in by_name:
         raise ModelFileError(f"{path}.feature: no feature named {name!r}")
     feat = by_name[name]
+    if "encoded" in value:
+        if set(value) != {"feature", "encoded"}:
+            raise ModelFileError(f"{path}: an encoded column has no levels or missing")
+        if not isinstance(feat, CategoricalFeature):
+            raise ModelFileError(f"{path}.encoded: {name!r} is not categorical")
+        enc = r.obj(value["encoded"], f"{path}.encoded", ("values", "unseen", "missing"))
+        values = tuple(r.number(v, f"{path}.encoded.values[{i}]") for i, v in
+                       enumerate(r.array(enc["values"], f"{path}.encoded.values")))
+        if len(values) != len(feat.levels):
+            raise ModelFileError(f"{path}.encoded.values: expected one value per level of "
+                                 f"{name!r} ({len(feat.levels)})")
+        return DesignColumn(name, encoded=(values, r.number(enc["unseen"], f"{path}.encoded"
+                                                            ".unseen"),
+                                           r.number(enc["missing"], f"{path}.encoded.missing")))
     if "missing" in value:
         if "levels" in value:
             raise ModelFileError(f"{path}: a column is a missing indicator or has levels, "
@@ -606,7 +629,7 @@ def _check_design(design, features) -> None:
     for i, col in enumerate(design):
         if col.product is not None:
             indicated.update(f.feature for f in col.product)
-        elif col.missing is not None:
+        elif col.missing is not None or col.encoded is not None:
             indicated.add(col.feature)
         elif col.levels is None:
             if col.feature in numeric_seen:

@@ -111,15 +111,27 @@ class Term:
     """One input's contribution to each margin."""
 
     input: int                           # index into Plan.inputs
-    kind: str                            # "numeric", "categorical", "bins" or "missing"
+    kind: str  # "numeric", "categorical", "encoded", "bins", "missing" or "product"
     weights: tuple[float, ...] = ()      # numeric: one weight per output
-    # categorical: per output, one value per level code (bins: per bin); missing: per
-    # output, the contribution (weight * value) when the input is present and missing
+    # categorical: per output, one value per level code (bins: per bin); encoded: the
+    # same, then the unseen and the missing contributions; missing: per output, the
+    # contribution (weight * value) when the input is present and missing
     tables: tuple[tuple[float, ...], ...] = ()
     # product: its factors, each (input index, "numeric", steps) | (input, "levels", codes)
     # | (input, "missing", (present, missing)), multiplied left to right; then `steps`
     factors: tuple = ()
     steps: tuple = ()
+
+    @property
+    def lookups(self) -> tuple:
+        """The tables the program looks this term up in by level code, one per output:
+        a categorical term's tables; an encoded term's values per level (its last two
+        entries, the unseen and missing contributions, are selected, not looked up)."""
+        if self.kind == "categorical":
+            return self.tables
+        if self.kind == "encoded":
+            return tuple(t[:-2] for t in self.tables)
+        return ()
 
 
 @dataclass(frozen=True)
@@ -180,7 +192,7 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
     for i, all_cols in columns.items():
         feat = model.features[i]
         cols = [j for j in all_cols if model.design[j].missing is None
-                and model.design[j].product is None]
+                and model.design[j].product is None and model.design[j].encoded is None]
         if isinstance(feat, NumericFeature) and cols and model.design[cols[0]].levels:
             # one indicator per bin: per output, the contribution of each bin
             tables = []
@@ -209,6 +221,14 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
             if any(v != 0.0 for t in tables for v in t):
                 terms.append(Term(i, "categorical", tables=tuple(tables)))
         for j in all_cols:
+            enc = model.design[j].encoded
+            if enc is not None:
+                # per output: weight * value per level, then unseen, then missing
+                tables = tuple(tuple(head.coefficients[k][j] * v
+                                     for v in (*enc[0], enc[1], enc[2])) for k in range(n_out))
+                if any(v != 0.0 for t in tables for v in t):
+                    terms.append(Term(i, "encoded", tables=tables))
+                continue
             if model.design[j].product is not None:
                 weights = tuple(head.coefficients[k][j] for k in range(n_out))
                 if any(w != 0.0 for w in weights):

@@ -129,6 +129,13 @@ def lower(plan: Plan) -> Program:
             v = design[term.input]
             if term.kind == "numeric":
                 terms.append(b.emit("mul", Const(term.weights[k]), v, hint="w"))
+            elif term.kind == "encoded":
+                table = term.tables[k]
+                w = b.emit("lookup", v, attr=table[:-2], hint="w")
+                w = b.emit("select", b.emit("eq", v, Const(UNSEEN_CODE), hint="f"),
+                           Const(table[-2]), w, hint="w")
+                terms.append(b.emit("select", b.emit("eq", v, Const(MISSING_CODE), hint="f"),
+                                    Const(table[-1]), w, hint="w"))
             elif term.kind == "product":
                 terms.append(_lower_product(b, plan, term, k))
             elif term.kind == "bins":

@@ -53,8 +53,9 @@ def emitter(target: str):
                     raise ScorewrightError(f"target {target} cannot express the {step.op} "
                                            f"transform of feature {feat.name!r} yet")
         for col in model.design:
-            if col.product is not None:
-                raise ScorewrightError(f"target {target} cannot express the product column "
+            if col.product is not None or col.encoded is not None:
+                what = "product" if col.product is not None else "encoded"
+                raise ScorewrightError(f"target {target} cannot express the {what} column "
                                        f"of feature {col.feature!r} yet")
             if col.missing is not None:
                 raise ScorewrightError(f"target {target} cannot express the missing "

@@ -139,9 +139,9 @@ def _tables(plan: Plan, prec: CPrecision, prefix: str) -> list[dict]:
     final 0.0 for "no level"."""
     out = []
     for term in plan.terms:
-        if term.kind != "categorical":
+        if not term.lookups:
             continue
-        rows = [[prec.literal(x) for x in table] + [prec.literal(0.0)] for table in term.tables]
+        rows = [[prec.literal(x) for x in table] + [prec.literal(0.0)] for table in term.lookups]
         out.append({"name": table_name(prefix, term.input), "rows": rows, "width": len(rows[0]),
                     "comment": comment_text(plan.inputs[term.input].name)})
     return out
@@ -227,5 +227,4 @@ def _accumulate(k: int, term: str, started: list[bool]) -> str:
 def _table_names(plan: Plan, prefix: str) -> dict[tuple, str]:
     """Each lookup table of the program as a row of the categorical term's table."""
     return {table: f"{table_name(prefix, term.input)}[{k}]"
-            for term in plan.terms if term.kind == "categorical"
-            for k, table in enumerate(term.tables)}
+            for term in plan.terms for k, table in enumerate(term.lookups)}

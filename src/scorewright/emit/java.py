@@ -151,7 +151,7 @@ def context(plan: Plan, name: str) -> dict:
     rename = {m: f"m[{k}]" for k, m in enumerate(split.margins) if isinstance(m, str)}
     tables = {}
     for term in plan.terms:
-        for k, table in enumerate(term.tables if term.kind == "categorical" else ()):
+        for k, table in enumerate(term.lookups):
             tables.setdefault(table, f"Table{term.input}_{k}.T")
     r = Renderer(program, spelling(plan), sources, rename, tables)
     started = [False] * plan.n_outputs

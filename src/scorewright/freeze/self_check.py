@@ -341,7 +341,7 @@ def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> N
             raise FreezeMismatch(_mismatch_message(model, what, int(i), records[i],
                                                    source[i], ref[i]))
         for c in cols:
-            result.none_rules.setdefault(c, _missing_rule(model.feature(c)))
+            result.none_rules.setdefault(c, _missing_rule(model.feature(c), model))
 
 
 def _none_spelling(estimator, model, row_frame, ref_row, work, classifier) -> list[str]:
@@ -362,7 +362,11 @@ def _none_spelling(estimator, model, row_frame, ref_row, work, classifier) -> li
     return cols
 
 
-def _missing_rule(feat) -> str:
+def _missing_rule(feat, model=None) -> str:
+    if model is not None and any(c.feature == feat.name and c.encoded is not None
+                                 for c in model.design):
+        return (f"{feat.name!r} None is read as missing, as scikit-learn reads NaN (it "
+                "reads None as an unseen level)")
     if isinstance(feat, CategoricalFeature) and feat.fill is not None:
         return f"{feat.name!r} missing takes the level {feat.fill!r}"
     return f"{feat.name!r} missing is treated as an unseen level"

@@ -38,6 +38,7 @@ class Chain:
     indicator: bool = False              # the feature's missing indicator (0/1, then steps)
     binned: bool = False                 # one of KBinsDiscretizer's one-hot columns (levels)
     product: tuple | None = None         # PolynomialFeatures: the factors (DesignColumns)
+    encoding: tuple | None = None        # ordinal/target encoded: (values, unseen, missing)
     constant: bool = False               # PolynomialFeatures' bias column (then steps)
 
 
@@ -137,8 +138,9 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
     from sklearn.impute import MissingIndicator, SimpleImputer
     from sklearn.pipeline import Pipeline
     from sklearn.preprocessing import (FunctionTransformer, KBinsDiscretizer, MaxAbsScaler,
-                                       MinMaxScaler, OneHotEncoder, PolynomialFeatures,
-                                       RobustScaler, StandardScaler)
+                                       MinMaxScaler, OneHotEncoder, OrdinalEncoder,
+                                       PolynomialFeatures, RobustScaler, StandardScaler,
+                                       TargetEncoder)
 
     if step in (None, "passthrough"):
         return chains
@@ -157,6 +159,10 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
         return _bins(step, chains, path)
     if kind is PolynomialFeatures:
         return _polynomial(step, chains, path)
+    if kind is OrdinalEncoder:
+        return _ordinal(step, chains, path)
+    if kind is TargetEncoder:
+        return _target(step, chains, path)
     if kind is StandardScaler:
         return _scale(chains, path, "StandardScaler",
                       ("subtract", getattr(step, "mean_", None) if step.with_mean else None),
@@ -208,7 +214,7 @@ def _column_transformer(ct, chains, path):
 def _copy(chain: Chain) -> Chain:
     return Chain(chain.feature, chain.fill, list(chain.steps), chain.clip, chain.levels,
                  chain.categories, chain.unknown_level, chain.encoded, chain.indicator,
-                 chain.binned, chain.product, chain.constant)
+                 chain.binned, chain.product, chain.encoding, chain.constant)
 
 
 def _indicator_features(ind, path) -> list[int]:
@@ -249,6 +255,10 @@ def _imputer(imp, chains, path):
         raise Unsupported(f"SimpleImputer at {path} dropped all-missing columns; refit with "
                           "keep_empty_features=True or remove those columns")
     for chain, value in zip(chains, stats):
+        if chain.encoding is not None:  # an encoded column: its NaN encodings take the fill
+            fill = float(value)
+            chain.encoding = _mapped(chain.encoding, lambda v: fill if math.isnan(v) else v)
+            continue
         _require_raw(chain, path, "SimpleImputer")
         if chain.fill is not None:
             continue  # an earlier imputer already filled every missing value
@@ -311,6 +321,68 @@ def _bins(kb, chains, path):
             out.append(Chain(chain.feature, fill=chain.fill, steps=[step], levels=(b,),
                              binned=True))
     return out
+
+
+def _mapped(encoding, f):
+    """An encoding (values, unseen, missing) with f applied to every number (None, where
+    scikit-learn raises, stays None)."""
+    values, unseen, missing = encoding
+    return (tuple(f(v) for v in values), None if unseen is None else f(unseen),
+            None if missing is None else f(missing))
+
+
+def _stepped(encoding, step):
+    chain = Chain(0, steps=[step])
+    return _mapped(encoding, lambda v: _indicator_value(chain, v))
+
+
+def _ordinal(enc, chains, path):
+    """OrdinalEncoder: each level its index; an unseen level unknown_value (NaN under
+    handle_unknown='error': scikit-learn raises), a missing one encoded_missing_value."""
+    if getattr(enc, "_infrequent_enabled", False):
+        raise Unsupported(f"OrdinalEncoder at {path} groups infrequent categories; not frozen")
+    # None: scikit-learn raises there (handle_unknown='error'), no later step applies
+    unseen = float(enc.unknown_value) if enc.handle_unknown == "use_encoded_value" \
+        and enc.unknown_value is not None else None
+    missing = float(enc.encoded_missing_value)
+    out = []
+    for i, chain in enumerate(chains):
+        cats = _levels_of(enc.categories_[i], chain, path, "OrdinalEncoder")
+        out.append(Chain(chain.feature, categories=cats, encoded=True,
+                         encoding=(tuple(float(j) for j in range(len(cats))), unseen, missing)))
+    return out
+
+
+def _target(enc, chains, path):
+    """TargetEncoder: each level its fitted encoding (per class for a multiclass target);
+    an unseen level, and a missing one unless missing was a category in the fit, the
+    target mean."""
+    k = len(enc.classes_) if enc.target_type_ == "multiclass" else 1
+    means = np.atleast_1d(np.asarray(enc.target_mean_, dtype=np.float64))
+    out = []
+    for i, chain in enumerate(chains):
+        raw = list(enc.categories_[i])
+        cats = _levels_of(raw, chain, path, "TargetEncoder")
+        nan_at = next((j for j, v in enumerate(raw) if _level(v, path) is None), None)
+        for c in range(k):
+            codes = np.asarray(enc.encodings_[i * k + c], dtype=np.float64)
+            values = tuple(float(v) for j, v in enumerate(codes) if j != nan_at)
+            mean = float(means[c] if k > 1 else means[0])
+            missing = float(codes[nan_at]) if nan_at is not None else mean
+            out.append(Chain(chain.feature, categories=cats, encoded=True,
+                             encoding=(values, mean, missing)))
+    return out
+
+
+def _levels_of(categories, chain, path, what) -> tuple:
+    _require_raw(chain, path, what)
+    if chain.steps or chain.fill is not None:
+        raise Unsupported(f"{what} at {path} follows an imputer or a scaler; put it first")
+    cats = [_level(v, path) for v in categories]
+    cats = tuple(c for c in cats if c is not None)
+    if len({type(c) for c in cats}) > 1:
+        raise Unsupported(f"{what} at {path}: a column mixes text and number categories")
+    return cats
 
 
 def _polynomial(poly, chains, path):
@@ -396,6 +468,14 @@ def _require_raw(chain, path, what):
 
 def _scale(chains, path, what, *ops):
     for chain_index, chain in enumerate(chains):
+        if chain.encoding is not None:  # scale every encoding as scikit-learn would
+            for op, values in ops:
+                if values is not None:
+                    c = float(np.asarray(values, dtype=np.float64)[chain_index])
+                    chain.encoding = _stepped(chain.encoding, ScalingStep(op, c))
+            if what == "MinMaxScaler" and chain.clip is not None:
+                raise Unsupported(f"{what} at {path} clips an encoded column")
+            continue
         if chain.encoded and chain.product is None and not chain.binned:
             # a scaled one-hot column: the one-factor product of its indicator, then steps
             chain.product = (_factor(chain, path),)
@@ -496,6 +576,12 @@ def _features_and_design(chains, raw_names):
         if chain.constant:
             constants[position] = _indicator_value(chain, 1.0)
             continue
+        if chain.encoding is not None:
+            categorical.setdefault(chain.feature, []).append(chain)
+            values, unseen, missing = (_unscored(v) for v in (chain.encoding[0],) +
+                                       chain.encoding[1:])
+            design.append(DesignColumn(name, encoded=(values, unseen, missing)))
+            continue
         if chain.product is not None:
             if chain.encoded:  # a scaled one-hot column: its feature is categorical
                 categorical.setdefault(chain.feature, []).append(chain)
@@ -547,6 +633,15 @@ def _features_and_design(chains, raw_names):
         elif i in indicated:
             features.append(NumericFeature(name, None))  # its indicator alone
     return tuple(features), tuple(design), constants
+
+
+def _unscored(value):
+    """An encoding scikit-learn cannot score (an unseen level under handle_unknown='error',
+    where it raises; NaN, which its estimator refuses): the frozen model's design value
+    0.0."""
+    if isinstance(value, tuple):
+        return tuple(_unscored(v) for v in value)
+    return 0.0 if value is None or math.isnan(value) else value
 
 
 def _indicator_value(chain: Chain, flag: float) -> float:
