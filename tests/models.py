@@ -173,6 +173,46 @@ def hostile_names() -> TestModel:
                      scorewright.freeze(est, name="hostile'; DROP TABLE x; --*/"))
 
 
+def compressor_terms() -> TestModel:
+    """Format version 2's term kinds in one model (the compressor readings): a log1p
+    transform, missing indicators, a one-hot binned feature, an ordinal encoding, and the
+    products of two scaled readings (PolynomialFeatures)."""
+    compose, impute, lm, pl, pp = _sk()
+    df = _readings()
+    X = df[NUMERIC + CATEGORICAL]
+    y = df["fault_30d"]
+    prep = compose.ColumnTransformer([
+        ("hours", pl.make_pipeline(impute.SimpleImputer(strategy="median", add_indicator=True),
+                                   pp.FunctionTransformer(np.log1p), pp.StandardScaler()),
+         ["hours_since_service"]),
+        ("poly", pl.make_pipeline(impute.SimpleImputer(), pp.StandardScaler(),
+                                  pp.PolynomialFeatures(2, include_bias=False)),
+         ["discharge_temp_c", "motor_current_a"]),
+        ("bins", pl.make_pipeline(impute.SimpleImputer(),
+                                  pp.KBinsDiscretizer(n_bins=4, encode="onehot-dense",
+                                                      strategy="uniform")),
+         ["ambient_temp_c"]),
+        ("zone", pp.OrdinalEncoder(handle_unknown="use_encoded_value", unknown_value=-1,
+                                   encoded_missing_value=-2), ["site_zone"]),
+        ("rest", pl.make_pipeline(impute.SimpleImputer(), pp.StandardScaler()),
+         ["suction_pressure_kpa", "vibration_mm_s"]),
+    ])
+    est = pl.make_pipeline(prep, lm.LogisticRegression(max_iter=5000)).fit(X, y)
+    return TestModel("compressor_terms", est, X, y,
+                     scorewright.freeze(est, name="compressor_terms", check_rows=X))
+
+
+def spector_probit() -> TestModel:
+    """The probit link (format version 2): Greene's Spector data, statsmodels' Probit."""
+    import statsmodels.api as sm
+
+    data = sm.datasets.spector.load_pandas()
+    X, y = data.exog[["GPA", "TUCE", "PSI"]], data.endog
+    results = sm.Probit(y, sm.add_constant(X)).fit(disp=0)
+    return TestModel("spector_probit", results, X, y,
+                     scorewright.freeze(results, name="spector_probit", check_rows=X))
+
+
 BUILDERS = {
     "fault_binary": fault_binary,
     "fault_type": fault_type_multinomial,
@@ -183,6 +223,8 @@ BUILDERS = {
     "spector": spector_logit,
     "mixed_scalers": mixed_scalers,
     "hostile": hostile_names,
+    "compressor_terms": compressor_terms,
+    "spector_probit": spector_probit,
 }
 
 

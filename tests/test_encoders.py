@@ -150,3 +150,19 @@ def test_targets_that_do_not_render_the_program_refuse_encodings(target):
     model = scorewright.freeze(_pipeline().fit(x, y), check_rows=x)
     with pytest.raises(ScorewrightError, match=f"target {target} cannot express the encoded"):
         emitter(target)(model, {})
+
+
+def test_a_missing_value_the_fit_never_saw_is_encoded_as_unseen():
+    """OrdinalEncoder gives encoded_missing_value only to a missing value it saw in the
+    fit; otherwise a missing value is an unknown category (unknown_value), as here."""
+    x, y = _frame()
+    x = x.assign(grade=x.grade.fillna("B"))
+    pipe = make_pipeline(ColumnTransformer([
+        ("g", OrdinalEncoder(handle_unknown="use_encoded_value", unknown_value=-1,
+                             encoded_missing_value=-2), ["grade"]),
+        ("l", "passthrough", ["load"])]), LogisticRegression()).fit(x, y)
+    model, _ = freeze_checked(pipe, check_rows=x)
+    assert model.design[0].encoded[1:] == (-1.0, -1.0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        assert pipe[0].transform(pd.DataFrame({"grade": [np.nan], "load": [0.0]}))[0, 0] == -1

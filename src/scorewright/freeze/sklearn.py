@@ -337,17 +337,20 @@ def _stepped(encoding, step):
 
 
 def _ordinal(enc, chains, path):
-    """OrdinalEncoder: each level its index; an unseen level unknown_value (NaN under
-    handle_unknown='error': scikit-learn raises), a missing one encoded_missing_value."""
+    """OrdinalEncoder: each level its index; an unseen level unknown_value (None under
+    handle_unknown='error': scikit-learn raises), a missing one encoded_missing_value when
+    the fit saw missing values (else it is unseen, as scikit-learn encodes it)."""
     if getattr(enc, "_infrequent_enabled", False):
         raise Unsupported(f"OrdinalEncoder at {path} groups infrequent categories; not frozen")
     # None: scikit-learn raises there (handle_unknown='error'), no later step applies
     unseen = float(enc.unknown_value) if enc.handle_unknown == "use_encoded_value" \
         and enc.unknown_value is not None else None
-    missing = float(enc.encoded_missing_value)
     out = []
     for i, chain in enumerate(chains):
         cats = _levels_of(enc.categories_[i], chain, path, "OrdinalEncoder")
+        # a missing value is encoded_missing_value only if the fit saw one; else unseen
+        seen = len(cats) < len(enc.categories_[i])
+        missing = float(enc.encoded_missing_value) if seen else unseen
         out.append(Chain(chain.feature, categories=cats, encoded=True,
                          encoding=(tuple(float(j) for j in range(len(cats))), unseen, missing)))
     return out
