@@ -165,4 +165,5 @@ def test_a_missing_value_the_fit_never_saw_is_encoded_as_unseen():
     assert model.design[0].encoded[1:] == (-1.0, -1.0)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        assert pipe[0].transform(pd.DataFrame({"grade": [np.nan], "load": [0.0]}))[0, 0] == -1
+        probe = pd.DataFrame({"grade": pd.Series([None], dtype=object), "load": [0.0]})
+        assert pipe[0].transform(probe)[0, 0] == -1
