@@ -155,9 +155,9 @@ def _name_list(option: str, text: str | None) -> list[str] | None:
 @click.option("--numeric", help="Comma-separated columns to treat as numbers.")
 @click.option("--max-levels", default=30, show_default=True,
               help="Most levels a categorical column may have.")
-@click.option("--model", "model_kind",
-              type=click.Choice(["logistic", "multinomial", "linear", "poisson"]),
-              help="Model family (default: from the label).")
+@click.option("--model", "model_kind", metavar="FAMILY",
+              help="Model family: logistic, multinomial, linear, poisson, gamma or "
+                   "tweedie[:POWER] (1 < POWER < 2; default 1.5); default: from the label.")
 @click.option("--penalty", default="l2", show_default=True,
               type=click.Choice(["l2", "l1", "elasticnet", "none"]))
 @click.option("--cv", default=5, show_default=True, help="Cross-validation folds.")

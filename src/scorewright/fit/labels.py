@@ -8,11 +8,44 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import math
+
 import numpy as np
 
 from ..errors import ScorewrightError
 
-MODELS = ("logistic", "multinomial", "linear", "poisson")
+MODELS = ("logistic", "multinomial", "linear", "poisson", "gamma", "tweedie")
+TWEEDIE_POWER = 1.5  # the compound Poisson-gamma default of --model tweedie (common practice)
+
+
+def log_link_power(model: str) -> float | None:
+    """The Tweedie power of a log-link model (poisson 1, gamma 2, tweedie:P), else None."""
+    if model == "poisson":
+        return 1.0
+    if model == "gamma":
+        return 2.0
+    if model.startswith("tweedie:"):
+        return float(model.split(":", 1)[1])
+    return None
+
+
+def _model_name(model: str) -> str:
+    """--model as given, with tweedie's power made explicit (tweedie -> tweedie:1.5)."""
+    if model == "tweedie":
+        return f"tweedie:{TWEEDIE_POWER}"
+    if model.startswith("tweedie:"):
+        try:
+            power = float(model.split(":", 1)[1])
+        except ValueError:
+            power = math.nan
+        if not 1.0 < power < 2.0:
+            raise ScorewrightError(f"--model {model}: the Tweedie power must be strictly "
+                                   "between 1 and 2 (e.g. tweedie:1.5)")
+        return f"tweedie:{power!r}"
+    if model not in MODELS:
+        raise ScorewrightError(f"--model: expected one of {', '.join(MODELS)} "
+                               f"(tweedie:POWER), got {model!r}")
+    return model
 # Label pairs whose positive class is obvious (common practice); others need --positive.
 OBVIOUS_POSITIVE = {("0", "1"): "1", ("false", "true"): "true", ("no", "yes"): "yes",
                     ("n", "y"): "y", ("f", "t"): "t"}
@@ -48,18 +81,20 @@ def read_label(series, name: str, model: str | None, positive: str | None) -> La
             model = "linear"
         else:
             model = "multinomial"
-    if model not in MODELS:
-        raise ScorewrightError(f"--model: expected one of {', '.join(MODELS)}, got {model!r}")
-    if model in ("linear", "poisson"):
+    model = _model_name(model)
+    if model == "linear" or log_link_power(model) is not None:
         if positive is not None:
             raise ScorewrightError(f"--positive applies to classification, not --model {model}")
         if not all_numbers:
             bad = values[~np.isfinite(numbers)].iloc[0]
             raise ScorewrightError(f"label {name!r}: {bad!r} is not a number "
                                    f"(--model {model} needs a numeric label)")
-        if model == "poisson" and np.any(numbers < 0):
-            raise ScorewrightError(f"label {name!r} has negative values; --model poisson "
-                                   "needs counts or rates of zero or more")
+        if model != "gamma" and log_link_power(model) is not None and np.any(numbers < 0):
+            raise ScorewrightError(f"label {name!r} has negative values; --model {model} "
+                                   "needs values of zero or more")
+        if model == "gamma" and np.any(numbers <= 0):
+            raise ScorewrightError(f"label {name!r} has values of zero or less; --model gamma "
+                                   "needs positive values (claim sizes, durations...)")
         if len(set(numbers)) < 2:
             raise ScorewrightError(f"label {name!r} has a single value; nothing to predict")
         return Label(name, model, numbers, None, kept, missing)

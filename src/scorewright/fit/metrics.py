@@ -13,6 +13,8 @@ import math
 
 import numpy as np
 
+from .labels import log_link_power
+
 EPS = float(np.finfo(np.float64).eps)
 
 
@@ -125,15 +127,32 @@ def poisson_deviance(y, mu) -> np.ndarray:
     return 2.0 * (term - y + mu)
 
 
+def unit_deviance(y, mu, power: float) -> np.ndarray:
+    """The unit deviance of the Tweedie family of this power: Poisson (1), gamma (2)
+    2 (y / mu - log(y / mu) - 1), and between them the compound Poisson-gamma form
+    2 (y^(2-p) / ((1-p)(2-p)) - y mu^(1-p) / (1-p) + mu^(2-p) / (2-p)) (McCullagh and
+    Nelder's Generalized Linear Models; from memory)."""
+    if power == 1.0:
+        return poisson_deviance(y, mu)
+    y = np.asarray(y, dtype=np.float64)
+    mu = np.asarray(mu, dtype=np.float64)
+    if power == 2.0:
+        return 2.0 * (y / mu - np.log(y / mu) - 1.0)
+    p = power
+    return 2.0 * (np.power(y, 2 - p) / ((1 - p) * (2 - p)) - y * np.power(mu, 1 - p) / (1 - p)
+                  + np.power(mu, 2 - p) / (2 - p))
+
+
 def regression_metrics(y, predicted, model: str) -> dict:
     """RMSE, MAE and deviance explained (1 - D(model)/D(mean-only); for the normal
     deviance this is R squared)."""
     y = np.asarray(y, dtype=np.float64)
     predicted = np.asarray(predicted, dtype=np.float64)
     error = y - predicted
-    if model == "poisson":
-        dev = poisson_deviance(y, predicted).sum()
-        null = poisson_deviance(y, np.full_like(y, y.mean())).sum()
+    power = log_link_power(model)
+    if power is not None:
+        dev = unit_deviance(y, predicted, power).sum()
+        null = unit_deviance(y, np.full_like(y, y.mean()), power).sum()
     else:
         dev = float(np.sum(error ** 2))
         null = float(np.sum((y - y.mean()) ** 2))

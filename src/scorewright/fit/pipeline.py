@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..errors import ScorewrightError
+from .labels import log_link_power
 
 PENALTIES = ("l2", "l1", "elasticnet", "none")
 ELASTICNET_MIX = 0.5  # share of the l1 part in an elastic-net penalty
@@ -22,7 +23,7 @@ ELASTICNET_MIX = 0.5  # share of the l1 part in an elastic-net penalty
 
 @dataclass(frozen=True)
 class Spec:
-    model: str             # logistic, multinomial, linear, poisson
+    model: str             # logistic, multinomial, linear, poisson, gamma, tweedie:POWER
     penalty: str           # l2, l1, elasticnet, none
     class_weight: str | None
     seed: int
@@ -40,9 +41,9 @@ def check_spec(spec: Spec) -> None:
     if spec.penalty not in PENALTIES:
         raise ScorewrightError(f"--penalty: expected one of {', '.join(PENALTIES)}, "
                                f"got {spec.penalty!r}")
-    if spec.model == "poisson" and spec.penalty in ("l1", "elasticnet"):
-        raise ScorewrightError(f"--penalty {spec.penalty} is not available for --model poisson "
-                               "(use l2 or none)")
+    if log_link_power(spec.model) is not None and spec.penalty in ("l1", "elasticnet"):
+        raise ScorewrightError(f"--penalty {spec.penalty} is not available for --model "
+                               f"{spec.model} (use l2 or none)")
     if spec.class_weight is not None and not spec.classifier:
         raise ScorewrightError(f"--class-weight applies to classification, not --model "
                                f"{spec.model}")
@@ -54,7 +55,7 @@ def strength_grid(spec: Spec) -> list[float | None]:
         return [None]
     if spec.classifier:
         return [float(c) for c in np.logspace(-3, 3, 13)]        # C: inverse strength
-    if spec.model == "poisson":
+    if log_link_power(spec.model) is not None:
         return [float(a) for a in np.logspace(-5, 1, 13)]
     if spec.penalty == "l2":
         return [float(a) for a in np.logspace(-3, 3, 13)]
@@ -107,10 +108,17 @@ def _estimator(spec: Spec, strength):
         mix = 1.0 if spec.penalty == "l1" else ELASTICNET_MIX
         return lm.LogisticRegression(C=strength, l1_ratio=mix, solver="saga", max_iter=3000,
                                      tol=1e-4, class_weight=weight, random_state=spec.seed)
-    if spec.model == "poisson":
+    power = log_link_power(spec.model)
+    if power is not None:
         alpha = 0.0 if strength is None else strength
-        return lm.PoissonRegressor(alpha=alpha, solver="newton-cholesky", max_iter=300,
-                                   tol=1e-10)
+        if spec.model == "poisson":
+            return lm.PoissonRegressor(alpha=alpha, solver="newton-cholesky", max_iter=300,
+                                       tol=1e-10)
+        if spec.model == "gamma":
+            return lm.GammaRegressor(alpha=alpha, solver="newton-cholesky", max_iter=300,
+                                     tol=1e-10)
+        return lm.TweedieRegressor(power=power, link="log", alpha=alpha,
+                                   solver="newton-cholesky", max_iter=300, tol=1e-10)
     if spec.penalty == "none":
         return lm.LinearRegression()
     if spec.penalty == "l2":

@@ -129,8 +129,11 @@ def fit_table(table: Table, opts: FitOptions, progress: bool = True, echo=None) 
 
 def _task_line(label: Label, spec: Spec) -> str:
     what = {"logistic": "binary logistic", "multinomial": "multinomial logistic",
-            "linear": "linear regression", "poisson": "Poisson regression (log link)"}
-    line = f"model: {what[spec.model]}, penalty {spec.penalty}"
+            "linear": "linear regression", "poisson": "Poisson regression (log link)",
+            "gamma": "gamma regression (log link)"}
+    name = what.get(spec.model) or (f"Tweedie regression, power {spec.model.split(':')[1]} "
+                                    "(log link)")
+    line = f"model: {name}, penalty {spec.penalty}"
     if spec.model == "logistic":
         line += f", positive class {label.classes[1]!r}"
     if spec.class_weight:

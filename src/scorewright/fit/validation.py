@@ -20,6 +20,7 @@ import numpy as np
 
 from ..errors import ScorewrightError
 from . import diagnostics, metrics
+from .labels import log_link_power
 from .cut import CutRule, choose_threshold
 from .labels import Label
 from .pipeline import Spec, design_names, make_pipeline, reference_levels, standardization
@@ -52,8 +53,9 @@ class Validation:
 def _loss(spec: Spec, y, pred) -> float:
     if spec.classifier:
         return metrics.log_loss(y, pred)
-    if spec.model == "poisson":
-        return float(np.mean(metrics.poisson_deviance(y, pred)))
+    power = log_link_power(spec.model)
+    if power is not None:
+        return float(np.mean(metrics.unit_deviance(y, pred, power)))
     return float(np.mean((np.asarray(y) - pred) ** 2))
 
 
@@ -107,7 +109,9 @@ def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: i
 
     y = label.y
     v = Validation(loss_name="log loss" if spec.classifier else
-                   "Poisson deviance" if spec.model == "poisson" else "squared error")
+                   "Poisson deviance" if spec.model == "poisson" else
+                   f"{spec.model.split(':')[0]} deviance"
+                   if log_link_power(spec.model) is not None else "squared error")
     train, test, splits = _splits(spec, y, folds, test_fraction, spec.seed)
     v.train_index, v.test_index = train, test
     v.n_train, v.n_test = len(train), len(test)
