@@ -25,11 +25,14 @@ from click.testing import CliRunner
 import scorewright
 from scorewright.cli import cli
 from scorewright.emit import emitter
+import scorewright.emit.onnx as onnx_emitter
+from scorewright import program
 from scorewright.emit.onnx import OPSET
 from scorewright.errors import ScorewrightError
 from scorewright.model import canonical_sha256, model_from_document
 from scorewright.plan import build_plan
-from scorewright.reference import score_row
+from scorewright.program import Const
+from scorewright.reference import encode_rows, score_row
 from scorewright.verify.runners import runner
 from scorewright.verify.runners.onnx import input_feeds
 
@@ -496,3 +499,138 @@ def test_levels_with_nul_characters_are_matched_exactly(tmp_path):
     assert [list(t.string_data) for t in strings] == [[v.encode() for v in levels + [""]]]
     with pytest.raises(ScorewrightError, match="drops trailing NUL characters .* level 'a"):
         runner("onnx")(tmp_path, model, rows, {"evaluator": "reference"})
+
+
+# ---------------------------------------------------------------- the graph renders the program
+
+def _program_outputs(plan, rows) -> dict:
+    """The reference evaluator's numpy interpreter on the program as lowered now."""
+    return program.run_matrix(program.lower(plan), encode_rows(plan, rows))
+
+
+def _agrees_with_the_program(model, rows, tmp_path):
+    """onnxruntime on the emitted graph against `program.run_matrix` on the same program:
+    margins and class indexes bit for bit; probabilities and values within the onnx-double
+    profile's stated bounds (onnxruntime's exp is not libm's)."""
+    (art,) = emitter("onnx")(model, {})
+    (tmp_path / art.name).write_bytes(art.content)
+    out = runner("onnx")(tmp_path, model, rows, {"evaluator": "onnxruntime"})
+    plan = build_plan(model)
+    want = _program_outputs(plan, rows)
+    margins = np.column_stack([want[f"margin_{k}"] for k in range(plan.n_outputs)])
+    assert out.margins.tobytes() == margins.tobytes()
+    tol = tolerance("onnx-double")
+    if plan.task == "regression":
+        assert (ulps(want["value"], out.value) <= tol["value_ulps"]).all()
+        return out, want
+    probs = np.column_stack([want[f"probability_{j}"] for j in range(len(plan.classes))])
+    close = (ulps(probs, out.probabilities) <= tol["probability_ulps"]) | \
+        (np.abs(probs - out.probabilities) <= tol["probability_abs"])
+    assert close.all()
+    assert list(out.class_index) == list(want["class_index"])
+    return out, want
+
+
+def _lower_numeric_by_selects(b, inp):
+    """The design value by another valid op sequence: the bound and the clip as selects
+    of comparisons, which no chain of constant steps can hold."""
+    x = b.emit("read_real", attr=inp.index, hint="x")
+    missing = b.emit("is_missing", x, hint="f")
+    v = b.emit("select", missing, Const(0.0 if inp.fill is None else inp.fill), x)
+    v = b.emit("select", b.emit("gt", v, Const(inp.bound)), Const(inp.bound), v)
+    v = b.emit("select", b.emit("gt", Const(-inp.bound), v), Const(-inp.bound), v)
+    for step in inp.steps:
+        v = b.emit(program._STEP_OP[step.op], v, Const(step.value))
+    if inp.clip is not None:
+        v = b.emit("select", b.emit("gt", v, Const(inp.clip[1])), Const(inp.clip[1]), v)
+        v = b.emit("select", b.emit("gt", Const(inp.clip[0]), v), Const(inp.clip[0]), v)
+    return b.emit("select", missing, Const(0.0), v) if inp.fill is None else v
+
+
+@pytest.mark.parametrize("name", ["fault_binary", "mixed_scalers", "alarms_poisson"])
+def test_a_changed_input_lowering_renders_and_matches_the_program(name, tmp_path,
+                                                                   monkeypatch):
+    """onnx.py spells no guard, scaling or missing rule: lowered another way, the graph
+    follows the program (outside check: onnxruntime's own arithmetic)."""
+    model = build(name).model
+    monkeypatch.setattr(program, "_lower_numeric", _lower_numeric_by_selects)
+    ops = {op.op for op in program.lower(build_plan(model)).ops}
+    assert "gt" in ops and "max" not in ops or name == "alarms_poisson"
+    _agrees_with_the_program(model, model_rows(name, 300), tmp_path)
+
+
+def test_ties_follow_the_lowering_not_the_emitter(tmp_path, monkeypatch):
+    """The class index rule lives in the lowering: lowered with ties to the highest index
+    (ge instead of gt), the graph gives the highest index too."""
+    doc = build("iris").model.to_document()
+    head = doc["head"]
+    head["coefficients"][2] = list(head["coefficients"][1])
+    head["intercepts"][2] = head["intercepts"][1]
+    model = edited(doc)
+    original = program._lower_link
+
+    def ties_to_the_last(b, plan, margins):
+        if plan.task != "multiclass":
+            return original(b, plan, margins)
+        values = original(b, plan, margins)
+        top, best = margins[0], Const(0)
+        for k in range(1, len(margins)):
+            higher = b.emit("ge", margins[k], top)
+            top = b.emit("select", higher, margins[k], top)
+            best = b.emit("select", higher, Const(k), best, hint="k")
+        return values[:-1] + [best]
+
+    monkeypatch.setattr(program, "_lower_link", ties_to_the_last)
+    rows = [{}] + build("iris").frame.to_dict("records")[:60]
+    out, want = _agrees_with_the_program(model, rows, tmp_path)
+    assert 2 in list(out.class_index) and 1 not in list(out.class_index)
+
+
+@pytest.mark.parametrize("name", ["fault_binary", "fault_type", "alarms_poisson", "hostile"])
+def test_every_op_rendered_alone_matches_the_program(name, tmp_path, monkeypatch):
+    """With nothing folded at emit time, every operation is its own node(s): the reads,
+    is_missing, select, lookup... spelled from NODES alone still give the program's bits."""
+    model = build(name).model
+    monkeypatch.setattr(onnx_emitter, "fold", lambda ops, env, dtype: dict(env))
+    (art,) = emitter("onnx")(model, {})
+    nodes = [n.op_type for n in onnx.load_from_string(art.content).graph.node]
+    assert "Split" not in nodes[:12]  # no [F, N] block: op by op
+    _agrees_with_the_program(model, model_rows(name, 300), tmp_path)
+
+
+def test_an_op_onnx_has_no_node_for_is_one_error(monkeypatch):
+    model = build("diabetes_ridge").model
+    monkeypatch.setitem(program.PRIMITIVES, "erfc", ((program.REAL,), program.REAL))
+    original = program._lower_link
+
+    def with_erfc(b, plan, margins):
+        values = original(b, plan, margins)
+        return values[:-1] + [b.emit("erfc", margins[0])]
+
+    monkeypatch.setattr(program, "_lower_link", with_erfc)
+    with pytest.raises(ScorewrightError, match=r"^target onnx cannot express op erfc$"):
+        emitter("onnx")(model, {})
+
+
+def test_the_emitter_spells_no_semantics_of_the_plan():
+    """The link, the guards, the scaling and the missing/unseen policies are read from the
+    program only: emit/onnx.py names none of the plan's fields that carry them."""
+    source = Path(onnx_emitter.__file__).read_text()
+    for field in ("exp_guard", "log_link_max", ".fill", ".bound", ".steps", ".clip", ".cut",
+                  "fill_code", "unknown_code", ".weights", ".tables", ".intercepts",
+                  "plan.terms", "plan.link =="):
+        assert field not in source, field
+
+
+# Node counts of the emitter before it rendered the program (measured on this tree, double,
+# per-feature inputs); rendering the program must not add nodes.
+NODES_BEFORE = {"fault_binary": 33, "fault_type": 26, "iris": 22, "wine": 23,
+                "alarms_poisson": 18, "diabetes_ridge": 15, "spector": 24,
+                "mixed_scalers": 33, "hostile": 30}
+
+
+@pytest.mark.parametrize("precision", ["double", "float"])
+@pytest.mark.parametrize("name", MODELS)
+def test_no_more_nodes_than_before(name, precision):
+    (art,) = emitter("onnx")(build(name).model, {"precision": precision})
+    assert len(onnx.load_from_string(art.content).graph.node) <= NODES_BEFORE[name]

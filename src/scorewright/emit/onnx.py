@@ -266,7 +266,7 @@ class _Lane:
 
     read: Op
     flag: str | None
-    steps: list
+    chain: list
     missing: object
     fanout: list
     node: tuple
@@ -582,7 +582,7 @@ class _Renderer:
     def _aligned(self, lanes: list[_Lane]) -> list[tuple[str, list]]:
         """Every lane's steps laid on one sequence of nodes (a shortest common
         supersequence), a lane without a step at some node taking its identity constant."""
-        sequences = [[LANE_STEPS[op][0] for op, _ in lane.steps] for lane in lanes]
+        sequences = [[LANE_STEPS[op][0] for op, _ in lane.chain] for lane in lanes]
         merged: list[str] = []
         for seq in sequences:
             merged = _supersequence(merged, seq)
@@ -591,7 +591,7 @@ class _Renderer:
         for lane in lanes:
             column = [identity[node] for node in merged]
             pos = 0
-            for op, c in lane.steps:
+            for op, c in lane.chain:
                 node, _, sign = LANE_STEPS[op]
                 while merged[pos] != node:
                     pos += 1
