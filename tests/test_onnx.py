@@ -23,10 +23,10 @@ import pytest
 from click.testing import CliRunner
 
 import scorewright
-from scorewright.cli import cli
-from scorewright.emit import emitter
 import scorewright.emit.onnx as onnx_emitter
 from scorewright import program
+from scorewright.cli import cli
+from scorewright.emit import emitter
 from scorewright.emit.onnx import OPSET
 from scorewright.errors import ScorewrightError
 from scorewright.model import canonical_sha256, model_from_document
@@ -582,7 +582,7 @@ def test_ties_follow_the_lowering_not_the_emitter(tmp_path, monkeypatch):
 
     monkeypatch.setattr(program, "_lower_link", ties_to_the_last)
     rows = [{}] + build("iris").frame.to_dict("records")[:60]
-    out, want = _agrees_with_the_program(model, rows, tmp_path)
+    out, _ = _agrees_with_the_program(model, rows, tmp_path)
     assert 2 in list(out.class_index) and 1 not in list(out.class_index)
 
 

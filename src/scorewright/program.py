@@ -384,12 +384,12 @@ def fold(ops, env: Mapping[str, Any], dtype=np.float64) -> dict[str, Any]:
     """The values of every operation computable from `env` (name -> a known value) and
     constants, each computed as the scalar op table does in `dtype` (a float32 target
     folds in float32, as its graph would compute); a select needs only its condition and
-    the operand it chooses. Reads, exp and outputs stay unknown (absent): a target's exp
-    is its own, so a value through exp is never folded."""
+    the operand it chooses. Reads, exp, outputs and ops the table lacks stay unknown
+    (absent): a target's exp is its own, so a value through exp is never folded."""
     out = dict(env)
     with np.errstate(all="ignore"):
         for op in ops:
-            if op.dest in out or op.op in ("read_real", "read_code", "exp", "output"):
+            if op.dest in out or (op.op not in SCALAR and op.op != "lookup"):
                 continue
             args = [_fold_const(a, dtype) if isinstance(a, Const) else out.get(a, _UNKNOWN)
                     for a in op.args]

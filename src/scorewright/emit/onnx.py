@@ -34,6 +34,7 @@ against [F] ~4x slower than [F, N] against [F, 1] (measured, 1e6 rows).
 
 from __future__ import annotations
 
+import functools
 import json
 from dataclasses import dataclass
 
@@ -420,8 +421,7 @@ class _Renderer:
             elif b not in self.at:
                 return False
             elif a != b:
-                va, i = self.at[a]
-                vb, j = self.at[b]
+                va, vb, j = self.at[a][0], *self.at[b]
                 if va is not vb or j != lane or va.layout != "col":
                     return False
         return True
@@ -721,7 +721,8 @@ class _Renderer:
             if len(higher) != 1:
                 return
             uses = self.consumers.get(higher[0].dest, [])
-            tops = [u for u in uses if u.op == "select" and u.args == (higher[0].dest, lanes[k], top)]
+            tops = [u for u in uses if u.op == "select"
+                    and u.args == (higher[0].dest, lanes[k], top)]
             bests = [u for u in uses if u.op == "select" and u.type == CODE
                      and u.args == (higher[0].dest, Const(k), best)]
             if len(uses) != 2 or len(tops) != 1 or len(bests) != 1:
@@ -861,29 +862,15 @@ def _code_domain(inp) -> list[int]:
 
 def _supersequence(a: list[str], b: list[str]) -> list[str]:
     """A shortest common supersequence of two op sequences."""
-    n, m = len(a), len(b)
-    best = [[0] * (m + 1) for _ in range(n + 1)]
-    for i in range(n + 1):
-        for j in range(m + 1):
-            if i == 0 or j == 0:
-                best[i][j] = i + j
-            elif a[i - 1] == b[j - 1]:
-                best[i][j] = best[i - 1][j - 1] + 1
-            else:
-                best[i][j] = 1 + min(best[i - 1][j], best[i][j - 1])
-    out: list[str] = []
-    i, j = n, m
-    while i > 0 or j > 0:
-        if i > 0 and j > 0 and a[i - 1] == b[j - 1]:
-            out.append(a[i - 1])
-            i, j = i - 1, j - 1
-        elif j == 0 or (i > 0 and best[i - 1][j] <= best[i][j - 1]):
-            out.append(a[i - 1])
-            i -= 1
-        else:
-            out.append(b[j - 1])
-            j -= 1
-    return out[::-1]
+    @functools.cache
+    def best(i: int, j: int) -> tuple:
+        if i == len(a) or j == len(b):
+            return tuple(a[i:]) + tuple(b[j:])
+        if a[i] == b[j]:
+            return (a[i],) + best(i + 1, j + 1)
+        left, right = (a[i],) + best(i + 1, j), (b[j],) + best(i, j + 1)
+        return left if len(left) <= len(right) else right
+    return list(best(0, 0))
 
 
 # op -> its node (a name), or the renderer's method that spells it in several nodes.
