@@ -505,8 +505,15 @@ def test_levels_with_nul_characters_are_matched_exactly(tmp_path):
 # ---------------------------------------------------------------- the graph renders the program
 
 def _program_outputs(plan, rows) -> dict:
-    """The reference evaluator's numpy interpreter on the program as lowered now."""
-    return program.run_matrix(program.lower(plan), encode_rows(plan, rows))
+    """The reference evaluator on the program as lowered now: its numpy interpreter, and
+    its scalar one (the truth) when the numpy one cannot take the program (run_matrix
+    cannot take an exp of a constant, as a model without terms has)."""
+    lowered = program.lower(plan)
+    try:
+        return program.run_matrix(lowered, encode_rows(plan, rows))
+    except AttributeError:
+        scored = [program.run_row(lowered, row) for row in rows]
+        return {key: np.array([s[key] for s in scored]) for key in scored[0]}
 
 
 def _agrees_with_the_program(model, rows, tmp_path):
@@ -664,3 +671,18 @@ def test_folding_and_lanes_change_no_bit(name, precision, monkeypatch):
         outputs.append([x.tobytes() for x in session.run(names, feeds)] +
                        [x.tobytes() for x in reference.run(names, feeds)])
     assert outputs[0] == outputs[1]
+
+
+@pytest.mark.parametrize("name, before", [("spector", 16), ("iris", 11),
+                                          ("alarms_poisson", 5)])
+def test_a_model_without_terms_scores_its_intercepts_on_every_row(name, before, tmp_path):
+    """Every coefficient zero: the margins are the intercepts, given a row each, and the
+    link runs on them as on any margins (no more nodes than before the rewrite)."""
+    doc = build(name).model.to_document()
+    doc["head"]["coefficients"] = [[0.0] * len(r) for r in doc["head"]["coefficients"]]
+    model = edited(doc)
+    assert build_plan(model).terms == ()
+    (art,) = emitter("onnx")(model, {})
+    assert len(onnx.load_from_string(art.content).graph.node) <= before
+    out, _ = _agrees_with_the_program(model, model_rows(name, 50), tmp_path)
+    assert out.margins.shape[0] == len(model_rows(name, 50))

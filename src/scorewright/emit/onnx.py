@@ -285,18 +285,37 @@ class _Renderer:
     def __init__(self, g: _Graph, plan: Plan, layout: str):
         self.g, self.plan, self.layout = g, plan, layout
         self.dtype = g.elem.numpy
-        self.ops = lower(plan).ops
+        self.at: dict[str, tuple[_Vec, int]] = {}   # program name -> (tensor, lane)
+        self._cached: dict = {}
+        self.ops = self._constant_margins(lower(plan).ops)
         self.by_dest = {op.dest: op for op in self.ops}
         self.consumers: dict[str, list[Op]] = {}
         for op in self.ops:
             for a in op.args:
                 if isinstance(a, str):
                     self.consumers.setdefault(a, []).append(op)
-        self.at: dict[str, tuple[_Vec, int]] = {}   # program name -> (tensor, lane)
         self.absorbed: set[str] = set()   # computed inside another op's fused node
         self.fused: dict = {}              # program name -> the method that renders it
-        self._cached: dict = {}
         self.renamed: dict[str, str] = {}  # tensor -> the graph output it became
+
+    def _constant_margins(self, ops) -> list[Op]:
+        """A program without terms has constants for margins: they are given a row each
+        (one Expand) and a name, so its link is the same nodes on the same shapes as any
+        other's; the margins' constants are found as the very objects the outputs name."""
+        outs = [op for op in ops if op.op == "output" and op.attr.startswith("margin_")]
+        consts = [op.args[0] for op in outs]
+        if not outs or not all(isinstance(c, Const) and c.type == REAL for c in consts):
+            return list(ops)
+        names = tuple(f"{op.dest}_margin" for op in outs)
+        row = self._const([c.value for c in consts], REAL, len(consts))
+        vec = _Vec(self._rows_of(row, False, width=len(consts)), "col", names, REAL)
+        for k, name in enumerate(names):
+            self.at[name] = (vec, k)
+
+        def named(a):
+            return next((n for c, n in zip(consts, names) if a is c), a)
+        return [Op(op.dest, op.op, tuple(named(a) for a in op.args), op.type, op.attr)
+                for op in ops]
 
     def render(self) -> list:
         self._inputs()
@@ -454,7 +473,7 @@ class _Renderer:
                 reads[op.dest] = op.dest
                 cones[op.dest] = [op]
                 continue
-            deps = {reads[a] for a in op.args if isinstance(a, str)}
+            deps = {reads.get(a) for a in op.args if isinstance(a, str)}
             one = next(iter(deps)) if len(deps) == 1 else None
             reads[op.dest] = None if op.op in ("sum", "output") else one
             if reads[op.dest] is not None:
@@ -647,6 +666,7 @@ class _Renderer:
         [1, W, N] (or [1, N]) operands, which adds them left to right in the program's
         order, turned into the [N, W] tensor the rest of the program reads."""
         sums = [op for op in self.ops if op.op == "sum"
+                and not all(isinstance(a, Const) for a in op.args)
                 and all(isinstance(a, Const) or (a in self.at and self.at[a][0].layout
                                                   in ("row", "slab")) for a in op.args)]
         width = len(sums)
@@ -828,7 +848,7 @@ class _Renderer:
             g.rename(vec.tensor, name)
             self.renamed[vec.tensor] = name
             return
-        cols = [self._rows_of(a) for a in args]
+        cols = [self._column_of(a) for a in args]
         if flat:
             g.op("Squeeze", [cols[0], g.axes(1)], name, out=name)
         elif len(cols) > 1:
@@ -836,22 +856,25 @@ class _Renderer:
         else:
             g.op("Identity", cols, name, out=name)
 
-    def _rows_of(self, arg) -> str:
+    def _column_of(self, arg) -> str:
         """One output column, [N, 1], even when computed from constants alone."""
         if isinstance(arg, Const):
-            tensor, rows = self._const([arg.value], arg.type, 1), False
-        else:
-            col = self.column(arg)
-            tensor = self.renamed.get(col.tensor, col.tensor)
-            tensor = self._plain(tensor) if col.negated else tensor
-            rows = col.rows
+            return self._rows_of(self._const([arg.value], arg.type, 1), False)
+        col = self.column(arg)
+        tensor = self.renamed.get(col.tensor, col.tensor)
+        return self._rows_of(self._plain(tensor) if col.negated else tensor, col.rows)
+
+    def _rows_of(self, tensor: str, rows: bool, width: int = 1) -> str:
+        """A [1, W] tensor of constants repeated on every row: [N, W]."""
         if rows:
             return tensor
         g = self.g
-        source = MATRIX_INPUT if self.layout == "matrix" else self.plan.inputs[0].name
-        count = g.op("Shape", [source], "rows", end=1)
-        shape = g.op("Concat", [count, g.const("c", [1], np.int64)], "shape", axis=0)
-        return g.op("Expand", [tensor, shape], f"{tensor}_rows")
+        if ("rows", width) not in self._cached:
+            source = MATRIX_INPUT if self.layout == "matrix" else self.plan.inputs[0].name
+            count = g.op("Shape", [source], "rows", end=1)
+            self._cached["rows", width] = g.op(
+                "Concat", [count, g.const("c", [width], np.int64)], "shape", axis=0)
+        return g.op("Expand", [tensor, self._cached["rows", width]], f"{tensor}_rows")
 
 
 def _code_domain(inp) -> list[int]:
