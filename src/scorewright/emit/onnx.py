@@ -360,20 +360,25 @@ class _Renderer:
     def _columns(self, vec: _Vec) -> list[_Vec]:
         key = ("columns", vec.tensor)
         if key not in self._cached:
-            g, t = self.g, vec.tensor
-            if vec.layout == "flat":
-                t = g.op("Unsqueeze", [t, g.axes(1)], f"{t}_col")
-            elif vec.layout in ("row", "slab") and vec.width == 1:
-                t = g.op("Reshape", [t, g.const("column_shape", [-1, 1], np.int64)], f"{t}_col")
-            elif vec.layout in ("row", "slab"):
-                if vec.layout == "slab":
-                    t = g.op("Squeeze", [t, g.axes(0)], f"{t}_rows")
-                t = g.op("Transpose", [t], f"{t}_cols", perm=[1, 0])
-            parts = [t] if vec.width == 1 else g.op(
-                "Split", [t], f"{t}_part", outputs=vec.width, axis=1, num_outputs=vec.width)
+            t, w = self._as_cols(vec).tensor, vec.width
+            parts = [t] if w == 1 else self.g.op("Split", [t], f"{t}_part", outputs=w, axis=1,
+                                                 num_outputs=w)
             self._cached[key] = [_Vec(p, "col", (lane,), vec.type, vec.rows, vec.negated)
                                  for p, lane in zip(parts, vec.lanes)]
         return self._cached[key]
+
+    def _as_cols(self, vec: _Vec) -> _Vec:
+        """The same lanes as an [N, W] tensor."""
+        g, t = self.g, vec.tensor
+        if vec.layout == "flat":
+            t = g.op("Unsqueeze", [t, g.axes(1)], f"{t}_col")
+        elif vec.layout != "col" and vec.width == 1:
+            t = g.op("Reshape", [t, g.const("column_shape", [-1, 1], np.int64)], f"{t}_col")
+        elif vec.layout != "col":
+            if vec.layout == "slab":
+                t = g.op("Squeeze", [t, g.axes(0)], f"{t}_rows")
+            t = g.op("Transpose", [t], f"{t}_cols", perm=[1, 0])
+        return _Vec(t, "col", vec.lanes, vec.type, vec.rows, vec.negated)
 
     def _operands(self, group: list[Op]) -> tuple[list[str], list[bool], bool]:
         """Per operand position, a tensor holding it for every op of the group: the
@@ -669,32 +674,22 @@ class _Renderer:
                 and not all(isinstance(a, Const) for a in op.args)
                 and all(isinstance(a, Const) or (a in self.at and self.at[a][0].layout
                                                   in ("row", "slab")) for a in op.args)]
-        width = len(sums)
+        layout = "row" if len(sums) == 1 else "slab"
         if not sums or len({len(op.args) for op in sums}) != 1:
             return
-        g, tensors = self.g, []
-        layout = "row" if width == 1 else "slab"
-        for q in range(len(sums[0].args)):
-            args = [op.args[q] for op in sums]
-            if all(isinstance(a, Const) for a in args):
-                tensors.append(self._const([a.value for a in args], args[0].type, width,
-                                           layout))
-                continue
-            if any(isinstance(a, Const) for a in args):
+        columns = [[op.args[q] for op in sums] for q in range(len(sums[0].args))]
+        for args in columns:
+            vec = None if isinstance(args[0], Const) else self.at[args[0]][0]
+            if (vec is None) != all(isinstance(a, Const) for a in args) or vec is not None \
+                    and (vec.lanes != tuple(args) or vec.layout != layout):
                 return
-            vec = self.at[args[0]][0]
-            if vec.lanes != tuple(args) or vec.layout != layout:
-                return
-            tensors.append(vec.tensor)
-        total = g.op("Sum", tensors, "margin_rows")
-        vec = _Vec(total, layout, tuple(op.dest for op in sums), sums[0].type)
-        if width == 1:
-            cols = _Vec(self._columns(vec)[0].tensor, "col", vec.lanes, vec.type)
-        else:
-            rows = g.op("Squeeze", [total, g.axes(0)], "margin_by_class")
-            cols = _Vec(g.op("Transpose", [rows], "margins", perm=[1, 0]), "col",
-                        vec.lanes, vec.type)
-        for k, name in enumerate(vec.lanes):
+        tensors = [self._const([a.value for a in args], args[0].type, len(sums), layout)
+                   if isinstance(args[0], Const) else self.at[args[0]][0].tensor
+                   for args in columns]
+        total = _Vec(self.g.op("Sum", tensors, "margin_rows"), layout,
+                     tuple(op.dest for op in sums), sums[0].type)
+        cols = self._as_cols(total)
+        for k, name in enumerate(total.lanes):
             self.at[name] = (cols, k)
 
     # ------------------------------------------------------------ fusions
