@@ -14,18 +14,19 @@ Contract of the graph (also written into its doc string):
 - Outputs: margin [N, K]; classification: probability [N, C] in class order and
   class_index [N] int64; regression: predicted_value [N, 1].
 
-The graph renders the scoring program (`program.lower`) operation by operation
-from `NODES`, the table of op -> node spelling; it decides no semantics. Where
-the same operation runs on many values it is one node over a tensor of lanes
-(`_Renderer`): each numeric input's chain of operations is
-one lane of a feature-major [F, N] block, with a constant column per node (the
-operation's identity constant for an input that has no such step), and the
-per-class operations of the link are one node over [N, K]. Values that depend
-on a categorical input alone are folded at emit time over every code the read
-can give (`program.fold`) into one table, gathered by code; the value of a
-missing numeric input is folded likewise, so one Where replaces a second pass.
-Ordered sums are variadic Sum nodes, which both evaluators compute left to
-right, never a MatMul, whose kernels may reorder or fuse the products.
+The graph renders the scoring program (`program.lower`) from `NODES`, the table of
+op -> node, and decides no semantics: every guard, scaling step, missing or unseen
+rule and link is an op of the program. What changes is only how many values one
+node computes (`_Renderer`): the numeric inputs' chains of (op, constant) steps run
+as the lanes of one feature-major [F, N] block, a constant column per node (an
+input without that step takes the node's identity constant); the values of one
+categorical input alone are folded at emit time (`program.fold`, in the graph's
+element type) for every code the read can give, into one table gathered by code;
+the value a missing numeric input ends with is folded the same way, so one Where
+replaces a second pass; the same op on every class is one node over [N, K]; and a
+few op patterns are one node with the same bits (`_find_fusions`). Anything else
+is one node per op. Ordered sums are variadic Sum nodes, which both evaluators add
+left to right, never a MatMul, whose kernels may reorder or fuse the products.
 
 Every constant has the rank of the tensor it meets: in onnxruntime 1.32 an Add of
 [N, 1] and a [] constant ran ~40x slower than of [N, 1] and [1, 1], and [N, F]
