@@ -549,6 +549,7 @@ class _Renderer:
     def _numeric_block(self, lanes: list[_Lane]) -> None:
         g, f = self.g, len(lanes)
         x = self._stack([lane.read.attr for lane in lanes])
+        finite = None if lanes[0].flag is None else self._finite(x)
         v = x
         merged = self._aligned(lanes)
         j = 0
@@ -563,8 +564,8 @@ class _Renderer:
                 continue
             v = g.op(node, [v, self._const_rows(column)], f"{v}_{node.lower()}")
             j += 1
-        if lanes[0].flag is not None:
-            v = g.op("Where", [self._finite(x), v,
+        if finite is not None:
+            v = g.op("Where", [finite, v,
                                self._const_rows([lane.missing for lane in lanes])], "design")
         width = len(lanes[0].fanout)
         consts = np.asarray([[c for _, c in lane.fanout] for lane in lanes], dtype=self.dtype)
