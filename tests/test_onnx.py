@@ -21,15 +21,19 @@ import onnx
 import onnxruntime
 import pytest
 from click.testing import CliRunner
+from onnx.reference import ReferenceEvaluator
 
 import scorewright
+import scorewright.emit.onnx as onnx_emitter
+from scorewright import program
 from scorewright.cli import cli
 from scorewright.emit import emitter
 from scorewright.emit.onnx import OPSET
 from scorewright.errors import ScorewrightError
 from scorewright.model import canonical_sha256, model_from_document
 from scorewright.plan import build_plan
-from scorewright.reference import score_row
+from scorewright.program import Const
+from scorewright.reference import encode_rows, score_row
 from scorewright.verify.runners import runner
 from scorewright.verify.runners.onnx import input_feeds
 
@@ -496,3 +500,189 @@ def test_levels_with_nul_characters_are_matched_exactly(tmp_path):
     assert [list(t.string_data) for t in strings] == [[v.encode() for v in levels + [""]]]
     with pytest.raises(ScorewrightError, match="drops trailing NUL characters .* level 'a"):
         runner("onnx")(tmp_path, model, rows, {"evaluator": "reference"})
+
+
+# ---------------------------------------------------------------- the graph renders the program
+
+def _program_outputs(plan, rows) -> dict:
+    """The reference evaluator on the program as lowered now: its numpy interpreter, and
+    its scalar one (the truth) when the numpy one cannot take the program (run_matrix
+    cannot take an exp of a constant, as a model without terms has)."""
+    lowered = program.lower(plan)
+    try:
+        return program.run_matrix(lowered, encode_rows(plan, rows))
+    except AttributeError:
+        scored = [program.run_row(lowered, row) for row in rows]
+        return {key: np.array([s[key] for s in scored]) for key in scored[0]}
+
+
+def _agrees_with_the_program(model, rows, tmp_path):
+    """onnxruntime on the emitted graph against `program.run_matrix` on the same program:
+    margins and class indexes bit for bit; probabilities and values within the onnx-double
+    profile's stated bounds (onnxruntime's exp is not libm's)."""
+    (art,) = emitter("onnx")(model, {})
+    (tmp_path / art.name).write_bytes(art.content)
+    out = runner("onnx")(tmp_path, model, rows, {"evaluator": "onnxruntime"})
+    plan = build_plan(model)
+    want = _program_outputs(plan, rows)
+    margins = np.column_stack([want[f"margin_{k}"] for k in range(plan.n_outputs)])
+    assert out.margins.tobytes() == margins.tobytes()
+    tol = tolerance("onnx-double")
+    if plan.task == "regression":
+        assert (ulps(want["value"], out.value) <= tol["value_ulps"]).all()
+        return out, want
+    probs = np.column_stack([want[f"probability_{j}"] for j in range(len(plan.classes))])
+    close = (ulps(probs, out.probabilities) <= tol["probability_ulps"]) | \
+        (np.abs(probs - out.probabilities) <= tol["probability_abs"])
+    assert close.all()
+    assert list(out.class_index) == list(want["class_index"])
+    return out, want
+
+
+def _lower_numeric_by_selects(b, inp):
+    """The design value by another valid op sequence: the bound and the clip as selects
+    of comparisons, which no chain of constant steps can hold."""
+    x = b.emit("read_real", attr=inp.index, hint="x")
+    missing = b.emit("is_missing", x, hint="f")
+    v = b.emit("select", missing, Const(0.0 if inp.fill is None else inp.fill), x)
+    v = b.emit("select", b.emit("gt", v, Const(inp.bound)), Const(inp.bound), v)
+    v = b.emit("select", b.emit("gt", Const(-inp.bound), v), Const(-inp.bound), v)
+    for step in inp.steps:
+        v = b.emit(program._STEP_OP[step.op], v, Const(step.value))
+    if inp.clip is not None:
+        v = b.emit("select", b.emit("gt", v, Const(inp.clip[1])), Const(inp.clip[1]), v)
+        v = b.emit("select", b.emit("gt", Const(inp.clip[0]), v), Const(inp.clip[0]), v)
+    return b.emit("select", missing, Const(0.0), v) if inp.fill is None else v
+
+
+@pytest.mark.parametrize("name", ["fault_binary", "mixed_scalers", "alarms_poisson"])
+def test_a_changed_input_lowering_renders_and_matches_the_program(name, tmp_path,
+                                                                   monkeypatch):
+    """onnx.py spells no guard, scaling or missing rule: lowered another way, the graph
+    follows the program (outside check: onnxruntime's own arithmetic)."""
+    model = build(name).model
+    monkeypatch.setattr(program, "_lower_numeric", _lower_numeric_by_selects)
+    ops = {op.op for op in program.lower(build_plan(model)).ops}
+    assert "gt" in ops and "max" not in ops or name == "alarms_poisson"
+    _agrees_with_the_program(model, model_rows(name, 300), tmp_path)
+
+
+def test_ties_follow_the_lowering_not_the_emitter(tmp_path, monkeypatch):
+    """The class index rule lives in the lowering: lowered with ties to the highest index
+    (ge instead of gt), the graph gives the highest index too."""
+    doc = build("iris").model.to_document()
+    head = doc["head"]
+    head["coefficients"][2] = list(head["coefficients"][1])
+    head["intercepts"][2] = head["intercepts"][1]
+    model = edited(doc)
+    original = program._lower_link
+
+    def ties_to_the_last(b, plan, margins):
+        if plan.task != "multiclass":
+            return original(b, plan, margins)
+        values = original(b, plan, margins)
+        top, best = margins[0], Const(0)
+        for k in range(1, len(margins)):
+            higher = b.emit("ge", margins[k], top)
+            top = b.emit("select", higher, margins[k], top)
+            best = b.emit("select", higher, Const(k), best, hint="k")
+        return values[:-1] + [best]
+
+    monkeypatch.setattr(program, "_lower_link", ties_to_the_last)
+    rows = [{}] + build("iris").frame.to_dict("records")[:60]
+    out, _ = _agrees_with_the_program(model, rows, tmp_path)
+    assert 2 in list(out.class_index) and 1 not in list(out.class_index)
+
+
+@pytest.mark.parametrize("name", ["fault_binary", "fault_type", "alarms_poisson", "hostile"])
+def test_every_op_rendered_alone_matches_the_program(name, tmp_path, monkeypatch):
+    """With nothing folded at emit time, every operation is its own node(s): the reads,
+    is_missing, select, lookup... spelled from NODES alone still give the program's bits."""
+    model = build(name).model
+    monkeypatch.setattr(onnx_emitter, "fold", lambda ops, env, dtype: dict(env))
+    (art,) = emitter("onnx")(model, {})
+    nodes = [n.op_type for n in onnx.load_from_string(art.content).graph.node]
+    assert "Split" not in nodes[:12]  # no [F, N] block: op by op
+    _agrees_with_the_program(model, model_rows(name, 300), tmp_path)
+
+
+def test_an_op_onnx_has_no_node_for_is_one_error(monkeypatch):
+    model = build("diabetes_ridge").model
+    monkeypatch.setitem(program.PRIMITIVES, "erfc", ((program.REAL,), program.REAL))
+    original = program._lower_link
+
+    def with_erfc(b, plan, margins):
+        values = original(b, plan, margins)
+        return values[:-1] + [b.emit("erfc", margins[0])]
+
+    monkeypatch.setattr(program, "_lower_link", with_erfc)
+    with pytest.raises(ScorewrightError, match=r"^target onnx cannot express op erfc$"):
+        emitter("onnx")(model, {})
+
+
+def test_the_emitter_spells_no_semantics_of_the_plan():
+    """The link, the guards, the scaling and the missing/unseen policies are read from the
+    program only: emit/onnx.py names none of the plan's fields that carry them."""
+    source = Path(onnx_emitter.__file__).read_text()
+    for field in ("exp_guard", "log_link_max", ".fill", ".bound", ".steps", ".clip", ".cut",
+                  "fill_code", "unknown_code", ".weights", ".tables", ".intercepts",
+                  "plan.terms", "plan.link =="):
+        assert field not in source, field
+
+
+# Node counts of the emitter before it rendered the program (measured on this tree, double,
+# per-feature inputs); rendering the program must not add nodes.
+NODES_BEFORE = {"fault_binary": 33, "fault_type": 26, "iris": 22, "wine": 23,
+                "alarms_poisson": 18, "diabetes_ridge": 15, "spector": 24,
+                "mixed_scalers": 33, "hostile": 30}
+
+
+@pytest.mark.parametrize("precision", ["double", "float"])
+@pytest.mark.parametrize("name", MODELS)
+def test_no_more_nodes_than_before(name, precision):
+    (art,) = emitter("onnx")(build(name).model, {"precision": precision})
+    assert len(onnx.load_from_string(art.content).graph.node) <= NODES_BEFORE[name]
+
+
+@pytest.mark.parametrize("precision", ["double", "float"])
+@pytest.mark.parametrize("name", ["fault_binary", "fault_type", "alarms_poisson",
+                                  "mixed_scalers", "wine"])
+def test_folding_and_lanes_change_no_bit(name, precision, monkeypatch):
+    """The vectorized graph (lanes, folded tables and missing values) and the graph of
+    every op alone are both valid ONNX (the onnx checker, strict shape inference) and give
+    the same bytes on both evaluators, in float as in double: folding computes in the
+    graph's element type what the graph would."""
+    model = build(name).model
+    plan = build_plan(model, precision)
+    feeds = input_feeds(plan, model_rows(name, 300), "per-feature")
+    graphs = [emitter("onnx")(model, {"precision": precision})[0].content]
+    monkeypatch.setattr(onnx_emitter, "fold", lambda ops, env, dtype: dict(env))
+    graphs.append(emitter("onnx")(model, {"precision": precision})[0].content)
+    assert len(onnx.load_from_string(graphs[1]).graph.node) > \
+        len(onnx.load_from_string(graphs[0]).graph.node)
+    outputs = []
+    for content in graphs:
+        graph = onnx.load_from_string(content)
+        onnx.checker.check_model(graph, full_check=True)
+        onnx.shape_inference.infer_shapes(graph, check_type=True, strict_mode=True)
+        session = onnxruntime.InferenceSession(content, providers=["CPUExecutionProvider"])
+        names = [o.name for o in session.get_outputs()]
+        reference = ReferenceEvaluator(graph)
+        outputs.append([x.tobytes() for x in session.run(names, feeds)] +
+                       [x.tobytes() for x in reference.run(names, feeds)])
+    assert outputs[0] == outputs[1]
+
+
+@pytest.mark.parametrize("name, before", [("spector", 16), ("iris", 11),
+                                          ("alarms_poisson", 5)])
+def test_a_model_without_terms_scores_its_intercepts_on_every_row(name, before, tmp_path):
+    """Every coefficient zero: the margins are the intercepts, given a row each, and the
+    link runs on them as on any margins (no more nodes than before the rewrite)."""
+    doc = build(name).model.to_document()
+    doc["head"]["coefficients"] = [[0.0] * len(r) for r in doc["head"]["coefficients"]]
+    model = edited(doc)
+    assert build_plan(model).terms == ()
+    (art,) = emitter("onnx")(model, {})
+    assert len(onnx.load_from_string(art.content).graph.node) <= before
+    out, _ = _agrees_with_the_program(model, model_rows(name, 50), tmp_path)
+    assert out.margins.shape[0] == len(model_rows(name, 50))

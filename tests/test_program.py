@@ -97,3 +97,23 @@ def test_an_input_no_term_uses_is_not_read():
     used = {t.input for t in plan.terms}
     read = {op.attr for op in program.ops if op.op.startswith("read_")}
     assert read == used
+
+
+def test_fold_computes_what_it_can_in_the_given_precision():
+    """fold: a select needs only the operand it chooses; exp, reads and unknown names stay
+    unknown; float32 folding rounds each operation to float32 (numpy's float32 arithmetic,
+    IEEE single), as a float target computes."""
+    import numpy as np
+
+    from scorewright.program import Op, fold
+
+    ops = [Op("x", "read_real", (), attr=0),
+           Op("a", "select", ("f", Const(0.1), "x")),
+           Op("b", "add", ("a", Const(0.2))),
+           Op("c", "exp", ("b",)),
+           Op("d", "mul", ("x", Const(2.0)))]
+    double = fold(ops, {"f": True})
+    assert double["b"] == 0.1 + 0.2 and "c" not in double and "d" not in double
+    single = fold(ops, {"f": True}, np.float32)
+    assert single["b"] == np.float32(0.1) + np.float32(0.2) and single["b"] != double["b"]
+    assert "a" not in fold(ops, {"f": False}) and "a" not in fold(ops, {})

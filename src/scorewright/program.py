@@ -624,3 +624,38 @@ def _run_matrix(program: Program, matrix: np.ndarray):
             value = VECTOR[op.op](*args)
         env[op.dest] = value
     return out, env
+
+
+# ---------------------------------------------------------------- constant folding
+
+def fold(ops, env: Mapping[str, Any], dtype=np.float64) -> dict[str, Any]:
+    """The values of every operation computable from `env` (name -> a known value) and
+    constants, each computed as the scalar op table does in `dtype` (a float32 target
+    folds in float32, as its graph would compute); a select needs only its condition and
+    the operand it chooses. Reads, exp, outputs and ops the table lacks stay unknown
+    (absent): a target's exp is its own, so a value through exp is never folded."""
+    out = dict(env)
+    with np.errstate(all="ignore"):
+        for op in ops:
+            if op.dest in out or (op.op not in SCALAR and op.op != "lookup"):
+                continue
+            args = [_fold_const(a, dtype) if isinstance(a, Const) else out.get(a, _UNKNOWN)
+                    for a in op.args]
+            if op.op == "select" and args[0] is not _UNKNOWN:
+                value = args[1] if args[0] else args[2]
+            elif any(a is _UNKNOWN for a in args):
+                continue
+            elif op.op == "lookup":
+                value = dtype(_lookup(int(args[0]), op.attr))
+            else:
+                value = SCALAR[op.op](*args)
+            if value is not _UNKNOWN:
+                out[op.dest] = value
+    return out
+
+
+_UNKNOWN = object()
+
+
+def _fold_const(arg: Const, dtype):
+    return arg.value if arg.type == CODE else dtype(arg.value)
