@@ -143,7 +143,29 @@ def test_products_verify_on_the_targets_that_render_the_program(tmp_path):
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
 
 
-@pytest.mark.parametrize("target", ["sql", "onnx"])
+def test_onnx_renders_unscaled_products_and_refuses_scaled_ones(tmp_path):
+    """Measured: with a scaler after PolynomialFeatures, onnxruntime's default graph
+    optimizations move the margin by up to 4 ULP, so that graph is refused; without
+    one, the graph is bit-identical on both evaluators."""
+    from scorewright.emit import emitter
+    from scorewright.verify.harness import build_targets
+
+    x, y = _frame()
+    model = scorewright.freeze(make_pipeline(_columns(), PolynomialFeatures(2),
+                                             LogisticRegression(max_iter=2000)).fit(x, y),
+                               check_rows=x)
+    report = build_targets(model, tmp_path, data=None,
+                           targets=["onnx-double", "onnx-float-reference"])
+    assert report.ok, [(r.profile.name, r.message) for r in report.results]
+    scaled = scorewright.freeze(make_pipeline(_columns(), PolynomialFeatures(2),
+                                              StandardScaler(),
+                                              LogisticRegression(max_iter=2000)).fit(x, y),
+                                check_rows=x)
+    with pytest.raises(ScorewrightError, match="target onnx cannot express the scaled product"):
+        emitter("onnx")(scaled, {})
+
+
+@pytest.mark.parametrize("target", ["sql"])
 def test_targets_that_do_not_render_the_program_refuse_products(target):
     from scorewright.emit import emitter
 

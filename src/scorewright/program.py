@@ -18,6 +18,7 @@ Primitives (`PRIMITIVES` lists each with its operand and result types):
   neg abs                 exact
   sqrt                    the IEEE square root (correctly rounded everywhere)
   gt ge eq                comparisons (flag)
+  or(f, g)                either flag
   select(f, a, b)         a if f else b (either type)
   exp(x)                  the plan's exp (libm or portable), argument already guarded
   lookup(c, table)        table[c] for 0 <= c < len(table), else 0.0 (no level)
@@ -55,6 +56,7 @@ PRIMITIVES: dict[str, tuple[tuple[str, ...] | str, str]] = {
     "div": ((REAL, REAL), REAL), "min": ((REAL, REAL), REAL), "max": ((REAL, REAL), REAL),
     "neg": ((REAL,), REAL), "abs": ((REAL,), REAL), "sqrt": ((REAL,), REAL),
     "gt": ("same", FLAG), "ge": ("same", FLAG), "eq": ("same", FLAG),
+    "or": ((FLAG, FLAG), FLAG),
     "select": ("select", "any"), "exp": ((REAL,), REAL), "lookup": ((CODE,), REAL),
     "sum": ("reals", REAL), "output": ("one", "any"),
 }
@@ -202,7 +204,7 @@ def _lower_numeric(b: _Builder, inp: NumericInput, single: bool = False) -> str:
         # comparison meets a missing value: 1.0 stands in for it there too)
         known = b.emit("select", missing, Const(1.0), x, hint="v")
         outside = b.emit(_DOMAIN[first][0], Const(_DOMAIN[first][1]), known, hint="f")
-        missing = b.emit("select", missing, missing, outside, hint="f")
+        missing = b.emit("or", missing, outside, hint="f")
         placeholder = 1.0
     b.missing[inp.index] = missing
     v = b.emit("select", missing, Const(placeholder if inp.fill is None else inp.fill), x,
@@ -248,7 +250,7 @@ def _lower_product(b: _Builder, plan: Plan, term, k: int):
             hit = None
             for code in data:
                 eq = b.emit("eq", b.codes[i], Const(code), hint="f")
-                hit = eq if hit is None else b.emit("select", hit, hit, eq, hint="f")
+                hit = eq if hit is None else b.emit("or", hit, eq, hint="f")
             f = b.emit("select", hit, Const(1.0), Const(0.0), hint="v")
         else:
             f = b.emit("select", b.missing[i], Const(data[1]), Const(data[0]), hint="v")
@@ -503,6 +505,7 @@ SCALAR = {
     "mul": lambda a, b: a * b, "div": lambda a, b: a / b,
     "min": _py_min, "max": _py_max, "neg": lambda a: -a, "abs": abs, "sqrt": math.sqrt,
     "gt": lambda a, b: a > b, "ge": lambda a, b: a >= b, "eq": lambda a, b: a == b,
+    "or": lambda f, g: bool(f or g),
     "select": lambda f, a, b: a if f else b, "sum": _sum_left,
 }
 
@@ -571,7 +574,7 @@ VECTOR = {
     # max(a, b) is a unless b > a, as the scalar selection (and NaN-free here).
     "max": lambda a, b: np.where(np.greater(b, a), b, a),
     "min": lambda a, b: np.where(np.less(b, a), b, a),
-    "gt": np.greater, "ge": np.greater_equal, "eq": np.equal,
+    "gt": np.greater, "ge": np.greater_equal, "eq": np.equal, "or": np.logical_or,
     "select": np.where, "sum": _sum_left,
 }
 

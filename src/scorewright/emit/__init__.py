@@ -29,9 +29,8 @@ EMITTERS = {
 
 # Links and transforms (and missing indicators) a target's emitter does not render from
 # the scoring program yet, so cannot express.
-NOT_YET_LINKS = {"sql": ("probit", "cloglog"), "onnx": ("probit", "cloglog")}
-NOT_YET_TRANSFORMS = {"sql": ("log", "log1p", "sqrt", "bins"),
-                      "onnx": ("log", "log1p", "sqrt", "bins")}
+NOT_YET_LINKS = {"sql": ("probit", "cloglog")}
+NOT_YET_TRANSFORMS = {"sql": ("log", "log1p", "sqrt", "bins")}
 
 
 def emitter(target: str):
@@ -40,19 +39,26 @@ def emitter(target: str):
     if target not in EMITTERS:
         raise ScorewrightError(f"unknown target {target!r}; known: {', '.join(sorted(EMITTERS))}")
     emit = import_module(EMITTERS[target]).emit
-    if target not in NOT_YET_LINKS:
+    if target not in NOT_YET_LINKS and target != "onnx":
         return emit
 
     def checked(model, options):
-        if model.head.link in NOT_YET_LINKS[target]:
+        if model.head.link in NOT_YET_LINKS.get(target, ()):
             raise ScorewrightError(f"target {target} cannot express the {model.head.link} "
                                    "link yet")
         for feat in model.features:
             for step in getattr(feat, "scaling", ()):
-                if step.op in NOT_YET_TRANSFORMS[target]:
+                if step.op in NOT_YET_TRANSFORMS.get(target, ()):
                     raise ScorewrightError(f"target {target} cannot express the {step.op} "
                                            f"transform of feature {feat.name!r} yet")
         for col in model.design:
+            if target == "onnx" and col.product is not None and col.scaling:
+                # measured: onnxruntime's default graph optimizations (basic level) change
+                # such a graph's margins by up to 4 ULP; cause not found yet
+                raise ScorewrightError(f"target onnx cannot express the scaled product column "
+                                       f"of feature {col.feature!r} exactly yet")
+            if target not in NOT_YET_TRANSFORMS:
+                continue
             if col.product is not None or col.encoded is not None:
                 what = "product" if col.product is not None else "encoded"
                 raise ScorewrightError(f"target {target} cannot express the {what} column "

@@ -170,6 +170,7 @@ def c_spelling(prec: CPrecision, exp_fn: str) -> Spelling:
             "min": "(({1} < {0}) ? {1} : {0})",
             "neg": "-{0}", "abs": prec.fabs + "({0})",
             "sqrt": ("sqrtf" if prec.real == "float" else "sqrt") + "({0})",
+            "or": "({0} || {1})",
             "gt": "({0} > {1})", "ge": "({0} >= {1})", "eq": "({0} == {1})",
             "select": "({0} ? {1} : {2})",
             "exp": exp_fn + "({0})",

@@ -94,6 +94,7 @@ JAVA = Spelling(
         "min": "(({1} < {0}) ? {1} : {0})",
         "neg": "-{0}", "abs": "Math.abs({0})",
         "sqrt": "Math.sqrt({0})",  # correctly rounded (the Java language's own rule)
+        "or": "({0} || {1})",
         "gt": "({0} > {1})", "ge": "({0} >= {1})", "eq": "({0} == {1})",
         "select": "({0} ? {1} : {2})",
         "exp": "StrictMath.exp({0})",

@@ -896,7 +896,8 @@ def _supersequence(a: list[str], b: list[str]) -> list[str]:
 # op -> its node (a name), or the renderer's method that spells it in several nodes.
 NODES = {
     "add": "Add", "sub": "Sub", "mul": "Mul", "div": "Div", "min": "Min", "max": "Max",
-    "neg": "Neg", "abs": "Abs", "gt": "Greater", "ge": "GreaterOrEqual", "eq": "Equal",
+    "neg": "Neg", "abs": "Abs", "sqrt": "Sqrt", "or": "Or",
+    "gt": "Greater", "ge": "GreaterOrEqual", "eq": "Equal",
     "select": "Where", "exp": "Exp", "sum": "Sum",
     "read_real": _Renderer._read_real, "read_code": _Renderer._read_code,
     "is_missing": _Renderer._is_missing, "lookup": _Renderer._lookup,

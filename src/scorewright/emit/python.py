@@ -38,6 +38,7 @@ PYTHON = Spelling(
         "max": "({1} if {1} > {0} else {0})",
         "min": "({1} if {1} < {0} else {0})",
         "neg": "-{0}", "abs": "abs({0})", "sqrt": "math.sqrt({0})",
+        "or": "({0} or {1})",
         "gt": "{0} > {1}", "ge": "{0} >= {1}", "eq": "{0} == {1}",
         "select": "({1} if {0} else {2})",
         "exp": "math.exp({0})",
