@@ -208,9 +208,27 @@ def spector_probit() -> TestModel:
 
     data = sm.datasets.spector.load_pandas()
     X, y = data.exog[["GPA", "TUCE", "PSI"]], data.endog
+    from scorewright.freeze.statsmodels import ResultsSource
+
     results = sm.Probit(y, sm.add_constant(X)).fit(disp=0)
-    return TestModel("spector_probit", results, X, y,
-                     scorewright.freeze(results, name="spector_probit", check_rows=X))
+    model = scorewright.freeze(results, name="spector_probit", check_rows=X)
+    return TestModel("spector_probit", _Classifier(ResultsSource(results, model)), X, y, model)
+
+
+class _Classifier:
+    """statsmodels results as a scikit-learn classifier (predict_proba; predict: the class
+    of probability above 0.5), for the tests that compare with one."""
+
+    def __init__(self, source):
+        self.source = source
+        self.classes_ = np.array([0, 1])
+        self.feature_names_in_ = source.feature_names_in_
+
+    def predict_proba(self, frame):
+        return self.source.predict_proba(frame)
+
+    def predict(self, frame):
+        return (self.source.predict(frame) > 0.5).astype(int)
 
 
 BUILDERS = {

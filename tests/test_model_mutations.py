@@ -102,6 +102,24 @@ def corpus():
     yield "newer format version", _sealed(d), "format_version"
     yield "empty file", "", "JSON"
     yield "a JSON array", "[]", "object"
+    yield from _version_2_corpus()
+
+
+def _version_2_corpus():
+    """Every key removed and every value of the wrong type in a format-2 model (a log1p
+    transform, missing indicators, bins, products, an ordinal encoding): each refused;
+    a few name a neighbouring field, so no needle."""
+    good = json.loads(models.build("compressor_terms").model.to_json())
+    for path, value in _paths(good):
+        if path == ("sha256",):
+            continue
+        if isinstance(path[-1], str):
+            d = copy.deepcopy(good)
+            _set(d, path, delete=True)
+            yield f"format 2: removed {path}", _sealed(d), None
+        d = copy.deepcopy(good)
+        _set(d, path, _wrong_type(value))
+        yield f"format 2: wrong type at {path}", _sealed(d), None
 
 
 CASES = list(corpus())

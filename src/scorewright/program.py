@@ -282,25 +282,27 @@ def _lower_log(b: _Builder, x, single: bool = False):
     (tests/test_transforms.py): at most 0.75 ULP."""
     top = 64 if single else 512  # float: exponents within 2^127
     tiny, lift = (2.0 ** -126, 23) if single else (2.0 ** -1022, 52)
+    # Each scaling multiplies by a selected power of two (1.0 where it does not apply),
+    # so no operation overflows even where its result would be discarded.
     k = Const(0.0)
     sub = b.emit("gt", Const(tiny), x)  # subnormal: lift it into the normal range first
-    x = b.emit("select", sub, b.emit("mul", x, Const(2.0 ** lift)), x)
+    x = b.emit("mul", x, b.emit("select", sub, Const(2.0 ** lift), Const(1.0)))
     k = b.emit("select", sub, Const(float(-lift)), k)
     j = top
     while j >= 1:
         up = b.emit("ge", x, Const(2.0 ** j))
-        x = b.emit("select", up, b.emit("mul", x, Const(2.0 ** -j)), x)
-        k = b.emit("select", up, b.emit("add", k, Const(float(j))), k)
+        x = b.emit("mul", x, b.emit("select", up, Const(2.0 ** -j), Const(1.0)))
+        k = b.emit("add", k, b.emit("select", up, Const(float(j)), Const(0.0)))
         j //= 2
     j = top
     while j >= 1:
         down = b.emit("gt", Const(2.0 ** (1 - j)), x)
-        x = b.emit("select", down, b.emit("mul", x, Const(2.0 ** j)), x)
-        k = b.emit("select", down, b.emit("sub", k, Const(float(j))), k)
+        x = b.emit("mul", x, b.emit("select", down, Const(2.0 ** j), Const(1.0)))
+        k = b.emit("sub", k, b.emit("select", down, Const(float(j)), Const(0.0)))
         j //= 2
     over = b.emit("gt", x, Const(math.sqrt(2.0)))
-    x = b.emit("select", over, b.emit("mul", x, Const(0.5)), x)
-    k = b.emit("select", over, b.emit("add", k, Const(1.0)), k)
+    x = b.emit("mul", x, b.emit("select", over, Const(0.5), Const(1.0)))
+    k = b.emit("add", k, b.emit("select", over, Const(1.0), Const(0.0)))
     f = b.emit("sub", x, Const(1.0))
     s = b.emit("div", f, b.emit("add", Const(2.0), f))
     z = b.emit("mul", s, s)
