@@ -61,3 +61,21 @@ def test_linear_classifiers_freeze_and_agree(head, data, task):
     plan = build_plan(model)
     got = np.array([score_row(plan, r).probabilities for r in x.head(50).to_dict("records")])
     np.testing.assert_allclose(got, pipe.predict_proba(x.head(50)), rtol=0, atol=1e-12)
+
+
+def test_transformed_target_log_exp_is_the_log_link():
+    """TransformedTargetRegressor(func=np.log, inverse_func=np.exp) predicts exp of its
+    regressor's prediction: frozen as the log link, held to its predict to 1e-12."""
+    from sklearn.compose import TransformedTargetRegressor
+    from sklearn.linear_model import Ridge
+
+    x, y = load_diabetes(return_X_y=True, as_frame=True)
+    pipe = make_pipeline(StandardScaler(), TransformedTargetRegressor(
+        Ridge(), func=np.log, inverse_func=np.exp)).fit(x, y)
+    model, checked = freeze_checked(pipe, check_rows=x)
+    assert model.head.link == "log" and checked.compared >= len(x)
+    odd = make_pipeline(StandardScaler(), TransformedTargetRegressor(
+        Ridge(), func=np.sqrt, inverse_func=np.square)).fit(x, y)
+    from scorewright.errors import ScorewrightError
+    with pytest.raises(ScorewrightError, match="only func=np.log"):
+        freeze_checked(odd)

@@ -661,6 +661,28 @@ def _indicator_value(chain: Chain, flag: float) -> float:
 # ---------------------------------------------------------------- heads
 
 def _head(est, path) -> Head:
+    from sklearn.compose import TransformedTargetRegressor
+
+    if type(est) is TransformedTargetRegressor:
+        return _transformed_target(est, path)
+    return _linear_head(est, path)
+
+
+def _transformed_target(est, path) -> Head:
+    """TransformedTargetRegressor(func=np.log, inverse_func=np.exp) over a linear
+    regressor: exp of its prediction, the log link."""
+    if est.transformer is not None or est.func is not np.log or est.inverse_func is not np.exp:
+        what = getattr(est.func, "__name__", repr(est.func))
+        raise Unsupported(f"TransformedTargetRegressor at {path}: only func=np.log with "
+                          f"inverse_func=np.exp is frozen (the log link), not {what}")
+    inner = _linear_head(est.regressor_, f"{path} > regressor")
+    if inner.task != "regression" or inner.link != "identity":
+        raise Unsupported(f"TransformedTargetRegressor at {path}: its regressor must be a "
+                          "linear regression (identity link)")
+    return Head("regression", "log", None, inner.intercepts, inner.coefficients, None)
+
+
+def _linear_head(est, path) -> Head:
     from sklearn.discriminant_analysis import LinearDiscriminantAnalysis
     from sklearn.linear_model import (ARDRegression, BayesianRidge, ElasticNet, ElasticNetCV,
                                       GammaRegressor, HuberRegressor, Lasso, LassoCV,
