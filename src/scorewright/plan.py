@@ -396,6 +396,19 @@ def _numeric_bound(feat, term, budgets, prec: Precision, index: int = -1,
     return bound
 
 
+def lookup_terms(plan: Plan) -> list[tuple[int, Term]]:
+    """(n, term) for every term the program looks up by level code, n counting the
+    earlier such terms of its input (a multiclass target encoding gives an input one per
+    class), so a target can name each term's tables apart."""
+    seen: dict[int, int] = {}
+    out = []
+    for term in plan.terms:
+        if term.lookups:
+            out.append((seen.get(term.input, 0), term))
+            seen[term.input] = seen.get(term.input, 0) + 1
+    return out
+
+
 def output_columns(plan: Plan) -> tuple[str, ...]:
     """The output columns every tabular target appends, in order."""
     if plan.task == "binary":

@@ -98,6 +98,7 @@ class _Builder:
         self.clamped: dict[int, str] = {}  # numeric input -> its value, filled and clamped
         self.codes: dict[int, str] = {}    # categorical input -> its code after policies
         self.products: dict[int, str] = {}  # a product term (by id) -> its value
+        self.raw_codes: dict[int, str] = {}  # categorical input -> its code as read
 
     def emit(self, op: str, *args, attr=None, hint: str = "t") -> str:
         if op not in PRIMITIVES:
@@ -151,8 +152,8 @@ def lower(plan: Plan) -> Program:
                 terms.append(w)
             elif term.kind == "missing":
                 present, missing = term.tables[k]
-                terms.append(b.emit("select", b.missing[term.input], Const(missing),
-                                    Const(present), hint="w"))
+                terms.append(b.emit("select", _missing_flag(b, plan.inputs[term.input]),
+                                    Const(missing), Const(present), hint="w"))
             else:
                 terms.append(b.emit("lookup", v, attr=term.tables[k], hint="w"))
         terms.append(Const(plan.intercepts[k]))
@@ -221,6 +222,15 @@ def _lower_numeric(b: _Builder, inp: NumericInput, single: bool = False) -> str:
     return v
 
 
+def _missing_flag(b: _Builder, inp):
+    """The input is missing: a numeric input's flag (not finite, or outside its transform's
+    domain); a categorical input's code as read is the missing code."""
+    if inp.index not in b.missing:
+        b.missing[inp.index] = b.emit("eq", b.raw_codes[inp.index], Const(MISSING_CODE),
+                                      hint="f")
+    return b.missing[inp.index]
+
+
 def _apply_steps(b: _Builder, v, steps, single: bool = False):
     for step in steps:
         if step.op == BINS:
@@ -253,7 +263,8 @@ def _lower_product(b: _Builder, plan: Plan, term, k: int):
                 hit = eq if hit is None else b.emit("or", hit, eq, hint="f")
             f = b.emit("select", hit, Const(1.0), Const(0.0), hint="v")
         else:
-            f = b.emit("select", b.missing[i], Const(data[1]), Const(data[0]), hint="v")
+            f = b.emit("select", _missing_flag(b, inp), Const(data[1]), Const(data[0]),
+                       hint="v")
         p = f if p is None else b.emit("mul", p, f, hint="v")
     p = b.products[id(term)] = _apply_steps(b, p, term.steps, single)
     return b.emit("mul", Const(term.weights[k]), p, hint="w")
@@ -364,6 +375,7 @@ def _lower_code(b: _Builder, inp: CategoricalInput) -> str:
     """The level code after the missing and unseen policies; a negative code is no level
     (every lookup gives 0.0)."""
     c = b.emit("read_code", attr=inp.index, hint="c")
+    b.raw_codes[inp.index] = c
     if inp.fill_code is not None:
         is_missing = b.emit("eq", c, Const(MISSING_CODE), hint="f")
         c = b.emit("select", is_missing, Const(inp.fill_code), c, hint="c")

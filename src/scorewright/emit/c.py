@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 from ..errors import ScorewrightError
 from ..model import FrozenModel
-from ..plan import Plan, build_plan
+from ..plan import Plan, build_plan, lookup_terms
 from ..program import Program, lower, output_names, prune
 from .. import portable_exp
 from . import Artifact, reject_options
@@ -109,7 +109,7 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
     else:
         exp_fn = prec.exp
     program = lower(plan)
-    split = split_margins(program)
+    split = split_margins(program, ROW_PART_TERMS)
     spelling = c_spelling(prec, exp_fn)
     tables = _table_names(plan, prefix)
     return {
@@ -130,7 +130,9 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         "batch_width": plan.n_outputs if plan.task == "multiclass" else 1,
         "tables": _tables(plan, prec, prefix),
         **program_code(program, split, spelling, names, prefix, tables, decision_only),
-        **batch_code(program, split, batch_spelling(spelling, prec), prec, prefix, tables),
+        # the batch scorer is one function: its margins in one part
+        **batch_code(program, split_margins(program), batch_spelling(spelling, prec), prec,
+                     prefix, tables),
     }
 
 
@@ -138,11 +140,10 @@ def _tables(plan: Plan, prec: CPrecision, prefix: str) -> list[dict]:
     """Categorical contribution tables: per output, one value per level code plus a
     final 0.0 for "no level"."""
     out = []
-    for term in plan.terms:
-        if not term.lookups:
-            continue
+    for nth, term in lookup_terms(plan):
         rows = [[prec.literal(x) for x in table] + [prec.literal(0.0)] for table in term.lookups]
-        out.append({"name": table_name(prefix, term.input), "rows": rows, "width": len(rows[0]),
+        out.append({"name": table_name(prefix, term.input, nth), "rows": rows,
+                    "width": len(rows[0]),
                     "comment": comment_text(plan.inputs[term.input].name)})
     return out
 
@@ -227,5 +228,5 @@ def _accumulate(k: int, term: str, started: list[bool]) -> str:
 
 def _table_names(plan: Plan, prefix: str) -> dict[tuple, str]:
     """Each lookup table of the program as a row of the categorical term's table."""
-    return {table: f"{table_name(prefix, term.input)}[{k}]"
-            for term in plan.terms for k, table in enumerate(term.lookups)}
+    return {table: f"{table_name(prefix, term.input, nth)}[{k}]"
+            for nth, term in lookup_terms(plan) for k, table in enumerate(term.lookups)}

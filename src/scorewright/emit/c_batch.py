@@ -24,9 +24,11 @@ from .c_precision import CPrecision
 from .statements import MarginSplit, Renderer, Spelling
 
 
-def table_name(prefix: str, index: int) -> str:
-    """The categorical contribution table of input `index`."""
-    return f"{prefix}_term_{index}"
+def table_name(prefix: str, index: int, nth: int = 0) -> str:
+    """The contribution table of input `index` (its `nth` lookup term after the first:
+    a multiclass target encoding gives an input one per class)."""
+    return f"{prefix}_term_{index}" + (f"_{nth}" if nth else "")
+
 
 
 def batch_spelling(row: Spelling, prec: CPrecision) -> Spelling:

@@ -25,7 +25,7 @@ from dataclasses import replace
 from .. import portable_exp
 from ..errors import ScorewrightError
 from ..model import FrozenModel
-from ..plan import Plan, build_plan, output_columns
+from ..plan import Plan, build_plan, lookup_terms, output_columns
 from ..program import lower, output_names
 from . import Artifact, reject_options
 from .statements import Renderer, Spelling, split_margins
@@ -103,7 +103,7 @@ JAVA = Spelling(
     },
 )
 # the nested classes' names, which the public class must not take
-NESTED = re.compile(r"Values|PortableExp|Part\d+|Levels\d+|Table\d+_\d+")
+NESTED = re.compile(r"Values|PortableExp|Part\d+|Levels\d+|Table\d+(?:x\d+)?_\d+")
 TYPES = {"real": "double", "code": "int", "flag": "boolean"}
 
 
@@ -147,13 +147,13 @@ def spelling(plan: Plan) -> Spelling:
 
 def context(plan: Plan, name: str) -> dict:
     program = lower(plan)
-    split = split_margins(program)
+    split = split_margins(program, PART_TERMS)
     sources = {inp.index: f"row.get(FEATURES[{inp.index}])" for inp in plan.inputs}
     rename = {m: f"m[{k}]" for k, m in enumerate(split.margins) if isinstance(m, str)}
     tables = {}
-    for term in plan.terms:
+    for nth, term in lookup_terms(plan):
         for k, table in enumerate(term.lookups):
-            tables.setdefault(table, f"Table{term.input}_{k}.T")
+            tables.setdefault(table, f"Table{term.input}{'x%d' % nth if nth else ''}_{k}.T")
     r = Renderer(program, spelling(plan), sources, rename, tables)
     started = [False] * plan.n_outputs
     parts = []

@@ -122,9 +122,13 @@ class MarginSplit:
     rest: list[Op]
 
 
-def split_margins(program: Program) -> MarginSplit:
+def split_margins(program: Program, part_size: int | None = None) -> MarginSplit:
     """For languages that accumulate each margin term by term (m[k] = m[k] + t), so a
-    wide model's terms can be cut into parts: the same additions in the same order."""
+    wide model's terms can be cut into parts: the same additions in the same order.
+    With `part_size`, the groups are cut into parts of that many terms, each rendered on
+    its own (a function, a class): an operation several terms need (an input's value
+    that a product and its own term share) is in the cone of its first group in every
+    part that needs it, so no part reads a name another part computed."""
     n = program.plan.n_outputs
     by_dest = {op.dest: op for op in program.ops}
     margin_ops = [by_dest.get(_output_arg(program, f"margin_{k}")) for k in range(n)]
@@ -133,7 +137,11 @@ def split_margins(program: Program) -> MarginSplit:
     position = {op.dest: i for i, op in enumerate(program.ops)}
     done: set[str] = set()
     groups = []
+    first_done: set[str] = set()
     for j in range(width):
+        if part_size and j % part_size == 0:
+            first_done |= done
+            done = set()
         cone: list[Op] = []
         terms = []
         for k, s in enumerate(sums):
@@ -144,7 +152,7 @@ def split_margins(program: Program) -> MarginSplit:
     intercepts = [s.args[-1] if s is not None else _output_arg(program, f"margin_{k}")
                   for k, s in enumerate(sums)]
     margins = [s.dest if s is not None else intercepts[k] for k, s in enumerate(sums)]
-    used = done | {s.dest for s in sums if s is not None}
+    used = done | first_done | {s.dest for s in sums if s is not None}
     rest = [op for op in program.ops if op.dest not in used]
     return MarginSplit(groups, intercepts, margins, rest)
 

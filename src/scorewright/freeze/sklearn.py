@@ -505,9 +505,13 @@ def _one_hot(enc, chains, path):
         if chain.steps:
             raise Unsupported(f"OneHotEncoder at {path} encodes a scaled column")
         cats = [_level(v, path) for v in enc.categories_[i]]
-        if any(c is None for c in cats):
-            raise Unsupported(f"OneHotEncoder at {path} learned a missing value as a category of "
-                              "its column; put a SimpleImputer before it")
+        learned_missing = any(c is None for c in cats)
+        if learned_missing and (chain.fill is not None or drop_idx is not None or (
+                infrequent is not None and infrequent[i] is not None)):
+            raise Unsupported(f"OneHotEncoder at {path} learned a missing value as a category "
+                              "together with an imputer, drop or infrequent grouping; not "
+                              "frozen")
+        cats = [c for c in cats if c is not None]
         if len({type(c) for c in cats}) > 1:
             raise Unsupported(f"OneHotEncoder at {path}: a column mixes text and number "
                               "categories")
@@ -536,6 +540,8 @@ def _one_hot(enc, chains, path):
         for group in groups:
             out.append(Chain(chain.feature, fill=fill, levels=group, categories=tuple(cats),
                              unknown_level=unknown, encoded=True))
+        if learned_missing:  # its column, last (scikit-learn sorts a missing value last)
+            out.append(Chain(chain.feature, indicator=True, categories=tuple(cats)))
     return out
 
 
@@ -628,9 +634,6 @@ def _features_and_design(chains, raw_names):
             fill = None if c.fill is None else float(c.fill)
             features.append(NumericFeature(name, fill, tuple(c.steps)))
         elif i in categorical:
-            if i in indicated:
-                raise Unsupported(f"feature {name!r}: a missing indicator of a categorical "
-                                  "feature is not frozen yet")
             c = categorical[i][0]
             features.append(CategoricalFeature(name, c.categories, c.fill, c.unknown_level))
         elif i in indicated:
