@@ -150,8 +150,8 @@ def test_indicators_verify_on_the_targets_that_render_the_program(tmp_path):
 
     x, y = _frame()
     model = scorewright.freeze(_pipeline().fit(x, y), check_rows=x)
-    report = build_targets(model, tmp_path, data=None,
-                           targets=["python", "c-double", "java", "c-float", "c-cortex-m3",
+    report = build_targets(model, tmp_path, data=None, n_random=300,
+                           targets=["python", "c-double", "java", "c-float",
                                     "onnx-double", "onnx-float-reference"])
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
 

@@ -183,7 +183,7 @@ def test_links_verify_on_the_targets_that_render_the_program(link, tmp_path):
     C with glibc's exp bit-identical too; firmware (newlib's exp) within its profile."""
     from scorewright.verify.harness import build_targets
 
-    report = build_targets(_probit_model(link), tmp_path, data=None,
+    report = build_targets(_probit_model(link), tmp_path, data=None, n_random=300,
                            targets=["python", "c-double", "c-double-portable-exp",
                                     "java-portable-exp", "c-float", "c-cortex-m3",
                                     "onnx-double", "onnx-float-reference"])

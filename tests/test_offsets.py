@@ -65,7 +65,7 @@ def test_formula_with_exposure_end_to_end(tmp_path):
     rows = d.drop(columns="claims").head(200)
     got = np.array([score_row(plan, r).value for r in rows.to_dict("records")])
     np.testing.assert_allclose(got, results.predict(rows, exposure=rows.years), rtol=1e-12)
-    report = build_targets(model, tmp_path, data=None,
+    report = build_targets(model, tmp_path, data=None, n_random=300,
                            targets=["python", "c-double", "java-portable-exp", "c-cortex-m3"])
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
 

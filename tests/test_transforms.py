@@ -230,7 +230,7 @@ def test_transforms_verify_on_the_targets_that_render_the_program(tmp_path):
 
     x, y = _frame()
     model = scorewright.freeze(_pipeline().fit(x, y), check_rows=x)
-    report = build_targets(model, tmp_path, data=None,
+    report = build_targets(model, tmp_path, data=None, n_random=300,
                            targets=["python", "c-double", "c-double-portable-exp",
                                     "java-portable-exp", "c-float", "c-cortex-m3",
                                     "onnx-double", "onnx-float-reference"])
