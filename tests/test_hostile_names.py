@@ -26,7 +26,8 @@ from hypothesis import strategies as st
 import tally
 from profile_tags import params_one_per_emitter_key
 from scorewright.emit import emitter
-from scorewright.model import CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature
+from scorewright.model import (CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
+                               ScalingStep)
 from scorewright.plan import build_plan
 from scorewright.errors import ScorewrightError
 from scorewright.verify.compare import compare
@@ -67,16 +68,28 @@ def hostile_models(draw):
         classes = tuple(draw(st.lists(text, min_size=n_out if n_out > 1 else 2,
                                       max_size=n_out if n_out > 1 else 2, unique=True)))
     coef = st.floats(-3, 3, allow_nan=False, allow_infinity=False)
-    n_design = 2 + len(levels) - 1
+    # half the models carry format 2's term kinds: a log1p transform, a missing indicator,
+    # a product, an encoded category, the probit or cloglog link
+    v2 = draw(st.booleans())
     features = (
         NumericFeature(names[0], draw(st.one_of(st.none(), coef))),
-        NumericFeature(names[1], None, ()),
+        NumericFeature(names[1], None, (ScalingStep("log1p"),) if v2 else ()),
         CategoricalFeature(names[2], tuple(levels), None, None),
     )
     design = (DesignColumn(names[0]), DesignColumn(names[1])) + tuple(
         DesignColumn(names[2], (lv,)) for lv in levels[1:])
-    head = Head(task, "logit" if task == "binary" else
-                ("softmax" if task == "multiclass" else "identity"), classes,
+    if v2:
+        design += (DesignColumn(names[0], missing=(0.0, 1.0)),
+                   DesignColumn(names[0], product=(
+                       DesignColumn(names[0], scaling=()),
+                       DesignColumn(names[2], (levels[0],))), scaling=()),
+                   DesignColumn(names[2], encoded=(tuple(float(i) for i in range(len(levels))),
+                                                   -1.0, -2.0)))
+    n_design = len(design)
+    link = "logit" if task == "binary" else ("softmax" if task == "multiclass" else "identity")
+    if v2 and task == "binary":
+        link = draw(st.sampled_from(["logit", "probit", "cloglog"]))
+    head = Head(task, link, classes,
                 tuple(draw(coef) for _ in range(n_out)),
                 tuple(tuple(draw(coef) for _ in range(n_design)) for _ in range(n_out)),
                 0.0 if task == "binary" else None)
