@@ -153,3 +153,25 @@ def test_underflow_guards_give_ieee_bits_on_postgres(postgres_dsn):
     want = [w for _, w in cases]
     assert (bits(got) == bits(want)).all()
     assert any(w == 0.0 for w in want) and any(0.0 < abs(w) < 1e-320 for w in want)
+
+
+def test_too_deep_for_duckdbs_lateral_function_call_is_one_error(monkeypatch):
+    """DuckDB's plan of a LATERAL call doubles with each layer (sql_dialects); the
+    function form, which has no rowid to join by instead, refuses a query past the
+    limit in one line (the select form joins by rowid there, test_sql.py runs it)."""
+    shallow = dataclasses.replace(DIALECTS["duckdb"], lateral_layers=3)
+    monkeypatch.setitem(sql_dialects.DIALECTS, "duckdb", shallow)
+    model = models.build("fault_binary").model
+    with pytest.raises(ScorewrightError, match=r"^--form function: this model's query is "
+                                               r"\d+ layers deep, and duckdb plans"):
+        emit(model, {"dialect": "duckdb", "form": "function"})
+    assert "JOIN (" in emit(model, {"dialect": "duckdb"})[0].content.decode()
+
+
+def test_an_expression_too_large_for_spark_is_one_error(monkeypatch):
+    from scorewright.emit import sql_inline
+
+    monkeypatch.setattr(sql_inline, "MAX_CHARACTERS", 2_000)
+    with pytest.raises(ScorewrightError, match=r"^--form expressions: output 'margin' would "
+                                               r"be one expression of [0-9,]+ characters"):
+        emit(models.build("fault_binary").model, {"dialect": "spark", "form": "expressions"})

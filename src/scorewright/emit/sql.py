@@ -1,13 +1,13 @@
 """SQL target: one query per dialect that scores an input table in the database.
 
-The query is a stack of subqueries, innermost first, one layer per stage of the
-plan, so each expression is computed once and the operation order is the
-plan's: read (any column type to double, sql_reading; NULL, NaN, +-inf and
-text that is no number are missing; category codes) -> design values (fill, clamp, scaling, clip) -> margins (terms in plan
-order, then the intercept) -> link -> probabilities and the decision. Every
-user string enters as a quoted identifier or string literal; the header
-comment escapes it. The dialect record (sql_dialects) says how to spell each
-thing; nothing here asks which engine it is.
+The query is a stack of subqueries (layers), innermost first, into which
+sql_program renders the scoring program: each input read in its own layers (any
+column type to double, sql_reading), then the program's ops, each inlined or made
+a column of a layer, in the program's order. The missing-value, scaling, link and
+decision rules are the program's ops; nothing here decides them. Every user string
+enters as a quoted identifier or string literal; the header comment escapes it.
+The dialect record (sql_dialects) says how to spell each thing; nothing here asks
+which engine it is.
 """
 
 from __future__ import annotations
@@ -25,7 +25,8 @@ from .sql_columns import input_columns, name_key
 from .sql_dialects import Dialect, dialect as find_dialect, literal
 from . import sql_long, sql_program, sql_reading
 from .sql_inline import output_expressions
-from .sql_program import Query, unreachable
+from .sql_program import Query
+from .sql_reading import unreachable
 from .templating import render
 
 OPTIONS = ("dialect", "table", "keep", "columns", "form", "layout", "long_columns")
@@ -72,9 +73,6 @@ class Layers:
 
     def add(self, columns: list[tuple[str, str]], source: str = "") -> None:
         self.layers.append((columns, source))
-
-    def carry(self, aliases) -> list[tuple[str, str]]:
-        return [(a, f"{self.ref}.{a}") for a in aliases]
 
     def render(self, innermost_from: str, fence: str) -> list[str]:
         """The nested SELECTs as lines; a line may hold a newline inside a quoted name
@@ -474,6 +472,13 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
     if s.form == "function":
         q = build_query(plan, d, {inp.name: d.parameter.format(n=inp.index + 1, i=inp.index)
                                   for inp in plan.inputs}, typed=d.typed_parameters)
+        depth = len(q.layers.layers)
+        if d.lateral_layers is not None and depth > d.lateral_layers:
+            # The function is called through LATERAL, with no rowid to join by instead.
+            raise ScorewrightError(f"--form function: this model's query is {depth} layers "
+                                   f"deep, and {d.name} plans a LATERAL call of more than "
+                                   f"{d.lateral_layers} in time that doubles with each layer; "
+                                   "use --form select or view")
         context.update(
             body=q.body, outputs=q.outputs,
             parameters=[d.parameter_decl.format(n=i + 1, i=i, type=t)

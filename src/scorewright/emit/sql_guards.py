@@ -49,128 +49,80 @@ def _bits(x: float) -> int:
     return struct.unpack("<Q", struct.pack("<d", x))[0]
 
 
-def _down(x: float) -> float:
-    return math.nextafter(x, -INF)
-
-
-def _up(x: float) -> float:
-    return math.nextafter(x, INF)
+def _out(lo: float, hi: float, tiny: float):
+    """An interval widened by one ULP each way (the bounds were rounded), and a floor
+    of its non-zero magnitudes (INF: always zero)."""
+    lo = -INF if lo != lo else math.nextafter(lo, -INF)
+    hi = INF if hi != hi else math.nextafter(hi, INF)
+    return (lo, hi, tiny if tiny == INF else max(math.nextafter(tiny, 0.0), MIN_SUBNORMAL))
 
 
 def _const(c: float):
     return (c, c, abs(c) if c != 0.0 else INF)
 
 
-def _hull(a, b):
-    return (min(a[0], b[0]), max(a[1], b[1]), min(a[2], b[2]))
-
-
-def _add(a, b, b_const: float | None, a_const: float | None):
-    lo, hi = _down(a[0] + b[0]), _up(a[1] + b[1])
-    c = b_const if b_const is not None else a_const
-    if c is not None and c != 0.0:
-        tiny = max(math.ulp(c) / 2, MIN_SUBNORMAL)
-    else:
-        tiny = max(min(a[2], b[2]) * 2.0 ** -53, MIN_SUBNORMAL)
-    return (lo if lo == lo else -INF, hi if hi == hi else INF, tiny)
-
-
-def _products(a, b):
-    out = []
-    for x in (a[0], a[1]):
-        for y in (b[0], b[1]):
-            p = x * y
-            out.append(0.0 if p != p else p)  # 0 * inf: that corner is zero
-    return min(out), max(out)
-
-
 def _magnitude(a) -> float:
     return max(abs(a[0]), abs(a[1]))
 
 
-def _spans_zero(a) -> bool:
-    return a[0] <= 0.0 <= a[1]
+def _corners(a, b):
+    # 0 * inf is a zero corner
+    return [0.0 if x * y != x * y else x * y for x in a[:2] for y in b[:2]]
 
 
-def _mul(a, b):
-    lo, hi = _products(a, b)
-    tiny = a[2] * b[2] if a[2] != INF and b[2] != INF else INF
-    return (_down(lo), _up(hi), max(_down(tiny), MIN_SUBNORMAL) if tiny != INF else INF)
+def _add(a, b, c: float | None):
+    """a + b; c: a constant operand. A non-zero result of x + c is at least half an ULP
+    of c (x is either below |c| / 2 or a multiple of that half ULP)."""
+    tiny = math.ulp(c) / 2 if c else min(a[2], b[2]) * 2.0 ** -53
+    return _out(a[0] + b[0], a[1] + b[1], tiny)
 
 
-def _div(a, b):
-    if _spans_zero(b):
-        lo, hi = -INF, INF
-    else:
-        inv = (1.0 / b[1], 1.0 / b[0])
-        lo, hi = _products(a, (min(inv), max(inv)))
-    tiny = a[2] / _magnitude(b) if a[2] != INF else INF
-    return (_down(lo) if lo > -INF else lo, _up(hi) if hi < INF else hi,
-            max(_down(tiny), MIN_SUBNORMAL) if tiny != INF else INF)
-
-
-def _exp(a):
-    lo = math.exp(max(a[0], -800.0))
-    hi = math.exp(a[1]) if a[1] < 709.0 else INF
-    return (_down(lo) if lo > 0 else 0.0, _up(hi), max(_down(lo), MIN_SUBNORMAL))
-
-
-def _abs(a):
-    lo = 0.0 if _spans_zero(a) else min(abs(a[0]), abs(a[1]))
-    return (lo, _magnitude(a), a[2])
-
-
-def _lookup(table):
-    values = tuple(table) + (0.0,)
-    tiny = min([abs(v) for v in values if v != 0.0] or [INF])
-    return (min(values), max(values), tiny)
+def _step(op, a, c0, c1):
+    """The interval of one op from its operands' (c0, c1: constant operands or None)."""
+    if op.op == "select":
+        return (min(a[1][0], a[2][0]), max(a[1][1], a[2][1]), min(a[1][2], a[2][2]))
+    if op.op in ("max", "min"):
+        pick = max if op.op == "max" else min
+        return (pick(a[0][0], a[1][0]), pick(a[0][1], a[1][1]), min(a[0][2], a[1][2]))
+    if op.op == "add":
+        return _add(a[0], a[1], c1 if c1 is not None else c0)
+    if op.op == "sub":
+        return _add(a[0], (-a[1][1], -a[1][0], a[1][2]), -c1 if c1 is not None else c0)
+    if op.op == "mul":
+        p = _corners(a[0], a[1])
+        return _out(min(p), max(p), a[0][2] * a[1][2])
+    if op.op == "div":
+        b = a[1]
+        p = [-INF, INF] if b[0] <= 0.0 <= b[1] else _corners(a[0], (1 / b[1], 1 / b[0]))
+        return _out(min(p), max(p), a[0][2] / max(_magnitude(b), MIN_SUBNORMAL))
+    if op.op == "neg":
+        return (-a[0][1], -a[0][0], a[0][2])
+    if op.op == "abs":
+        x = a[0]
+        return (0.0 if x[0] <= 0.0 <= x[1] else min(abs(x[0]), abs(x[1])), _magnitude(x), x[2])
+    if op.op == "exp":
+        lo = math.exp(max(a[0][0], -800.0))
+        return _out(lo, math.exp(a[0][1]) if a[0][1] < 709.0 else INF, lo)
+    if op.op == "lookup":
+        values = tuple(op.attr) + (0.0,)
+        return (min(values), max(values), min([abs(v) for v in values if v] or [INF]))
+    return (-INF, INF, MIN_SUBNORMAL)  # read_real, and any op without a rule
 
 
 def intervals(ops) -> dict:
     """name -> (low, high, smallest non-zero magnitude) of every real the ops compute."""
     env: dict = {}
-
-    def of(arg):
-        return _const(float(arg.value)) if isinstance(arg, Const) else env.get(arg)
-
-    def const(arg):
-        return float(arg.value) if isinstance(arg, Const) else None
-
     for op in ops:
         if op.type != "real" or op.op == "output":
             continue
-        a = [of(x) for x in op.args]
-        if op.op == "read_real":
-            r = (-INF, INF, MIN_SUBNORMAL)
-        elif op.op == "select":
-            r = _hull(a[1], a[2])
-        elif op.op in ("max", "min"):
-            pick = max if op.op == "max" else min
-            r = (pick(a[0][0], a[1][0]), pick(a[0][1], a[1][1]), min(a[0][2], a[1][2]))
-        elif op.op == "add":
-            r = _add(a[0], a[1], const(op.args[1]), const(op.args[0]))
-        elif op.op == "sub":
-            neg = (-a[1][1], -a[1][0], a[1][2])
-            c = const(op.args[1])
-            r = _add(a[0], neg, None if c is None else -c, const(op.args[0]))
-        elif op.op == "sum":
+        a = [_const(float(x.value)) if isinstance(x, Const) else env.get(x) for x in op.args]
+        consts = [float(x.value) if isinstance(x, Const) else None for x in op.args]
+        if op.op == "sum":
             r = a[0]
-            for x, v in zip(op.args[1:], a[1:]):
-                r = _add(r, v, const(x), None)
-        elif op.op == "mul":
-            r = _mul(a[0], a[1])
-        elif op.op == "div":
-            r = _div(a[0], a[1])
-        elif op.op == "neg":
-            r = (-a[0][1], -a[0][0], a[0][2])
-        elif op.op == "abs":
-            r = _abs(a[0])
-        elif op.op == "exp":
-            r = _exp(a[0])
-        elif op.op == "lookup":
-            r = _lookup(op.attr)
+            for v, c in zip(a[1:], consts[1:]):
+                r = _add(r, v, c)
         else:
-            r = (-INF, INF, MIN_SUBNORMAL)
+            r = _step(op, a, *(consts + [None, None])[:2])
         env[op.dest] = r
     return env
 

@@ -27,13 +27,12 @@ it gives.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Callable
 
 from ..errors import ScorewrightError
 from ..plan import Plan
 from ..program import Const, Op, lower, prune
-from ..values import MISSING_CODE, UNSEEN_CODE
 from . import sql_guards, sql_reading, sql_sqlite_text
 from .sql_dialects import DBL_MAX, Dialect, literal
 
@@ -79,66 +78,6 @@ def _lookup(d: Dialect, table, code: str) -> str:
     if not whens:
         return zero
     return f"CASE {code} {' '.join(whens)} ELSE {zero} END"
-
-
-def unreachable(d: Dialect, level) -> bool:
-    """A text level no value in this engine can equal (it holds NUL, which the engine's
-    text cannot): left out of the lookup, where it could never match."""
-    return isinstance(level, str) and "\x00" in level and d.nul_char is None
-
-
-def _text_code(d: Dialect, inp, col: str) -> str:
-    """read_code of a text-level category, from the column's text (values.category_code:
-    NULL and '' are missing, a text that is no level unseen)."""
-    value = f"CAST({col} AS {d.text}){d.text_collate}"
-    miss, unseen = MISSING_CODE, UNSEEN_CODE
-    if d.code_list is not None and not any(unreachable(d, lv) for lv in inp.levels):
-        levels = ", ".join(d.string(level) for level in inp.levels)
-        position = d.code_list.format(levels=levels, value=value)
-        return (f"CASE WHEN {col} IS NULL THEN {miss} WHEN {value} = '' THEN {miss} "
-                f"ELSE COALESCE(NULLIF({position}, 0) - 1, {unseen}) END")
-    whens = f"WHEN '' THEN {miss} " + " ".join(
-        f"WHEN {d.string(level)} THEN {code}" for code, level in enumerate(inp.levels)
-        if not unreachable(d, level))
-    return f"CASE WHEN {col} IS NULL THEN {miss} ELSE CASE {value} {whens} ELSE {unseen} END END"
-
-
-def _integer_code(d: Dialect, inp, value: str, missing: str) -> str:
-    """read_code of an integer-level category from its value as a double (sql_reading:
-    2, 2.0, '2' and ' 2.0 ' all read 2.0; NULL when no number) and its missing test."""
-    whens = " ".join(f"WHEN {literal(d, float(level))} THEN {code}"
-                     for code, level in enumerate(inp.levels))
-    return (f"CASE WHEN {missing} = 1 THEN {MISSING_CODE} "
-            f"ELSE CASE {value} {whens} ELSE {UNSEEN_CODE} END END")
-
-
-# ---------------------------------------------------------------- reading
-
-def read_stages(plan: Plan, d: Dialect, source: dict[str, str], typed: bool) -> dict:
-    """input index -> the layers reading it, innermost first, each [(alias, expression)]
-    where expressions name the layer below's values as sql_sqlite_text.P + name
-    (without the r<i>_ prefix): a numeric or integer-level input read from a column of
-    any type to a double r<i>_n (sql_reading; NULL when missing or no number), with
-    x<i> = 1 where an integer-level category is missing; a text-level category's code
-    c<i> in one layer."""
-    out = {}
-    for inp in plan.inputs:
-        col = source[inp.name]
-        i = inp.index
-        if inp.kind == "numeric":
-            stages = [[("n", col)]] if typed else sql_reading.stages(d, col, literal,
-                                                                    inp.boolean)
-            out[i] = [[(f"r{i}_{n}", e) for n, e in stage] for stage in stages]
-        elif inp.integer_levels:
-            # The number and the missing test, coded a layer later: a CASE over the
-            # levels spells its operand once per level in DuckDB.
-            missing = f"CASE WHEN {sql_reading.category_missing(d, col)} THEN 1 ELSE 0 END"
-            stages = sql_reading.category_stages(d, col, literal)
-            out[i] = [[(f"r{i}_{n}", e) for n, e in stage] for stage in stages]
-            out[i][0].append((f"x{i}", missing))
-        else:
-            out[i] = [[(f"c{i}", _text_code(d, inp, col))]]
-    return out
 
 
 # ---------------------------------------------------------------- layering
@@ -349,7 +288,7 @@ class Renderer:
         if not inp.integer_levels:
             return f"c{i}"
         d = self.d
-        cols[f"c{i}"] = Column(start + len(stages), lambda ref: _integer_code(
+        cols[f"c{i}"] = Column(start + len(stages), lambda ref: sql_reading.integer_code(
             d, inp, f"{ref}.r{i}_n", f"{ref}.x{i}"), frozenset({f"r{i}_n", f"x{i}"}))
         return f"c{i}"
 
@@ -401,7 +340,7 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], layers,
     so each block of the margin sums reads its own inputs; without it every input is
     read in the first layers. `per`: operands a partial margin sum adds."""
     r = Renderer(plan, d, per or max(1, len(plan.terms)), flat)
-    reads = read_stages(plan, d, source, typed)
+    reads = sql_reading.read_stages(plan, d, source, typed)
     if rejoin is None:
         def base(block, reached):
             return 0
@@ -418,14 +357,16 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], layers,
     for _, a in outputs:
         needed[a] = max(needed.get(a, -1), top + 1)
     by_level: dict[int, list[str]] = {}
+    carried: dict[int, list[str]] = {}
     for a, col in cols.items():
         by_level.setdefault(col.level, []).append(a)
+        for level in range(col.level + 1, needed.get(a, -1)):
+            carried.setdefault(level, []).append(col.alias or a)
     zero = [("z", literal(d, 0.0))]  # a SELECT needs a column even when nothing is read
     for level in range(top + 1):
         ref = layers.ref if level else None
         columns = list(extra) if level == 0 else [(a, f"{ref}.{a}") for a in keep]
-        columns += [(col.alias or a, f"{ref}.{col.alias or a}") for a, col in cols.items()
-                    if col.level < level < needed.get(a, -1)]
+        columns += [(a, f"{ref}.{a}") for a in carried.get(level, [])]
         columns += [(cols[a].alias or a, cols[a].expr(ref)) for a in by_level.get(level, [])]
         source = ""
         if rejoin is not None and (level == 0 or level in r.read_block):
