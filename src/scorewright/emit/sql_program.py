@@ -58,10 +58,10 @@ def spellings(d: Dialect) -> dict[str, Callable[[list[str]], str]]:
         "gt": _binary(">"), "ge": _binary(">="), "eq": _binary("="),
         "select": lambda a: f"CASE WHEN {a[0]} THEN {a[1]} ELSE {a[2]} END",
         "exp": lambda a: f"exp({a[0]})",
-        # A missing real reads as NULL (or, from a number column, NaN or +-inf): never
-        # NULL itself, so a select on it takes one of its arms.
-        "is_missing": lambda a: (f"NOT COALESCE({a[0]} >= {lit(d, -DBL_MAX)} AND "
-                                 f"{a[0]} <= {lit(d, DBL_MAX)}, FALSE)"),
+        # A missing real reads as NULL (or, from a number column, NaN or +-inf; every
+        # engine here orders NaN above every number): never NULL itself, so a select
+        # on it takes one of its arms.
+        "is_missing": lambda a: f"{a[0]} IS NULL OR abs({a[0]}) > {lit(d, DBL_MAX)}",
     }
     table.update(d.ops)
     return table
@@ -229,16 +229,28 @@ class Renderer:
         reached = {-1: -1}               # block -> highest level of its sums
         self.read_block: dict[int, set] = {}
 
-        def operand(a, ref):
+        def operand(a, ref, known=None):
             if isinstance(a, Const):
                 text = str(a.value) if isinstance(a.value, int) else literal(self.d, a.value)
                 return f"({text})" if text.startswith("-") else text
             if a in inline:
-                return f"({inline[a](ref)})"
+                return f"({inline[a](ref, known or {})})"
             return f"{ref}.{alias[a]}"
 
         def expression(op, tmpl):
-            return lambda ref: tmpl([operand(a, ref) for a in op.args])
+            if op.op != "select" or not isinstance(op.args[0], str):
+                return lambda ref, known=None: tmpl([operand(a, ref, known) for a in op.args])
+            flag, yes, no = op.args
+
+            def select(ref, known=None):
+                # Inside an arm the flag's value is known: a select on the same flag
+                # there is its arm (the same name, so the same value).
+                known = known or {}
+                if flag in known:
+                    return operand(yes if known[flag] else no, ref, known)
+                return tmpl([operand(flag, ref, known), operand(yes, ref, {**known, flag: True}),
+                             operand(no, ref, {**known, flag: False})])
+            return select
 
         for op in self.ops:
             b = self.block.get(op.dest, self.n_blocks)
