@@ -1,19 +1,18 @@
 """SQL target: one query per dialect that scores an input table in the database.
 
-The query is a stack of subqueries, innermost first, one layer per stage of the
-plan, so each expression is computed once and the operation order is the
-plan's: read (any column type to double, sql_reading; NULL, NaN, +-inf and
-text that is no number are missing; category codes) -> design values (fill, clamp, scaling, clip) -> margins (terms in plan
-order, then the intercept) -> link -> probabilities and the decision. Every
-user string enters as a quoted identifier or string literal; the header
-comment escapes it. The dialect record (sql_dialects) says how to spell each
-thing; nothing here asks which engine it is.
+The query is a stack of subqueries (layers), innermost first, into which
+sql_program renders the scoring program: each input read in its own layers (any
+column type to double, sql_reading), then the program's ops, each inlined or made
+a column of a layer, in the program's order. The missing-value, scaling, link and
+decision rules are the program's ops; nothing here decides them. Every user string
+enters as a quoted identifier or string literal; the header comment escapes it.
+The dialect record (sql_dialects) says how to spell each thing; nothing here asks
+which engine it is.
 """
 
 from __future__ import annotations
 
 import json
-import math
 import textwrap
 from dataclasses import dataclass
 
@@ -23,42 +22,19 @@ from ..model import FrozenModel
 from ..plan import Plan, build_plan, output_columns
 from . import Artifact, reject_options
 from .sql_columns import input_columns, name_key
-from .sql_dialects import Dialect, dialect as find_dialect
-from .sql_guards import product_edge, underflow_region
-from . import sql_long, sql_reading, sql_sqlite_text
+from .sql_dialects import Dialect, dialect as find_dialect, literal
+from . import sql_long, sql_program, sql_reading
 from .sql_inline import output_expressions
+from .sql_program import Query
+from .sql_reading import unreachable
 from .templating import render
 
 OPTIONS = ("dialect", "table", "keep", "columns", "form", "layout", "long_columns")
 LAYOUTS = ("wide", "long")
 FORMS = ("select", "view", "function", "expressions")
-DBL_MAX = 1.7976931348623157e308
-OP = {"subtract": "-", "divide": "/", "multiply": "*", "add": "+"}
 
 
 # ---------------------------------------------------------------- spelling
-
-def literal(d: Dialect, x: float) -> str:
-    """A double literal the engine reads back to exactly x, typed as double."""
-    x = float(x)
-    if d.exact_decimal_literals:
-        return f"CAST('{x!r}' AS {d.double})"
-    if x == 0.0:
-        return "-0.0" if math.copysign(1.0, x) < 0 else "0.0"
-    if x.is_integer() and abs(x) < 2.0 ** 53:
-        return repr(x)
-    mantissa, exponent = math.frexp(x)
-    m, e = int(mantissa * 2 ** 53), exponent - 53
-    while m % 2 == 0:
-        m, e = m // 2, e + 1
-    return f"({m} * {2.0 ** e!r})"
-
-
-def label_literal(d: Dialect, label) -> str:
-    if isinstance(label, int):
-        return f"CAST({label} AS {d.integer})"
-    return d.string(label)
-
 
 def comment_text(value: str) -> str:
     """A user string as comment text that cannot end the comment line: quoted, with
@@ -97,9 +73,6 @@ class Layers:
 
     def add(self, columns: list[tuple[str, str]], source: str = "") -> None:
         self.layers.append((columns, source))
-
-    def carry(self, aliases) -> list[tuple[str, str]]:
-        return [(a, f"{self.ref}.{a}") for a in aliases]
 
     def render(self, innermost_from: str, fence: str) -> list[str]:
         """The nested SELECTs as lines; a line may hold a newline inside a quoted name
@@ -146,25 +119,14 @@ def indent(lines: list[str], by: str = "  ") -> list[str]:
     return [by + line for line in lines]
 
 
-@dataclass
-class Query:
-    body: list[str]             # the scoring subquery's lines: output aliases, keeps, rowid
-    outputs: list[tuple[str, str]]  # (output column name, alias in the body)
-    layers: object = None
-
-
 def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: str = "",
                 extra: list[tuple[str, str]] = (), layers=None, rejoin=None,
                 typed: bool = False) -> Query:
-    """The layered scoring subquery. `source` maps each feature to the SQL expression
-    it is read from (a column of any type; `typed`: already the number, as the
-    PostgreSQL function's double parameters are); `extra` are (alias, expression)
-    pairs carried to the top; `layers` collects the layers (default: rendered as
-    nested SELECTs).
-
-    Each input is read (sql_reading: any column type to a double, or a category
-    code) in one layer and its design value computed in the next, so the read,
-    which spells the column several times, is written once per input.
+    """The layered scoring subquery (sql_program renders the scoring program into it).
+    `source` maps each feature to the SQL expression it is read from (a column of any
+    type; `typed`: already the number, as the PostgreSQL function's double parameters
+    are); `extra` are (alias, expression) pairs carried to the top; `layers` collects
+    the layers (default: rendered as nested SELECTs).
 
     A model of more than the dialect's terms_per_layer terms sums its margins over
     several layers, each adding a block of terms to the sums of the layer below: the
@@ -176,294 +138,14 @@ def build_query(plan: Plan, d: Dialect, source: dict[str, str], innermost_from: 
     source), each block reads its own inputs (`used`, input indices); without it,
     the first layers read every input and later layers carry the values not yet
     summed."""
-    layers = Layers() if layers is None else layers
-    carried = [alias for alias, _ in extra]
-    terms = list(plan.terms)
-    # Layers bound how deep a chain of `+` nests and, with `rejoin`, how many inputs
-    # one layer reads; flat sums without rejoin need neither.
     flat = flat_sums(plan, d)
+    n_terms = len(plan.terms)
     if rejoin is not None:
-        per = min(d.terms_per_join or d.terms_per_layer, d.read_width or len(terms) or 1)
+        per = min(d.terms_per_join or d.terms_per_layer, d.read_width or n_terms or 1)
     else:
-        per = len(terms) if flat else d.terms_per_layer
-    blocks = [terms[i:i + per] for i in range(0, len(terms), per)]
-    ms = [f"m{k}" for k in range(plan.n_outputs)]
-    zero = [("z", literal(d, 0.0))]  # a SELECT needs a column even when nothing is read
-    if rejoin is not None:
-        blocks = blocks or [[]]
-        for b, block in enumerate(blocks):
-            used = {t.input for t in block}
-            below = None if b == 0 else layers.ref
-            reads = _read_layers(plan, d, source, used, typed)
-            kept = list(extra) if b == 0 else layers.carry(carried + ms)
-            layers.add(kept + reads[0](None) or zero, rejoin(below, used))
-            for columns in reads[1:]:
-                layers.add(layers.carry(carried + (ms if b else [])) + columns(layers.ref)
-                           or zero)
-            ref = layers.ref
-            values = dict(_design_values(plan, d, ref, used))
-            sums = _sums(plan, d, block, lambda alias: f"({values[alias]})",
-                         None if b == 0 else ref, b == len(blocks) - 1, flat)
-            layers.add(layers.carry(carried) + sums)
-    else:
-        used = {t.input for t in terms}
-        reads = _read_layers(plan, d, source, used, typed)
-        layers.add(list(extra) + reads[0](None) or zero)
-        for columns in reads[1:]:
-            layers.add(layers.carry(carried) + columns(layers.ref) or zero)
-        layers.add(layers.carry(carried) + _design_values(plan, d, layers.ref, used) or zero)
-        for b, block in enumerate(blocks or [[]]):
-            ref = layers.ref
-            later = {t.input for rest in blocks[b + 1:] for t in rest}
-            values = [_alias(inp) for inp in plan.inputs if inp.index in later]
-            sums = _sums(plan, d, block, lambda alias: f"{ref}.{alias}",
-                         None if b == 0 else ref, b >= len(blocks) - 1, flat)
-            layers.add(layers.carry(carried + values) + sums)
-    outputs = _finish(plan, d, layers, carried)
-    return Query(layers.render(innermost_from, d.fence), outputs, layers)
-
-
-def _alias(inp) -> str:
-    return f"{'v' if inp.kind == 'numeric' else 'c'}{inp.index}"
-
-
-def _read_layers(plan: Plan, d: Dialect, source: dict[str, str], used, typed: bool):
-    """The layers reading each used input, innermost first, as functions of the alias
-    of the layer below (None for the first): each numeric or integer-level input read
-    from a column of any type to a double r<i>_n (sql_reading; NULL when missing or
-    no number), with x<i> = 1 where an integer-level category is missing; each
-    text-level category's code c<i>."""
-    inputs = []  # (index, stages, first-layer columns carried after)
-    for inp in plan.inputs:
-        if inp.index not in used:
-            continue
-        col = source[inp.name]
-        if inp.kind == "numeric":
-            read = [[("n", col)]] if typed else sql_reading.stages(d, col, literal, inp.boolean)
-            inputs.append((inp.index, read, []))
-        elif inp.integer_levels:
-            # The number and the missing test, looked up a layer later: a CASE over
-            # the levels spells its operand once per level in DuckDB.
-            missing = f"CASE WHEN {sql_reading.category_missing(d, col)} THEN 1 ELSE 0 END"
-            inputs.append((inp.index, sql_reading.category_stages(d, col, literal),
-                           [(f"x{inp.index}", missing)]))
-        else:
-            inputs.append((inp.index, [], [(_alias(inp), _read_code(d, inp, col))]))
-    depth = max([len(read) for _, read, _ in inputs] + [1])
-
-    def layer(t: int):
-        def columns(ref):
-            out = []
-            for index, read, fixed in inputs:
-                prefix = f"{ref}.r{index}_"
-                if t < len(read):
-                    # The first stage reads the column (user text); only later stages
-                    # name the stage below.
-                    out += [(f"r{index}_{name}",
-                             expr if ref is None else expr.replace(sql_sqlite_text.P, prefix))
-                            for name, expr in read[t]]
-                elif read:
-                    out.append((f"r{index}_n", prefix + "n"))
-                out += fixed if t == 0 else [(alias, f"{ref}.{alias}") for alias, _ in fixed]
-            return out
-        return columns
-
-    return [layer(t) for t in range(depth)]
-
-
-def _design_values(plan: Plan, d: Dialect, ref: str, used) -> list[tuple[str, str]]:
-    """(alias, expression) of each used input's design value (from layer `ref`'s
-    double) or category code (carried)."""
-    out = []
-    for inp in plan.inputs:
-        if inp.index not in used:
-            continue
-        if inp.kind == "numeric":
-            region = underflow_region(inp, ()) if d.raises_on_underflow else None
-            out.append((_alias(inp), _design_value(d, inp, region, f"{ref}.r{inp.index}_n")))
-        elif inp.integer_levels:
-            out.append((_alias(inp), _integer_code(d, inp, f"{ref}.r{inp.index}_n",
-                                                   f"{ref}.x{inp.index} = 1")))
-        else:
-            out.append((_alias(inp), f"{ref}.{_alias(inp)}"))
-    return out
-
-
-def _sums(plan: Plan, d: Dialect, block, value, below: str | None, last: bool, flat: bool):
-    """(m<k>, expression): the sums of layer `below` (none: start from the first
-    term) plus the block's terms, left to right, and the intercept if `last`;
-    `flat`: as the dialect's sum_list. `value(alias)` spells an input's design value
-    or code."""
-    out = []
-    for k in range(plan.n_outputs):
-        parts = [] if below is None else [f"{below}.m{k}"]
-        for term in block:
-            if term.kind == "numeric":
-                v = value(f"v{term.input}")
-                parts.append(f"{literal(d, term.weights[k])} * {_factor(d, term.weights[k], v)}")
-            else:
-                parts.append(_lookup(d, term.tables[k], value(f"c{term.input}")))
-        if last:
-            parts.append(literal(d, plan.intercepts[k]))
-        if not parts:
-            out.append((f"m{k}", None))
-        elif flat and len(parts) > 2:
-            out.append((f"m{k}", d.sum_list.format(start=parts[0], rest=", ".join(parts[1:]))))
-        else:
-            # `+` is left-associative in SQL: the tree of full parentheses, without
-            # the parentheses SQLite's parser cannot nest 100 deep.
-            out.append((f"m{k}", " + ".join(parts)))
-    return out
-
-
-def _factor(d: Dialect, w: float, v: str) -> str:
-    """The design value as the factor of w * v; where that product would underflow
-    (and PostgreSQL raise), the signed zero IEEE gives (see sql_guards)."""
-    edge = product_edge(w) if d.raises_on_underflow else 0.0
-    if edge == 0.0:
-        return v
-    return (f"CASE WHEN {v} > {literal(d, -edge)} AND {v} < {literal(d, edge)} "
-            f"THEN {v} * {literal(d, 0.0)} ELSE {v} END")
-
-
-def _codes(inp) -> tuple[int, int]:
-    """(code of a missing value, code of an unseen one)."""
-    missing = inp.fill_code if inp.fill_code is not None else (
-        inp.unknown_code if inp.unknown_code is not None else -1)
-    unseen = inp.unknown_code if inp.unknown_code is not None else -1
-    return missing, unseen
-
-
-def _integer_code(d: Dialect, inp, value: str, is_missing: str) -> str:
-    """An integer-level category's code from its value as a double (sql_reading:
-    2, 2.0, '2' and ' 2.0 ' all read 2.0; NULL when no number) and its missing test."""
-    missing, unseen = _codes(inp)
-    whens = " ".join(f"WHEN {literal(d, float(level))} THEN {code}"
-                     for code, level in enumerate(inp.levels))
-    return (f"CASE WHEN {is_missing} THEN {missing} "
-            f"ELSE CASE {value} {whens} ELSE {unseen} END END")
-
-
-def _read_code(d: Dialect, inp, col: str) -> str:
-    """A text-level category's code, from the column's text."""
-    missing, unseen = _codes(inp)
-    value = f"CAST({col} AS {d.text}){d.text_collate}"
-    is_missing = f"{col} IS NULL"
-    if d.code_list is not None and not any(unreachable(d, lv) for lv in inp.levels):
-        levels = ", ".join(d.string(level) for level in inp.levels)
-        position = d.code_list.format(levels=levels, value=value)
-        return (f"CASE WHEN {is_missing} THEN {missing} WHEN {value} = '' THEN {missing} "
-                f"ELSE COALESCE(NULLIF({position}, 0) - 1, {unseen}) END")
-    whens = f"WHEN '' THEN {missing} " + " ".join(
-        f"WHEN {d.string(level)} THEN {code}" for code, level in enumerate(inp.levels)
-        if not unreachable(d, level))
-    return (f"CASE WHEN {is_missing} THEN {missing} "
-            f"ELSE CASE {value} {whens} ELSE {unseen} END END")
-
-
-def _design_value(d: Dialect, inp, region, col: str) -> str:
-    """One CASE per numeric input. Inside [-B, B] the plan's chain runs on the value;
-    a finite value beyond the bound, a missing one (NULL; NaN, which PostgreSQL and
-    DuckDB order above every number; +-inf) take the chain's value on -B, B or the
-    fill, computed here in IEEE double exactly as the engine would compute it.
-    `col` is already the double (sql_reading)."""
-    x = col
-    if region is not None:
-        low, high = region
-        x = (f"CASE WHEN {col} > {literal(d, low)} AND {col} < {literal(d, high)} "
-             f"THEN {x} * {literal(d, 0.0)} ELSE {x} END")
-    v = x
-    for step in inp.steps:
-        v = f"({v} {OP[step.op]} {literal(d, step.value)})"
-    if inp.clip is not None:
-        v = d.least.format(a=d.greatest.format(a=v, b=literal(d, inp.clip[0])),
-                           b=literal(d, inp.clip[1]))
-    b, top = literal(d, inp.bound), literal(d, DBL_MAX)
-    nb, ntop = literal(d, -inp.bound), literal(d, -DBL_MAX)
-    return (f"CASE WHEN {col} >= {nb} AND {col} <= {b} THEN {v} "
-            f"WHEN {col} < {nb} AND {col} >= {ntop} THEN {literal(d, chain(inp, -inp.bound))} "
-            f"WHEN {col} > {b} AND {col} <= {top} THEN {literal(d, chain(inp, inp.bound))} "
-            f"ELSE {literal(d, missing_value(inp))} END")
-
-
-def chain(inp, v: float) -> float:
-    """The plan's scaling steps and clip on a value already within the bound."""
-    for step in inp.steps:
-        c = step.value
-        v = v - c if step.op == "subtract" else v / c if step.op == "divide" else \
-            v * c if step.op == "multiply" else v + c
-    if inp.clip is not None:
-        v = min(max(v, inp.clip[0]), inp.clip[1])
-    return v
-
-
-def missing_value(inp) -> float:
-    """The design value of a missing input: the chain on the (clamped) fill, or 0.0."""
-    if inp.fill is None:
-        return 0.0
-    return chain(inp, min(max(inp.fill, -inp.bound), inp.bound))
-
-
-def _lookup(d: Dialect, table, code: str) -> str:
-    if d.lookup_list is not None and any(v != 0.0 for v in table):
-        values = ", ".join(literal(d, v) for v in table)
-        return d.lookup_list.format(values=values, code=code, zero=literal(d, 0.0))
-    whens = [f"WHEN {j} THEN {literal(d, value)}" for j, value in enumerate(table)
-             if not (value == 0.0 and math.copysign(1.0, value) > 0)]
-    if not whens:
-        return literal(d, 0.0)
-    return f"CASE {code} {' '.join(whens)} ELSE {literal(d, 0.0)} END"
-
-
-def _finish(plan: Plan, d: Dialect, layers: Layers, carried: list[str]):
-    guard = literal(d, plan.precision.exp_guard)
-    zero, one = literal(d, 0.0), literal(d, 1.0)
-    k = plan.n_outputs
-    ms = [f"m{j}" for j in range(k)]
-    if plan.task == "binary":
-        r = layers.ref
-        layers.add(layers.carry(carried + ["m0"]) + [
-            ("t", f"exp(-{d.least.format(a=f'abs({r}.m0)', b=guard)})")])
-        r = layers.ref
-        neg, pos = (label_literal(d, c) for c in plan.classes)
-        layers.add(layers.carry(carried + ["m0"]) + [
-            ("p", f"CASE WHEN {r}.m0 >= {zero} THEN {one} / ({one} + {r}.t) "
-                  f"ELSE {r}.t / ({one} + {r}.t) END"),
-            ("k", f"CASE WHEN {r}.m0 > {literal(d, plan.cut)} THEN {pos} ELSE {neg} END")])
-        return list(zip(output_columns(plan), ["m0", "p", "k"]))
-    if plan.task == "multiclass":
-        r = layers.ref
-        labels = [label_literal(d, c) for c in plan.classes]
-        whens = []
-        for j in range(k - 1):
-            test = " AND ".join(f"{r}.m{j} >= {r}.m{i}" for i in range(j + 1, k))
-            whens.append(f"WHEN {test} THEN {labels[j]}")
-        argmax = f"CASE {' '.join(whens)} ELSE {labels[-1]} END"
-        top = d.greatest_many.format(args=", ".join(f"{r}.{m}" for m in ms))
-        layers.add(layers.carry(carried + ms) + [("top", top), ("k", argmax)])
-        r = layers.ref
-        exps = [(f"e{j}", "exp(" + d.greatest.format(a=f"{r}.m{j} - {r}.top", b=literal(
-            d, -plan.precision.exp_guard)) + ")") for j in range(k)]
-        layers.add(layers.carry(carried + ms + ["k"]) + exps)
-        r = layers.ref
-        total = f"{r}.e0"
-        for j in range(1, k):
-            total = f"({total} + {r}.e{j})"
-        es = [f"e{j}" for j in range(k)]
-        layers.add(layers.carry(carried + ms + es + ["k"]) + [("total", total)])
-        r = layers.ref
-        layers.add(layers.carry(carried + ms + ["k"]) + [
-            (f"p{j}", f"{r}.e{j} / {r}.total") for j in range(k)])
-        aliases = ms + [f"p{j}" for j in range(k)] + ["k"]
-        return list(zip(output_columns(plan), aliases))
-    r = layers.ref
-    if plan.link == "log":
-        lo = d.greatest.format(a=f"{r}.m0", b=literal(d, -plan.precision.exp_guard))
-        value = f"exp({d.least.format(a=lo, b=literal(d, plan.precision.log_link_max))})"
-    else:
-        value = f"{r}.m0"
-    layers.add(layers.carry(carried + ["m0"]) + [("y", value)])
-    return list(zip(output_columns(plan), ["m0", "y"]))
+        per = n_terms if flat else d.terms_per_layer
+    return sql_program.build_query(plan, d, source, Layers() if layers is None else layers,
+                                   innermost_from, extra, rejoin, typed, per, flat)
 
 
 # ---------------------------------------------------------------- the artifact
@@ -556,12 +238,6 @@ def _check_names(plan: Plan, s: Settings) -> None:
             raise ScorewrightError(f"--keep {column!r}: the output has a column of that name")
 
 
-def unreachable(d: Dialect, level) -> bool:
-    """A text level no value in this engine can equal (it holds NUL, which the engine's
-    text cannot): left out of the lookup, where it could never match."""
-    return isinstance(level, str) and "\x00" in level and d.nul_char is None
-
-
 def object_name(plan: Plan) -> str:
     return f"score_{plan.stem}"[:63]
 
@@ -603,7 +279,7 @@ def scoring_query(plan: Plan, s: Settings) -> str:
         q = build_query(plan, d, sources, f"{table} AS t", extra, rejoin=rejoin)
         cols = [f"s.k{j} AS {d.quote(c)}" for j, c in enumerate(s.keep)]
         open_, close = "FROM (", ") AS s"
-    elif d.passthrough == "lateral" and not wide:
+    elif d.passthrough == "lateral" and not wide and lateral_fits(plan, d, sources):
         q = build_query(plan, d, sources)
         cols = ["t.*"]
         open_, close = f"FROM {table} AS t CROSS JOIN LATERAL (", ") AS s"
@@ -625,6 +301,13 @@ def scoring_query(plan: Plan, s: Settings) -> str:
         with_lines = q.layers.render_with(lambda i: f"{prefix}l{i}", d.fence, f"{table} AS t")
         return "\n".join(with_lines + lines + [open_[:-1] + f"{prefix}l{last}" + close[1:]])
     return "\n".join(lines + [open_] + indent(q.body) + [close])
+
+
+def lateral_fits(plan: Plan, d: Dialect, sources) -> bool:
+    """The query is shallow enough for the dialect's LATERAL passthrough."""
+    if d.lateral_layers is None:
+        return True
+    return len(build_query(plan, d, sources, layers=Layers()).layers.layers) <= d.lateral_layers
 
 
 def layer_prefix(table: str) -> str:
@@ -789,6 +472,13 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
     if s.form == "function":
         q = build_query(plan, d, {inp.name: d.parameter.format(n=inp.index + 1, i=inp.index)
                                   for inp in plan.inputs}, typed=d.typed_parameters)
+        depth = len(q.layers.layers)
+        if d.lateral_layers is not None and depth > d.lateral_layers:
+            # The function is called through LATERAL, with no rowid to join by instead.
+            raise ScorewrightError(f"--form function: this model's query is {depth} layers "
+                                   f"deep, and {d.name} plans a LATERAL call of more than "
+                                   f"{d.lateral_layers} in time that doubles with each layer; "
+                                   "use --form select or view")
         context.update(
             body=q.body, outputs=q.outputs,
             parameters=[d.parameter_decl.format(n=i + 1, i=i, type=t)

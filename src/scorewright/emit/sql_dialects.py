@@ -27,9 +27,12 @@ engine it is writing for. Each flag names the trap it answers:
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import math
+from dataclasses import dataclass, field
 
 from ..errors import ScorewrightError
+
+DBL_MAX = 1.7976931348623157e308
 
 
 @dataclass(frozen=True)
@@ -41,7 +44,6 @@ class Dialect:
     exact_decimal_literals: bool  # CAST('<shortest repr>' AS double) reads back exactly
     greatest: str               # two-argument maximum, ties keep {a}
     least: str                  # two-argument minimum, ties keep {a}
-    greatest_many: str          # n-argument maximum ({args}), ties keep the first
     nan_test: str | None        # is {x} (a number) NaN; None: the engine cannot hold NaN
     text_collate: str           # appended to text comparisons: byte-wise equality
     passthrough: str            # how all input columns ride along: "lateral", "rowid" or
@@ -133,6 +135,15 @@ class Dialect:
     flat_layers: bool = False
     # A header note for a model summed over more than one layer (engine advice).
     large_query_note: str | None = None
+    # At most this many layers under a LATERAL passthrough; a deeper query is joined
+    # back by rowid. DuckDB decorrelates a LATERAL subquery into a plan that doubles
+    # with each layer reading a column of the layer below twice (measured on a chain
+    # of such layers over 1,000,000 rows: 10 layers 0.24 s, 12 layers 2.0 s, 16 layers
+    # 21 s; the same chain joined by rowid 0.3 s).
+    lateral_layers: int | None = None
+    # Spellings of primitives that differ from sql_program.spellings (a function of the
+    # spelled operands); None: the dialect cannot express that op.
+    ops: dict = field(default_factory=dict)
 
     def quote(self, name: str) -> str:
         q = self.identifier_quote
@@ -152,6 +163,22 @@ class Dialect:
         return "'" + value.replace("'", "''") + "'"
 
 
+def literal(d: Dialect, x: float) -> str:
+    """A double literal the engine reads back to exactly x, typed as double."""
+    x = float(x)
+    if d.exact_decimal_literals:
+        return f"CAST('{x!r}' AS {d.double})"
+    if x == 0.0:
+        return "-0.0" if math.copysign(1.0, x) < 0 else "0.0"
+    if x.is_integer() and abs(x) < 2.0 ** 53:
+        return repr(x)
+    mantissa, exponent = math.frexp(x)
+    m, e = int(mantissa * 2 ** 53), exponent - 53
+    while m % 2 == 0:
+        m, e = m // 2, e + 1
+    return f"({m} * {2.0 ** e!r})"
+
+
 SQLITE = Dialect(
     name="sqlite",
     double="REAL",
@@ -160,7 +187,6 @@ SQLITE = Dialect(
     exact_decimal_literals=False,
     greatest="max({a}, {b})",
     least="min({b}, {a})",
-    greatest_many="max({args})",
     nan_test=None,
     text_collate=" COLLATE BINARY",
     passthrough="rowid",
@@ -199,7 +225,6 @@ POSTGRES = Dialect(
     exact_decimal_literals=True,
     greatest="GREATEST({a}, {b})",
     least="LEAST({a}, {b})",
-    greatest_many="GREATEST({args})",
     nan_test="{x} = CAST('NaN' AS DOUBLE PRECISION)",
     text_collate=' COLLATE "C"',
     # Not LATERAL: for a lateral subquery PostgreSQL may choose a Memoize node keyed on
@@ -249,10 +274,10 @@ DUCKDB = Dialect(
     exact_decimal_literals=True,
     greatest="GREATEST({a}, {b})",
     least="LEAST({a}, {b})",
-    greatest_many="GREATEST({args})",
     nan_test="isnan({x})",
     text_collate="",
     passthrough="lateral",
+    lateral_layers=10,
     rowid="rowid",
     fence="",
     raises_on_underflow=False,
@@ -276,7 +301,9 @@ DUCKDB = Dialect(
     parameter_decl="p{i}",
     nul_char="chr(0)",
     function_call="SELECT t.*, s.*\nFROM {table} AS t CROSS JOIN LATERAL {name}({args}) AS s;",
-    lookup_list="COALESCE(list_extract([{values}], {code} + 1), {zero})",
+    # list_extract counts a negative index from the end: every code below 0 reads
+    # index 0, which is NULL.
+    lookup_list="COALESCE(list_extract([{values}], GREATEST({code}, -1) + 1), {zero})",
 )
 
 # Spark SQL: backtick names, backslash escapes in strings, NaN = NaN true and NaN above
@@ -291,7 +318,6 @@ SPARK = Dialect(
     exact_decimal_literals=True,
     greatest="GREATEST({a}, {b})",
     least="LEAST({a}, {b})",
-    greatest_many="GREATEST({args})",
     nan_test="isnan({x})",
     text_collate="",
     passthrough="row",

@@ -22,9 +22,14 @@ from __future__ import annotations
 
 import re
 
+from ..errors import ScorewrightError
 from ..plan import Plan
 from .sql_dialects import Dialect
 
+# An output whose ops read a value twice at each step of a chain (a series evaluated
+# by recurrence) doubles per step when written out: refused past this size, where
+# writing it would exhaust memory (a 1,000-feature margin is 1.25 MB, and runs).
+MAX_CHARACTERS = 64_000_000
 REF = re.compile("\x00L([0-9]+)\\.([a-z0-9_]+)")
 
 
@@ -41,9 +46,6 @@ class InlineLayers:
     def add(self, columns: list[tuple[str, str]], source: str = "") -> None:
         assert not source, "an expression cannot join"
         self.layers.append(dict(columns))
-
-    def carry(self, aliases) -> list[tuple[str, str]]:
-        return [(a, f"{self.ref}.{a}") for a in aliases]
 
     def render(self, innermost_from: str, fence: str) -> list[str]:
         return []
@@ -66,6 +68,24 @@ class InlineLayers:
 
         return expand(len(self.layers) - 1, alias)
 
+    def size(self, alias: str, named: dict[str, str]) -> int:
+        """The length `resolve` would give, counted without writing it out (an op read
+        twice by each op of a chain doubles it at every step)."""
+        done: dict[tuple[int, str], int] = {}
+
+        def count(layer: int, name: str) -> int:
+            key = (layer, name)
+            if key not in done:
+                text = self.layers[layer][name]
+                n = len(text)
+                for m in REF.finditer(text):
+                    n += (len(named[m[2]]) if m[2] in named else 2 + count(int(m[1]), m[2]))
+                    n -= len(m[0])
+                done[key] = n
+            return done[key]
+
+        return count(len(self.layers) - 1, alias)
+
 
 def output_expressions(plan: Plan, d: Dialect, source: dict[str, str], build_query):
     """[(output column, expression)] computing what the query computes; the outputs
@@ -75,5 +95,11 @@ def output_expressions(plan: Plan, d: Dialect, source: dict[str, str], build_que
     margins = {alias: d.quote(name) for name, alias in query.outputs[:plan.n_outputs]}
     out = []
     for i, (name, alias) in enumerate(query.outputs):
-        out.append((name, layers.resolve(alias, {} if i < plan.n_outputs else margins)))
+        named = {} if i < plan.n_outputs else margins
+        size = layers.size(alias, named)
+        if size > MAX_CHARACTERS:
+            raise ScorewrightError(f"--form expressions: output {name!r} would be one "
+                                   f"expression of {size:,} characters; use --form select "
+                                   "or view")
+        out.append((name, layers.resolve(alias, named)))
     return out

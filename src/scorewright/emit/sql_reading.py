@@ -22,8 +22,10 @@ not take: text is only cast once its grammar and range are checked.
 
 from __future__ import annotations
 
+from ..plan import Plan
+from ..values import MISSING_CODE, UNSEEN_CODE
 from . import sql_sqlite_text
-from .sql_dialects import Dialect
+from .sql_dialects import Dialect, literal
 
 # The decimal grammar of values.NUMBER over ASCII digits and the six ASCII blanks
 # (values.py's \\s and \\d also take unicode blanks and digits; no engine here does).
@@ -135,3 +137,61 @@ def category_missing(d: Dialect, x: str) -> str:
     if d.nan_types:
         tests.append(f"({type_test(d, x, d.nan_types)} AND {text} = {d.string(d.nan_text)})")
     return " OR ".join(tests)
+
+
+def unreachable(d: Dialect, level) -> bool:
+    """A text level no value in this engine can equal (it holds NUL, which the engine's
+    text cannot): left out of the lookup, where it could never match."""
+    return isinstance(level, str) and "\x00" in level and d.nul_char is None
+
+
+def _text_code(d: Dialect, inp, col: str) -> str:
+    """read_code (program.py) of a text-level category, from the column's text
+    (values.category_code: NULL and '' are missing, a text that is no level unseen)."""
+    value = f"CAST({col} AS {d.text}){d.text_collate}"
+    miss, unseen = MISSING_CODE, UNSEEN_CODE
+    if d.code_list is not None and not any(unreachable(d, lv) for lv in inp.levels):
+        levels = ", ".join(d.string(level) for level in inp.levels)
+        position = d.code_list.format(levels=levels, value=value)
+        return (f"CASE WHEN {col} IS NULL THEN {miss} WHEN {value} = '' THEN {miss} "
+                f"ELSE COALESCE(NULLIF({position}, 0) - 1, {unseen}) END")
+    whens = f"WHEN '' THEN {miss} " + " ".join(
+        f"WHEN {d.string(level)} THEN {code}" for code, level in enumerate(inp.levels)
+        if not unreachable(d, level))
+    return f"CASE WHEN {col} IS NULL THEN {miss} ELSE CASE {value} {whens} ELSE {unseen} END END"
+
+
+def integer_code(d: Dialect, inp, value: str, missing: str) -> str:
+    """read_code of an integer-level category from its value as a double (sql_reading:
+    2, 2.0, '2' and ' 2.0 ' all read 2.0; NULL when no number) and its missing test."""
+    whens = " ".join(f"WHEN {literal(d, float(level))} THEN {code}"
+                     for code, level in enumerate(inp.levels))
+    return (f"CASE WHEN {missing} = 1 THEN {MISSING_CODE} "
+            f"ELSE CASE {value} {whens} ELSE {UNSEEN_CODE} END END")
+
+
+def read_stages(plan: Plan, d: Dialect, source: dict[str, str], typed: bool) -> dict:
+    """input index -> the layers reading it, innermost first, each [(alias, expression)]
+    where expressions name the layer below's values as sql_sqlite_text.P + name
+    (without the r<i>_ prefix): a numeric or integer-level input read from a column of
+    any type to a double r<i>_n (sql_reading; NULL when missing or no number), with
+    x<i> = 1 where an integer-level category is missing; a text-level category's code
+    c<i> in one layer."""
+    out = {}
+    for inp in plan.inputs:
+        col = source[inp.name]
+        i = inp.index
+        if inp.kind == "numeric":
+            found = [[("n", col)]] if typed else stages(d, col, literal,
+                                                                    inp.boolean)
+            out[i] = [[(f"r{i}_{n}", e) for n, e in stage] for stage in found]
+        elif inp.integer_levels:
+            # The number and the missing test, coded a layer later: a CASE over the
+            # levels spells its operand once per level in DuckDB.
+            missing = f"CASE WHEN {category_missing(d, col)} THEN 1 ELSE 0 END"
+            found = category_stages(d, col, literal)
+            out[i] = [[(f"r{i}_{n}", e) for n, e in stage] for stage in found]
+            out[i][0].append((f"x{i}", missing))
+        else:
+            out[i] = [[(f"c{i}", _text_code(d, inp, col))]]
+    return out
