@@ -14,7 +14,7 @@ import corpus
 from scorewright.freeze import freeze_checked
 from scorewright.verify.harness import build_targets
 
-FAMILIES = ["python", "c-double", "java", "onnx-double"]
+FAMILIES = ["python", "c-double", "java", "onnx-double", "sql-duckdb", "sql-sqlite"]
 
 
 def _frozen(name):

@@ -186,16 +186,10 @@ def test_links_verify_on_the_targets_that_render_the_program(link, tmp_path):
     report = build_targets(_probit_model(link), tmp_path, data=None, n_random=300,
                            targets=["python", "c-double", "c-double-portable-exp",
                                     "java-portable-exp", "c-float", "c-cortex-m3",
-                                    "onnx-double", "onnx-float-reference"])
+                                    "onnx-double", "onnx-float-reference",
+                                    "sql-sqlite", "sql-duckdb"])
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
 
-
-@pytest.mark.parametrize("target", ["sql"])
-def test_targets_that_do_not_render_the_program_refuse_the_links(target):
-    from scorewright.emit import emitter
-
-    with pytest.raises(ScorewrightError, match=f"target {target} cannot express the probit"):
-        emitter(target)(_probit_model(), {})
 
 
 def test_head_accepts_the_new_links():

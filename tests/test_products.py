@@ -139,7 +139,8 @@ def test_products_verify_on_the_targets_that_render_the_program(tmp_path):
                          LogisticRegression(max_iter=2000)).fit(x, y)
     model = scorewright.freeze(pipe, check_rows=x)
     report = build_targets(model, tmp_path, data=None, n_random=300,
-                           targets=["python", "c-double", "java", "c-float"])
+                           targets=["python", "c-double", "java", "c-float",
+                                    "sql-sqlite", "sql-duckdb"])
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
 
 
@@ -155,7 +156,8 @@ def test_onnx_renders_unscaled_products_and_refuses_scaled_ones(tmp_path):
                                              LogisticRegression(max_iter=2000)).fit(x, y),
                                check_rows=x)
     report = build_targets(model, tmp_path, data=None, n_random=300,
-                           targets=["onnx-double", "onnx-float-reference"])
+                           targets=["onnx-double", "onnx-float-reference",
+                                    "sql-sqlite", "sql-duckdb"])
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
     scaled = scorewright.freeze(make_pipeline(_columns(), PolynomialFeatures(2),
                                               StandardScaler(),
@@ -163,15 +165,3 @@ def test_onnx_renders_unscaled_products_and_refuses_scaled_ones(tmp_path):
                                 check_rows=x)
     with pytest.raises(ScorewrightError, match="target onnx cannot express the scaled product"):
         emitter("onnx")(scaled, {})
-
-
-@pytest.mark.parametrize("target", ["sql"])
-def test_targets_that_do_not_render_the_program_refuse_products(target):
-    from scorewright.emit import emitter
-
-    x, y = _frame()
-    pipe = make_pipeline(_columns(indicator=False), PolynomialFeatures(2),
-                         LogisticRegression(max_iter=2000))
-    model = scorewright.freeze(pipe.fit(x, y), check_rows=x)
-    with pytest.raises(ScorewrightError, match=f"target {target} cannot express the product"):
-        emitter(target)(model, {})

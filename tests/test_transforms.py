@@ -233,18 +233,10 @@ def test_transforms_verify_on_the_targets_that_render_the_program(tmp_path):
     report = build_targets(model, tmp_path, data=None, n_random=300,
                            targets=["python", "c-double", "c-double-portable-exp",
                                     "java-portable-exp", "c-float", "c-cortex-m3",
-                                    "onnx-double", "onnx-float-reference"])
+                                    "onnx-double", "onnx-float-reference",
+                                    "sql-sqlite", "sql-duckdb"])
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
 
-
-@pytest.mark.parametrize("target", ["sql"])
-def test_targets_that_do_not_render_the_program_refuse_transforms(target):
-    from scorewright.emit import emitter
-
-    x, y = _frame()
-    model = scorewright.freeze(_pipeline().fit(x, y), check_rows=x)
-    with pytest.raises(ScorewrightError, match=f"target {target} cannot express the log1p"):
-        emitter(target)(model, {})
 
 
 def test_a_missing_transform_input_is_never_compared():

@@ -55,6 +55,8 @@ def spellings(d: Dialect) -> dict[str, Callable[[list[str]], str]]:
         "min": lambda a: d.least.format(a=a[0], b=a[1]),
         "neg": lambda a: f"-{a[0]}",
         "abs": lambda a: f"abs({a[0]})",
+        "sqrt": lambda a: f"sqrt({a[0]})",
+        "or": lambda a: f"({a[0]} OR {a[1]})",
         "gt": _binary(">"), "ge": _binary(">="), "eq": _binary("="),
         "select": lambda a: f"CASE WHEN {a[0]} THEN {a[1]} ELSE {a[2]} END",
         "exp": lambda a: f"exp({a[0]})",
