@@ -56,16 +56,16 @@ def test_freeze_from_pickle_warns_and_writes(tmp_path):
 
 
 def test_freeze_refuses_unsupported_and_garbage(tmp_path):
-    from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import PolynomialFeatures
     from sklearn.linear_model import LogisticRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import SplineTransformer
 
     tm = models.build("spector")
-    est = make_pipeline(PolynomialFeatures(), LogisticRegression()).fit(tm.frame, tm.target)
-    pkl = tmp_path / "poly.pkl"
+    est = make_pipeline(SplineTransformer(), LogisticRegression()).fit(tm.frame, tm.target)
+    pkl = tmp_path / "spline.pkl"
     pkl.write_bytes(pickle.dumps(est))
-    out = tmp_path / "poly.json"
-    assert "PolynomialFeatures" in one_line_error(run("freeze", str(pkl), "-o", str(out)))
+    out = tmp_path / "spline.json"
+    assert "SplineTransformer" in one_line_error(run("freeze", str(pkl), "-o", str(out)))
     assert not out.exists()
     junk = tmp_path / "junk.pkl"
     junk.write_bytes(b"not a pickle at all")

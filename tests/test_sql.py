@@ -32,6 +32,9 @@ from scorewright.verify.runners import sql as sql_runner
 
 DIALECT_NAMES = ("sqlite", "postgres", "duckdb")
 MODEL_NAMES = tuple(models.BUILDERS)
+# models whose scoring program is deep (a log's reduction, the probit link's series): some
+# forms refuse them in one line (DuckDB's function form, Spark's --form expressions)
+DEEP = ("compressor_terms", "spector_probit")
 # SQLite and DuckDB fold identifier case: the hostile model's "SELECT" and "select"
 # features must read distinct columns there.
 FOLDED = {"hostile": {"select": "select (lower case)"}}
@@ -142,6 +145,12 @@ def test_select_agrees_bit_for_bit(tmp_path, postgres_dsn, dialect, name):
                                           ("function", "duckdb")])
 def test_view_and_function_forms_agree(tmp_path, postgres_dsn, form, dialect, name):
     tm = models.build(name)
+    if (form, dialect) == ("function", "duckdb") and name in DEEP:
+        # DuckDB plans a LATERAL call in time doubling per layer: refused in one line
+        with pytest.raises(ScorewrightError, match="LATERAL") as err:
+            emit(tm.model, options_for(dialect, name, form=form))
+        assert "\n" not in str(err.value)
+        return
     rows = edge_rows(name, n_frame=40)
     got = run_sql(tmp_path, tm.model, rows, options_for(dialect, name, form=form), postgres_dsn)
     assert_agrees(tm.model, rows, got)
@@ -276,7 +285,7 @@ FORCED_JIT = {"jit": "on", "jit_above_cost": "0", "jit_inline_above_cost": "0",
               "jit_optimize_above_cost": "0"}
 
 
-def test_trap_postgres_jit_gives_the_same_bits(tmp_path, postgres_dsn):
+def test_trap_postgres_jit_gives_the_same_bits(tmp_path, postgres_dsn, request):
     """PostgreSQL compiles expressions with LLVM when a query costs enough (jit is on by
     default where the server is built with LLVM). Compiled code could contract a
     multiply and an add or reorder operations; forced on for every query, it gives
@@ -290,7 +299,10 @@ def test_trap_postgres_jit_gives_the_same_bits(tmp_path, postgres_dsn):
         plan = "\n".join(r[0] for r in con.execute(
             "EXPLAIN ANALYZE SELECT exp(x * 0.5) FROM generate_series(1, 3) AS x"))
         assert "JIT:" in plan and "Inlining true, Optimization true" in plan, plan
-    for name in MODEL_NAMES:
+    # The deep programs (a log's reduction, the probit series: the same + - * / and
+    # selects, only many) take LLVM minutes to compile: --runslow only.
+    slow = request.config.getoption("--runslow")
+    for name in [n for n in MODEL_NAMES if slow or n not in DEEP]:
         tm = models.build(name)
         rows = edge_rows(name, n_frame=50)
         # JIT's bits are the question here; the text pass is tested on its own.

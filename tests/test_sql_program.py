@@ -30,11 +30,12 @@ from test_sql import bits, edge_rows, run_sql
 SQL_FILES = sorted((Path(program.__file__).parent / "emit").glob("sql*.py"))
 
 
-def _other_numeric(b, inp):
+def _other_numeric(b, inp, single=False):
     """A different, valid lowering of a numeric input: a missing value reads -1.5, and
     the design value is |scaled value| halved."""
     x = b.emit("read_real", attr=inp.index, hint="x")
-    v = b.emit("select", b.emit("is_missing", x), Const(-1.5), x)
+    missing = b.missing[inp.index] = b.emit("is_missing", x)
+    v = b.emit("select", missing, Const(-1.5), x)
     v = b.emit("min", b.emit("max", v, Const(-inp.bound)), Const(inp.bound))
     for step in inp.steps:
         v = b.emit(program._STEP_OP[step.op], v, Const(step.value))
