@@ -54,11 +54,16 @@ def describe_model(model: FrozenModel) -> str:
             missing = ("missing -> design value 0.0" if feat.fill is None
                        else f"missing -> {feat.fill!r}")
             steps = " ".join(f"bins at {list(s.edges)!r}" if s.edges is not None else
+                             f"spline of degree {s.degree}, extrapolation {s.extrapolation}, "
+                             f"knots {list(s.knots)!r}" if s.knots is not None else
                              s.op if s.value is None else f"{s.op} {s.value!r}"
                              for s in feat.scaling) or "none"
             if feat.scaling and feat.scaling[0].op in TRANSFORM_OPS:
                 op = feat.scaling[0].op
                 missing += f" (so is a value {outside_text(op)}, outside {op}'s domain)"
+            elif feat.scaling and feat.scaling[0].extrapolation == "error":
+                lo, hi = feat.scaling[0].spline_range()
+                missing += f" (so is a value outside the knots [{lo!r}, {hi!r}])"
             clip = "" if feat.clip is None else f", clip to [{feat.clip[0]!r}, {feat.clip[1]!r}]"
             kind = ("numeric, fitted on booleans (true/false read as 1/0)" if feat.boolean
                     else "numeric")
@@ -87,7 +92,10 @@ def describe_model(model: FrozenModel) -> str:
         for j, col in enumerate(model.design):
             c = head.coefficients[k][j]
             feat = model.feature(col.feature)
-            if col.product is not None:
+            if col.basis is not None:
+                name = f"{col.feature!r} spline basis {col.basis}"
+                per_unit = c
+            elif col.product is not None:
                 name = " * ".join(_factor_name(f) for f in col.product)
                 per_unit = c
             elif col.encoded is not None:

@@ -22,11 +22,12 @@ from .errors import ModelFileError
 from .files import write_atomic
 
 FORMAT = "scorewright-frozen-model"
-# Version 2 adds the probit and cloglog links. A model is written in the lowest version
-# that can say it, so every model version 1 could hold is written as before (its file
-# and sha256 unchanged); this scorewright reads both.
-FORMAT_VERSION = 2
-READS_VERSIONS = (1, 2)
+# Version 2 adds the probit and cloglog links and the term kinds of TRANSFORM_OPS, BINS,
+# missing indicators, products and encodings; version 3 adds splines (SPLINE). A model is
+# written in the lowest version that can say it, so every model an older version could
+# hold is written as before (its file and sha256 unchanged); this scorewright reads all.
+FORMAT_VERSION = 3
+READS_VERSIONS = (1, 2, 3)
 
 SCALING_OPS = ("subtract", "divide", "multiply", "add")
 # Transforms: a numeric feature's first step (after the missing-value fill), no value. A raw
@@ -45,8 +46,24 @@ Level = Union[str, int]
 @dataclass(frozen=True)
 class ScalingStep:
     op: str
-    value: float | None = None  # None for a transform (TRANSFORM_OPS) and for bins
+    value: float | None = None  # None for a transform (TRANSFORM_OPS), bins and splines
     edges: tuple[float, ...] | None = None  # bins: the inner edges, increasing
+    # spline (format version 3): the whole knot vector t (increasing), the degree k and
+    # the extrapolation rule (SPLINE_EXTRAPOLATIONS)
+    knots: tuple[float, ...] | None = None
+    degree: int | None = None
+    extrapolation: str | None = None
+
+    def spline_range(self) -> tuple[float, float]:
+        """A spline's base interval [t[k], t[n]] (n = len(t) - k - 1): the range of the
+        data it was fitted on."""
+        n = len(self.knots) - self.degree - 1
+        return self.knots[self.degree], self.knots[n]
+
+    def spline_columns(self) -> int:
+        """How many basis columns a spline gives (periodic: k fewer, wrapped)."""
+        n = len(self.knots) - self.degree - 1
+        return n - self.degree if self.extrapolation == "periodic" else n
 
 
 # Bins (format version 2): a numeric feature's first step {"op": "bins", "edges": [...]}
@@ -55,6 +72,21 @@ class ScalingStep:
 # design value (ordinal, then any scaling steps), or, when bins is the feature's only step,
 # design columns may name bins as levels (one indicator per bin).
 BINS = "bins"
+
+# Splines (format version 3): a numeric feature's only step {"op": "spline", "knots": t,
+# "degree": k, "extrapolation": rule} gives its B-spline basis, one value per basis index
+# 0..n-1 (n = len(t) - k - 1; periodic: n - k, the last k wrapped onto the first k), as
+# scikit-learn's SplineTransformer evaluates it (scipy's BSpline: the interval of x is the
+# one with t[i] <= x < t[i+1], the last closed). Design columns name a basis index
+# ({"feature": f, "basis": j}, optionally with affine "scaling"). Outside the base
+# interval [t[k], t[n]]: "continue" extends the end polynomials, "periodic" maps x into
+# the interval first, "constant" holds the boundary values, "linear" extends the
+# boundary values along their slopes, and "error" (where scikit-learn raises) treats the
+# value as missing. A missing value's basis values are 0.0 (scikit-learn's
+# handle_missing='zeros').
+SPLINE = "spline"
+SPLINE_EXTRAPOLATIONS = ("error", "constant", "linear", "continue", "periodic")
+SPLINE_DEGREES = (1, 2, 3)
 
 
 @dataclass(frozen=True)
@@ -115,6 +147,8 @@ class DesignColumn:
     # target encoding, after any scaling): (value per level, value when unseen, value
     # when missing)
     encoded: tuple[tuple[float, ...], float, float] | None = None
+    # format version 3: the basis index of a spline feature's column (then `scaling`)
+    basis: int | None = None
 
 
 @dataclass(frozen=True)
@@ -173,6 +207,10 @@ def format_version(model: FrozenModel) -> int:
 
 def needs_version(model: FrozenModel) -> tuple[int, str]:
     """The lowest format version that can hold the model, and what needs it."""
+    for feat in model.features:
+        for step in getattr(feat, "scaling", ()):
+            if step.op == SPLINE:
+                return 3, f"the spline of feature {feat.name!r}"
     if model.head.link in LINK_VERSION:
         return LINK_VERSION[model.head.link], f"the {model.head.link} link"
     for feat in model.features:
@@ -236,6 +274,8 @@ def _document_body(model: FrozenModel) -> dict:
 def _steps_entry(steps) -> list:
     return [{"op": s.op} if s.op in TRANSFORM_OPS else
             {"op": s.op, "edges": list(s.edges)} if s.op == BINS else
+            {"op": s.op, "knots": list(s.knots), "degree": s.degree,
+             "extrapolation": s.extrapolation} if s.op == SPLINE else
             {"op": s.op, "value": s.value} for s in steps]
 
 
@@ -252,6 +292,8 @@ def _column_entry(col: DesignColumn) -> dict:
     if col.encoded is not None:
         entry["encoded"] = {"values": list(col.encoded[0]), "unseen": col.encoded[1],
                             "missing": col.encoded[2]}
+    if col.basis is not None:
+        entry["basis"] = col.basis
     return entry
 
 
@@ -440,6 +482,9 @@ def _read_steps(array, where: str, fill, path: str, affine_only: bool = False) -
                                      f"domain of {step['op']}")
             steps.append(ScalingStep(step["op"]))
             continue
+        if not affine_only and isinstance(step, dict) and step.get("op") == SPLINE:
+            steps.append(_read_spline(step, spath, j, len(array), fill, path))
+            continue
         if not affine_only and isinstance(step, dict) and step.get("op") == BINS:
             r.obj(step, spath, ("op", "edges"))
             if j != 0:
@@ -452,7 +497,8 @@ def _read_steps(array, where: str, fill, path: str, affine_only: bool = False) -
             continue
         r.obj(step, spath, ("op", "value"))
         if step["op"] not in SCALING_OPS:
-            allowed = SCALING_OPS if affine_only else SCALING_OPS + TRANSFORM_OPS + (BINS,)
+            allowed = SCALING_OPS if affine_only else SCALING_OPS + TRANSFORM_OPS + (BINS,
+                                                                                      SPLINE)
             raise ModelFileError(f"{spath}.op: expected one of {', '.join(allowed)}, "
                                  f"got {step['op']!r}")
         number = r.number(step["value"], f"{spath}.value")
@@ -460,6 +506,35 @@ def _read_steps(array, where: str, fill, path: str, affine_only: bool = False) -
             raise ModelFileError(f"{spath}.value: division by zero")
         steps.append(ScalingStep(step["op"], number))
     return tuple(steps)
+
+
+def _read_spline(step, spath, j, n_steps, fill, path) -> ScalingStep:
+    r = _Reader
+    r.obj(step, spath, ("op", "knots", "degree", "extrapolation"))
+    if j != 0 or n_steps != 1:
+        raise ModelFileError(f"{spath}.op: a spline must be the feature's only step")
+    degree = step["degree"]
+    if type(degree) is not int or degree not in SPLINE_DEGREES:
+        raise ModelFileError(f"{spath}.degree: expected one of "
+                             f"{', '.join(map(str, SPLINE_DEGREES))}, got {_kind(degree)}")
+    rule = step["extrapolation"]
+    if rule not in SPLINE_EXTRAPOLATIONS:
+        raise ModelFileError(f"{spath}.extrapolation: expected one of "
+                             f"{', '.join(SPLINE_EXTRAPOLATIONS)}, got {rule!r}")
+    knots = tuple(r.number(e, f"{spath}.knots[{i}]")
+                  for i, e in enumerate(r.array(step["knots"], f"{spath}.knots")))
+    if any(not a < b for a, b in zip(knots, knots[1:])):
+        raise ModelFileError(f"{spath}.knots: expected increasing numbers")
+    spline = ScalingStep(SPLINE, knots=knots, degree=degree, extrapolation=rule)
+    if len(knots) < 2 * degree + 2 or spline.spline_columns() < 1 or (
+            rule == "periodic" and spline.spline_columns() < degree):
+        raise ModelFileError(f"{spath}.knots: {len(knots)} knots are too few for degree "
+                             f"{degree}")
+    lo, hi = spline.spline_range()
+    if fill is not None and rule == "error" and not lo <= fill <= hi:
+        raise ModelFileError(f"{path}.missing.value: {fill!r} is outside the spline's "
+                             f"range [{lo!r}, {hi!r}]")
+    return spline
 
 
 def _read_feature(value, path) -> Feature:
@@ -553,11 +628,18 @@ def _read_design(value, path, by_name) -> DesignColumn:
         return DesignColumn(factors[0].feature, product=factors,
                             scaling=_read_steps(value["scaling"], f"{path}.scaling", None, path,
                                                 affine_only=True))
-    r.obj(value, path, ("feature",), optional=("levels", "missing", "encoded"))
+    r.obj(value, path, ("feature",), optional=("levels", "missing", "encoded", "basis",
+                                                "scaling"))
     name = r.string(value["feature"], f"{path}.feature")
     if name not in by_name:
         raise ModelFileError(f"{path}.feature: no feature named {name!r}")
     feat = by_name[name]
+    spline = spline_of(feat)
+    if "basis" in value or (spline is not None and not {"levels", "missing", "encoded"}
+                             & set(value)):
+        return _read_basis(value, path, name, spline)
+    if "scaling" in value:
+        raise ModelFileError(f"{path}: unexpected key 'scaling'")
     if "encoded" in value:
         if set(value) != {"feature", "encoded"}:
             raise ModelFileError(f"{path}: an encoded column has no levels or missing")
@@ -603,6 +685,27 @@ def _read_design(value, path, by_name) -> DesignColumn:
     return DesignColumn(name, levels)
 
 
+def _read_basis(value, path, name, spline) -> DesignColumn:
+    r = _Reader
+    if spline is None:
+        raise ModelFileError(f"{path}.basis: feature {name!r} has no spline")
+    r.obj(value, path, ("feature", "basis"), optional=("scaling",))
+    j = value["basis"]
+    if type(j) is not int or not 0 <= j < spline.spline_columns():
+        raise ModelFileError(f"{path}.basis: expected a basis index of {name!r}, an integer "
+                             f"from 0 to {spline.spline_columns() - 1}")
+    steps = None
+    if "scaling" in value:
+        steps = _read_steps(value["scaling"], f"{path}.scaling", None, path, affine_only=True)
+    return DesignColumn(name, basis=j, scaling=steps)
+
+
+def spline_of(feat) -> ScalingStep | None:
+    """A numeric feature's spline step (its only step), else None."""
+    steps = getattr(feat, "scaling", ())
+    return steps[0] if steps and steps[0].op == SPLINE else None
+
+
 def _read_factor(value, path, by_name) -> DesignColumn:
     """A factor of a product: a column of its own (a numeric one with its own scaling)."""
     r = _Reader
@@ -626,8 +729,16 @@ def _check_design(design, features) -> None:
     numeric_seen: set[str] = set()
     level_seen: dict[str, set] = {}
     indicated: set[str] = set()
+    bases: dict[str, set] = {}
     for i, col in enumerate(design):
-        if col.product is not None:
+        if col.basis is not None:
+            seen = bases.setdefault(col.feature, set())
+            if col.basis in seen:
+                raise ModelFileError(f"design[{i}].basis: basis {col.basis} of "
+                                     f"{col.feature!r} is in two columns")
+            seen.add(col.basis)
+            indicated.add(col.feature)
+        elif col.product is not None:
             indicated.update(f.feature for f in col.product)
         elif col.missing is not None or col.encoded is not None:
             indicated.add(col.feature)

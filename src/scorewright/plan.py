@@ -49,8 +49,8 @@ import re
 from dataclasses import dataclass
 
 from .errors import ScorewrightError
-from .model import (BINS, TRANSFORM_OPS, CategoricalFeature, FrozenModel, NumericFeature,
-                    ScalingStep, bin_count)
+from .model import (BINS, SPLINE, TRANSFORM_OPS, CategoricalFeature, FrozenModel,
+                    NumericFeature, ScalingStep, bin_count)
 
 
 @dataclass(frozen=True)
@@ -111,7 +111,8 @@ class Term:
     """One input's contribution to each margin."""
 
     input: int                           # index into Plan.inputs
-    kind: str  # "numeric", "categorical", "encoded", "bins", "missing" or "product"
+    # "numeric", "categorical", "encoded", "bins", "missing", "product" or "basis"
+    kind: str
     weights: tuple[float, ...] = ()      # numeric: one weight per output
     # categorical: per output, one value per level code (bins: per bin); encoded: the
     # same, then the unseen and the missing contributions; missing: per output, the
@@ -121,6 +122,8 @@ class Term:
     # | (input, "missing", (present, missing)), multiplied left to right; then `steps`
     factors: tuple = ()
     steps: tuple = ()
+    # basis: the spline basis index (weights per output; then `steps`, the column's own)
+    basis: int = -1
 
     @property
     def lookups(self) -> tuple:
@@ -192,7 +195,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
     for i, all_cols in columns.items():
         feat = model.features[i]
         cols = [j for j in all_cols if model.design[j].missing is None
-                and model.design[j].product is None and model.design[j].encoded is None]
+                and model.design[j].product is None and model.design[j].encoded is None
+                and model.design[j].basis is None]
         if isinstance(feat, NumericFeature) and cols and model.design[cols[0]].levels:
             # one indicator per bin: per output, the contribution of each bin
             tables = []
@@ -221,6 +225,15 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
             if any(v != 0.0 for t in tables for v in t):
                 terms.append(Term(i, "categorical", tables=tuple(tables)))
         for j in all_cols:
+            if model.design[j].basis is not None:
+                if prec.name == "float":
+                    raise ScorewrightError(f"feature {feat.name!r}: a spline is not scored in "
+                                           "single precision; use a double target")
+                weights = tuple(head.coefficients[k][j] for k in range(n_out))
+                if any(w != 0.0 for w in weights):
+                    terms.append(Term(i, "basis", weights=weights, basis=model.design[j].basis,
+                                      steps=tuple(model.design[j].scaling or ())))
+                continue
             enc = model.design[j].encoded
             if enc is not None:
                 # per output: weight * value per level, then unseen, then missing
@@ -248,7 +261,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
     for i, feat in enumerate(model.features):
         if isinstance(feat, NumericFeature):
             bound = _numeric_bound(feat, term_of.get(i), budgets, prec, i,
-                                   [t for t in terms if t.kind == "product"])
+                                   [t for t in terms if t.kind == "product"],
+                                   [t for t in terms if t.kind == "basis" and t.input == i])
             built.append(NumericInput(i, feat.name, feat.fill, bound,
                                       _steps_in(feat.scaling, prec), feat.clip, feat.boolean))
         else:
@@ -314,11 +328,12 @@ def _categorical_input(index: int, feat: CategoricalFeature) -> CategoricalInput
 def _term_budgets(terms, intercepts, prec: Precision) -> list[float]:
     """Per output, the largest |weight * value| one numeric term may reach so the margin
     stays within the precision's budget."""
-    n_numeric = max(1, sum(1 for t in terms if t.kind in ("numeric", "product")))
+    grown = ("numeric", "product", "basis")  # terms whose size the input guard bounds
+    n_numeric = max(1, sum(1 for t in terms if t.kind in grown))
     budgets = []
     for k, intercept in enumerate(intercepts):
         fixed = abs(intercept) + sum(max(abs(v) for v in t.tables[k])
-                                     for t in terms if t.kind not in ("numeric", "product"))
+                                     for t in terms if t.kind not in grown)
         if fixed >= prec.budget / 2:
             raise ScorewrightError(
                 f"model coefficients are too large to score safely in {prec.name} "
@@ -331,6 +346,9 @@ def _backward(allowed: float, steps, prec: Precision) -> float:
     """The largest |input| of these steps whose every intermediate and output stays
     within `allowed` (and the precision's cap)."""
     for step in reversed(steps):
+        if step.op == SPLINE:
+            allowed = min(_spline_backward(allowed, step), prec.max_value)
+            continue
         if step.op == BINS:  # a bin number, 0..len(edges)
             allowed = prec.max_value if allowed >= len(step.edges) else 0.0
             continue
@@ -358,8 +376,37 @@ def _backward(allowed: float, steps, prec: Precision) -> float:
     return allowed
 
 
+# A periodic spline reduces x modulo its period by halving steps from period * 2^PERIODS
+# down (program._lower_remainder), so its input guard is at most that.
+PERIODS = 64
+
+
+def _spline_backward(allowed: float, step) -> float:
+    """The largest |x| whose spline basis values stay within `allowed`. Every basis value
+    inside the knots is in [0, 1] ("constant", "error" and "periodic" never leave it);
+    "linear" adds at most (|x| + T) * slope; "continue" extends a degree-k polynomial,
+    each de Boor level multiplying by at most 2 (|x| + T) / g (T: the largest |knot|, g:
+    the smallest knot gap)."""
+    from .program import spline_boundary
+
+    if not allowed >= 1.0:
+        return 0.0
+    t, k = step.knots, step.degree
+    reach = max(abs(v) for v in t)
+    gap = min(b - a for a, b in zip(t, t[1:]))
+    if step.extrapolation == "periodic":
+        lo, hi = step.spline_range()
+        return (hi - lo) * 2.0 ** PERIODS
+    if step.extrapolation == "linear":
+        slope = max(abs(v) for side in spline_boundary(step) for v in side[1])
+        return (allowed - 1.0) / max(slope, 1.0) - reach
+    if step.extrapolation == "continue":
+        return gap / 2.0 * allowed ** (1.0 / k) - reach
+    return math.inf
+
+
 def _numeric_bound(feat, term, budgets, prec: Precision, index: int = -1,
-                   products=()) -> float:
+                   products=(), bases=()) -> float:
     """The largest power of ten B such that clamping the raw value to [-B, B] keeps every
     scaling intermediate, every term and every margin finite (the margin stays within the
     precision's budget). A product term shares its allowance among its numeric factors
@@ -369,6 +416,11 @@ def _numeric_bound(feat, term, budgets, prec: Precision, index: int = -1,
         for budget, weight in zip(budgets, term.weights):
             if weight != 0.0:
                 allowed = min(allowed, budget / abs(weight))
+    if bases:  # a spline: each basis term bounds its input through the column's steps
+        room = min(budget / abs(w) for t in bases for budget, w in zip(budgets, t.weights)
+                   if w != 0.0)
+        room = min(_backward(min(room, prec.max_value), t.steps, prec) for t in bases)
+        allowed = min(allowed, room)
     allowed = _backward(allowed, feat.scaling, prec)
     for t in products:
         mine = [f for f in t.factors if f[0] == index and f[1] == "numeric"]

@@ -43,7 +43,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from . import normal_tail, portable_exp
-from .model import BINS, TRANSFORM_DOMAIN
+from .model import BINS, SPLINE, TRANSFORM_DOMAIN
 from .plan import CategoricalInput, NumericInput, Plan
 from .values import MISSING_CODE, UNSEEN_CODE, category_code, numeric_value
 
@@ -99,6 +99,8 @@ class _Builder:
         self.codes: dict[int, str] = {}    # categorical input -> its code after policies
         self.products: dict[int, str] = {}  # a product term (by id) -> its value
         self.raw_codes: dict[int, str] = {}  # categorical input -> its code as read
+        self.bases: dict[int, list] = {}   # spline input -> its basis values, by index
+        self.basis_terms: dict[int, str] = {}  # a basis term (by id) -> its design value
 
     def emit(self, op: str, *args, attr=None, hint: str = "t") -> str:
         if op not in PRIMITIVES:
@@ -150,6 +152,9 @@ def lower(plan: Plan) -> Program:
                 if inp.fill is None:
                     w = b.emit("select", b.missing[term.input], Const(0.0), w, hint="w")
                 terms.append(w)
+            elif term.kind == "basis":
+                terms.append(b.emit("mul", Const(term.weights[k]),
+                                    _basis_value(b, plan, term), hint="w"))
             elif term.kind == "missing":
                 present, missing = term.tables[k]
                 terms.append(b.emit("select", _missing_flag(b, plan.inputs[term.input]),
@@ -199,7 +204,17 @@ def _lower_numeric(b: _Builder, inp: NumericInput, single: bool = False) -> str:
     missing = b.emit("is_missing", x, hint="f")
     first = inp.steps[0].op if inp.steps else None
     placeholder = 0.0
-    if first in _DOMAIN:
+    if first == SPLINE:
+        # a missing value's basis values are 0.0 (`_basis_value`); inside the knots a
+        # value stands in for it, so nothing is computed from NaN
+        lo, hi = inp.steps[0].spline_range()
+        placeholder = lo
+        if inp.steps[0].extrapolation == "error":  # outside the knots counts as missing
+            known = b.emit("select", missing, Const(lo), x, hint="v")
+            outside = b.emit("or", b.emit("gt", Const(lo), known, hint="f"),
+                             b.emit("gt", known, Const(hi), hint="f"), hint="f")
+            missing = b.emit("or", missing, outside, hint="f")
+    elif first in _DOMAIN:
         # outside the transform's domain counts as missing; with no fill, a value inside
         # the domain stands in for it, so no intermediate is infinite or NaN (and no
         # comparison meets a missing value: 1.0 stands in for it there too)
@@ -213,6 +228,9 @@ def _lower_numeric(b: _Builder, inp: NumericInput, single: bool = False) -> str:
     v = b.emit("max", v, Const(-inp.bound), hint="v")
     v = b.emit("min", v, Const(inp.bound), hint="v")
     b.clamped[inp.index] = v
+    if first == SPLINE:
+        b.bases[inp.index] = _lower_spline(b, v, inp.steps[0], inp.bound)
+        return v
     v = _apply_steps(b, v, inp.steps, single)
     if inp.clip is not None:
         v = b.emit("max", v, Const(inp.clip[0]), hint="v")
@@ -268,6 +286,144 @@ def _lower_product(b: _Builder, plan: Plan, term, k: int):
         p = f if p is None else b.emit("mul", p, f, hint="v")
     p = b.products[id(term)] = _apply_steps(b, p, term.steps, single)
     return b.emit("mul", Const(term.weights[k]), p, hint="w")
+
+
+def _basis_value(b: _Builder, plan: Plan, term):
+    """A spline column's design value: its basis value (0.0 when the input is missing with
+    no fill, as scikit-learn's handle_missing='zeros'), then the column's own steps."""
+    if id(term) not in b.basis_terms:
+        inp = plan.inputs[term.input]
+        v = b.bases[term.input][term.basis]
+        if inp.fill is None:
+            v = b.emit("select", b.missing[term.input], Const(0.0), v, hint="v")
+        b.basis_terms[id(term)] = _apply_steps(b, v, term.steps)
+    return b.basis_terms[id(term)]
+
+
+def _lower_spline(b: _Builder, x, step, bound: float) -> list:
+    """The spline's basis values at x (finite, within the input guard), one per column,
+    computed as scipy's BSpline evaluates them (the de Boor recursion of its
+    `_deBoor_D`, operation for operation), so the values are its bits: the interval
+    ell (t[ell] <= x < t[ell + 1], ell in k..n-1, the last closed and the end intervals
+    extended) picks the knots by selections, the recursion runs on them, and each
+    column selects its value on the interval (0.0 off its support). "periodic" maps x
+    into [t[k], t[n]] first (numpy's remainder, exact); "constant" and "linear" evaluate
+    inside the knots and select the boundary rule outside them (scikit-learn's
+    SplineTransformer.transform)."""
+    t, k, rule = step.knots, step.degree, step.extrapolation
+    n = len(t) - k - 1
+    lo, hi = step.spline_range()
+    if rule == "periodic":
+        x = b.emit("add", Const(lo), _lower_remainder(b, b.emit("sub", x, Const(lo)),
+                                                      hi - lo, bound + abs(lo)), hint="v")
+    inside = x
+    if rule in ("constant", "linear"):  # the inside values never see a far x
+        inside = b.emit("min", b.emit("max", x, Const(lo)), Const(hi), hint="v")
+    flags = [b.emit("ge", inside, Const(t[e]), hint="f") for e in range(k + 1, n)]
+
+    def by_interval(values):
+        v = values[0]
+        for f, prev, cur in zip(flags, values, values[1:]):
+            if cur != prev:
+                v = b.emit("select", f, cur, v, hint="v")
+        return v
+
+    knot = {d: by_interval([Const(t[ell + d]) for ell in range(k, n)])
+            for d in range(1 - k, k + 1)}
+    h = [Const(1.0)]
+    for j in range(1, k + 1):
+        hh = h[:j]
+        h = [Const(0.0)] + [None] * j
+        for m in range(1, j + 1):
+            xb, xa = knot[m], knot[m - j]
+            w = b.emit("div", hh[m - 1], b.emit("sub", xb, xa))
+            h[m - 1] = b.emit("add", h[m - 1], b.emit("mul", w, b.emit("sub", xb, inside)))
+            h[m] = b.emit("mul", w, b.emit("sub", inside, xa))
+    n_cols = step.spline_columns()
+    columns = []
+    for col in range(n_cols):
+        per_interval = []
+        for ell in range(k, n):
+            parts = [h[a] for a in range(k + 1) if (ell - k + a) % n_cols == col]
+            v = parts[0] if parts else Const(0.0)
+            for p in parts[1:]:
+                v = b.emit("add", v, p, hint="v")
+            per_interval.append(v)
+        columns.append(by_interval(per_interval))
+    if rule in ("constant", "linear"):
+        below = b.emit("gt", Const(lo), x, hint="f")
+        above = b.emit("gt", x, Const(hi), hint="f")
+        (f_lo, s_lo), (f_hi, s_hi) = spline_boundary(step)
+        ends = k if rule == "constant" or k > 1 else k + 1
+        for col in range(n_cols):
+            low = high = Const(0.0)
+            if col < ends:
+                low = Const(f_lo[col])
+                if rule == "linear":
+                    low = b.emit("add", low, b.emit("mul", b.emit("sub", x, Const(lo)),
+                                                    Const(s_lo[col])), hint="v")
+            if col >= n_cols - ends:
+                high = Const(f_hi[col])
+                if rule == "linear":
+                    high = b.emit("add", high, b.emit("mul", b.emit("sub", x, Const(hi)),
+                                                      Const(s_hi[col])), hint="v")
+            v = b.emit("select", below, low, columns[col], hint="v")
+            columns[col] = b.emit("select", above, high, v, hint="v")
+    return columns
+
+
+def _lower_remainder(b: _Builder, a, period: float, reach: float):
+    """numpy's remainder(a, period) for |a| <= reach, period > 0, exactly: |a| reduced by
+    period * 2^j from the top down (each subtraction exact: c <= r < 2c, Sterbenz), which
+    is fmod(|a|, period); a negative a with a nonzero remainder r gives period - r, as
+    numpy's fmod(a) + period rounds."""
+    top = max(0, math.ceil(math.log2(2.0 * reach / period)))
+    r = b.emit("abs", a)
+    for j in range(top, -1, -1):
+        c = Const(math.ldexp(period, j))
+        r = b.emit("select", b.emit("ge", r, c), b.emit("sub", r, c), r, hint="v")
+    wrapped = b.emit("select", b.emit("gt", r, Const(0.0)), b.emit("sub", Const(period), r),
+                     r, hint="v")
+    return b.emit("select", b.emit("gt", Const(0.0), a), wrapped, r, hint="v")
+
+
+def de_boor(t, k: int, ell: int, x: float, nu: int = 0) -> list[float]:
+    """The k + 1 basis values (their nu-th derivative) nonzero on interval ell at x, by
+    the arithmetic of scipy's `_deBoor_D` (in Python floats: the same IEEE operations)."""
+    h = [1.0] + [0.0] * k
+    for j in range(1, k + 1):
+        hh = h[:j]
+        h[0] = 0.0
+        for m in range(1, j + 1):
+            xb, xa = t[ell + m], t[ell + m - j]
+            if j <= k - nu:
+                w = hh[m - 1] / (xb - xa)
+                h[m - 1] += w * (xb - x)
+                h[m] = w * (x - xa)
+            else:
+                w = j * hh[m - 1] / (xb - xa)
+                h[m - 1] -= w
+                h[m] = w
+    return h
+
+
+def spline_boundary(step) -> tuple:
+    """((values, slopes) at t[k], (values, slopes) at t[n]) of every basis column of a
+    non-periodic spline: what scikit-learn's SplineTransformer reads from spl(xmin),
+    spl(xmin, nu=1), spl(xmax), spl(xmax, nu=1) for its constant and linear
+    extrapolation."""
+    t, k = step.knots, step.degree
+    n = len(t) - k - 1
+    out = []
+    for ell, x in ((k, t[k]), (n - 1, t[n])):
+        pair = []
+        for nu in (0, 1):
+            row = [0.0] * n
+            for a, v in enumerate(de_boor(t, k, ell, x, nu)):
+                row[ell - k + a] = v
+            pair.append(tuple(row))
+        out.append(tuple(pair))
+    return tuple(out)
 
 
 def _select_by_bin(b: _Builder, x, edges, values):

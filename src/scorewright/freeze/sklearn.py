@@ -18,8 +18,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import (BINS, TRANSFORM_OPS, CategoricalFeature, DesignColumn, FrozenModel, Head,
-                     NumericFeature, ScalingStep, in_domain, outside_text)
+from ..model import (BINS, SPLINE, SPLINE_DEGREES, TRANSFORM_OPS, CategoricalFeature,
+                     DesignColumn, FrozenModel, Head, NumericFeature, ScalingStep, in_domain,
+                     outside_text)
 from .provenance import provenance
 
 
@@ -40,6 +41,7 @@ class Chain:
     product: tuple | None = None         # PolynomialFeatures: the factors (DesignColumns)
     encoding: tuple | None = None        # ordinal/target encoded: (values, unseen, missing)
     constant: bool = False               # PolynomialFeatures' bias column (then steps)
+    basis: int | None = None             # SplineTransformer: the basis index (steps[0]: it)
 
 
 class Unsupported(ScorewrightError):
@@ -68,6 +70,7 @@ def freeze_estimator(estimator, feature_names=None, name=None) -> FrozenModel:
              f"(np.{f.scaling[0].op} has no finite value there); the frozen model treats "
              "them as missing" for f in features
              if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
+    notes += _spline_notes(features)
     model = FrozenModel(
         name=name or _default_name(estimator),
         features=features,
@@ -139,8 +142,8 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
     from sklearn.pipeline import Pipeline
     from sklearn.preprocessing import (FunctionTransformer, KBinsDiscretizer, MaxAbsScaler,
                                        MinMaxScaler, OneHotEncoder, OrdinalEncoder,
-                                       PolynomialFeatures, RobustScaler, StandardScaler,
-                                       TargetEncoder)
+                                       PolynomialFeatures, RobustScaler, SplineTransformer,
+                                       StandardScaler, TargetEncoder)
 
     if step in (None, "passthrough"):
         return chains
@@ -159,6 +162,8 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
         return _bins(step, chains, path)
     if kind is PolynomialFeatures:
         return _polynomial(step, chains, path)
+    if kind is SplineTransformer:
+        return _splines(step, chains, path)
     if kind is OrdinalEncoder:
         return _ordinal(step, chains, path)
     if kind is TargetEncoder:
@@ -214,7 +219,7 @@ def _column_transformer(ct, chains, path):
 def _copy(chain: Chain) -> Chain:
     return Chain(chain.feature, chain.fill, list(chain.steps), chain.clip, chain.levels,
                  chain.categories, chain.unknown_level, chain.encoded, chain.indicator,
-                 chain.binned, chain.product, chain.encoding, chain.constant)
+                 chain.binned, chain.product, chain.encoding, chain.constant, chain.basis)
 
 
 def _indicator_features(ind, path) -> list[int]:
@@ -321,6 +326,64 @@ def _bins(kb, chains, path):
             out.append(Chain(chain.feature, fill=chain.fill, steps=[step], levels=(b,),
                              binned=True))
     return out
+
+
+def _splines(st, chains, path):
+    """SplineTransformer: per feature, its B-spline basis columns (the last dropped
+    without include_bias), as the knots, degree and extrapolation of its fitted
+    BSplines say."""
+    if st.degree not in SPLINE_DEGREES:
+        raise Unsupported(f"SplineTransformer(degree={st.degree!r}) at {path}: only degrees "
+                          f"{', '.join(map(str, SPLINE_DEGREES))} are frozen")
+    if st.degree == 1 and st.extrapolation == "linear" and len(chains) > 1:
+        # transform() raises its local degree to 2 for the first feature and keeps it for
+        # the rest, so it reads their range and boundary slopes at the wrong knots
+        raise Unsupported(f"SplineTransformer(degree=1, extrapolation='linear') at {path} "
+                          "over several columns: scikit-learn scores every column after the "
+                          "first with degree 2's boundaries; give each column its own "
+                          "SplineTransformer")
+    out = []
+    for i, chain in enumerate(chains):
+        _require_raw(chain, path, "SplineTransformer")
+        if chain.steps or chain.clip is not None or isinstance(chain.fill, str):
+            raise Unsupported(f"SplineTransformer at {path} comes after scaling; put it first "
+                              "(after any SimpleImputer)")
+        spl = st.bsplines_[i]
+        knots = tuple(float(v) for v in np.asarray(spl.t, dtype=np.float64))
+        if any(not a < b for a, b in zip(knots, knots[1:])):
+            raise Unsupported(f"SplineTransformer at {path}: feature column {i} has repeated "
+                              "knots (too few distinct values); not frozen")
+        step = ScalingStep(SPLINE, knots=knots, degree=int(spl.k),
+                           extrapolation=st.extrapolation)
+        lo, hi = step.spline_range()
+        if chain.fill is not None and st.extrapolation == "error" and not \
+                lo <= float(chain.fill) <= hi:
+            raise Unsupported(f"SplineTransformer at {path}: the imputed value {chain.fill!r} "
+                              "is outside its knots (extrapolation='error')")
+        n_cols = step.spline_columns()
+        if n_cols != np.asarray(spl.c).shape[1]:
+            raise Unsupported(f"SplineTransformer at {path}: its basis is not the shape this "
+                              "scikit-learn version was read for")
+        for j in range(n_cols - (0 if st.include_bias else 1)):
+            out.append(Chain(chain.feature, fill=chain.fill, steps=[step], basis=j))
+    return out
+
+
+def _spline_notes(features) -> list[str]:
+    notes = []
+    for f in features:
+        steps = getattr(f, "scaling", ())
+        if not steps or steps[0].op != SPLINE:
+            continue
+        lo, hi = steps[0].spline_range()
+        if steps[0].extrapolation == "error":
+            notes.append(f"scikit-learn cannot score {f.name}'s values outside its knots "
+                         f"[{lo!r}, {hi!r}] (extrapolation='error' raises); the frozen model "
+                         "treats them as missing")
+        if f.fill is None:
+            notes.append(f"a missing {f.name} (NaN, None, +-inf) gives basis values 0.0, "
+                         "as scikit-learn's handle_missing='zeros' does for NaN")
+    return notes
 
 
 def _mapped(encoding, f):
@@ -434,9 +497,9 @@ def _polynomial(poly, chains, path):
 def _factor(chain, path) -> DesignColumn:
     """A column as a factor of a product, as it stands now (a later scaler changes the
     column, not the factor)."""
-    if chain.product is not None or chain.constant or chain.binned:
+    if chain.product is not None or chain.constant or chain.binned or chain.basis is not None:
         raise Unsupported(f"PolynomialFeatures at {path} takes a column that is already a "
-                          "product, a constant or a bin")
+                          "product, a constant, a bin or a spline")
     if chain.clip is not None:
         raise Unsupported(f"PolynomialFeatures at {path} takes a clipped column")
     if chain.indicator:
@@ -453,6 +516,11 @@ def _named(chain, **fields) -> DesignColumn:
 
 
 def _require_raw(chain, path, what):
+    if chain.basis is not None:
+        if not what.endswith("Scaler") or what == "MinMaxScaler" and chain.clip is not None:
+            raise Unsupported(f"{what} at {path} takes SplineTransformer's columns; only "
+                              "scalers may")
+        return
     if chain.product is not None or chain.constant:
         if not what.endswith("Scaler"):
             raise Unsupported(f"{what} at {path} takes a PolynomialFeatures or scaled one-hot "
@@ -579,9 +647,23 @@ def _features_and_design(chains, raw_names):
     categorical: dict[int, list[Chain]] = {}
     indicated: set[int] = set()
     binned: dict[int, Chain] = {}
+    splined: dict[int, Chain] = {}
     constants: dict[int, float] = {}
     for position, chain in enumerate(chains):
         name = raw_names[chain.feature]
+        if chain.basis is not None:
+            if chain.clip is not None:
+                raise Unsupported(f"feature {name!r}: a clipping MinMaxScaler after "
+                                  "SplineTransformer is not frozen")
+            if chain.feature in numeric or chain.feature in categorical or \
+                    chain.feature in binned or (chain.feature in splined and
+                                                splined[chain.feature].steps[0]
+                                                != chain.steps[0]):
+                raise Unsupported(f"feature {name!r} reaches the estimator twice")
+            splined[chain.feature] = chain
+            design.append(DesignColumn(name, basis=chain.basis,
+                                       scaling=tuple(chain.steps[1:]) or None))
+            continue
         if chain.constant:
             constants[position] = _indicator_value(chain, 1.0)
             continue
@@ -617,7 +699,7 @@ def _features_and_design(chains, raw_names):
             design.append(DesignColumn(name, tuple(chain.levels)))
         else:
             if chain.feature in numeric or chain.feature in categorical or \
-                    chain.feature in binned:
+                    chain.feature in binned or chain.feature in splined:
                 raise Unsupported(f"feature {name!r} reaches the estimator twice")
             if isinstance(chain.fill, str):
                 raise Unsupported(f"feature {name!r} is imputed with text but not encoded")
@@ -629,6 +711,10 @@ def _features_and_design(chains, raw_names):
             c = numeric[i]
             fill = None if c.fill is None else float(c.fill)
             features.append(NumericFeature(name, fill, tuple(c.steps), c.clip))
+        elif i in splined:
+            c = splined[i]
+            fill = None if c.fill is None else float(c.fill)
+            features.append(NumericFeature(name, fill, (c.steps[0],)))
         elif i in binned:
             c = binned[i]
             fill = None if c.fill is None else float(c.fill)

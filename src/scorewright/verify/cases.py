@@ -37,7 +37,7 @@ def inverse_affine(inp, z: float) -> float | None:
     """The raw value whose scaling steps give design value z (None if not invertible)."""
     x = z
     for step in reversed(inp.steps):
-        if step.op == "bins":
+        if step.op in ("bins", "spline"):
             return None
         if step.op in ("log", "log1p"):
             if x > 700.0:
@@ -64,8 +64,8 @@ def inverse_affine(inp, z: float) -> float | None:
 
 def typical_value(inp) -> float:
     x = inverse_affine(inp, 0.0)
-    if x is None and inp.steps and inp.steps[0].op == "bins":
-        edges = inp.steps[0].edges
+    if x is None and inp.steps and inp.steps[0].op in ("bins", "spline"):
+        edges = inp.steps[0].edges or inp.steps[0].knots
         x = edges[len(edges) // 2]
     if x is None:
         x = inp.fill if inp.fill is not None else 0.0
@@ -103,11 +103,12 @@ def edge_rows(plan: Plan) -> list[tuple[str, dict]]:
                                               math.nextafter(-inp.bound, -math.inf)]
             if inp.fill is not None:
                 values.append(inp.fill)
-            if inp.steps and inp.steps[0].op == "bins":  # every edge and either side
-                for edge in inp.steps[0].edges:
+            if inp.steps and inp.steps[0].op in ("bins", "spline"):
+                # every bin edge or spline knot, and one double either side
+                for edge in inp.steps[0].edges or inp.steps[0].knots:
                     values += [edge, math.nextafter(edge, math.inf),
                                math.nextafter(edge, -math.inf)]
-            elif inp.steps and inp.steps[0].value is None:  # a transform's domain edge
+            elif inp.steps and inp.steps[0].op in TRANSFORM_DOMAIN:  # a transform's domain edge
                 edge = TRANSFORM_DOMAIN[inp.steps[0].op][0]
                 values += [edge, math.nextafter(edge, math.inf),
                            math.nextafter(edge, -math.inf), edge + 2.0 ** -30]
@@ -203,6 +204,10 @@ def random_rows(plan: Plan, n: int, seed: int = 0) -> list[dict]:
                     row[inp.name] = None
                 elif u < 0.05:
                     row[inp.name] = math.nan
+                elif inp.steps and inp.steps[0].op == "spline":
+                    lo, hi = inp.steps[0].spline_range()  # the knots and past either end
+                    x = rng.uniform(lo - (hi - lo) / 4, hi + (hi - lo) / 4)
+                    row[inp.name] = x
                 else:
                     x = inverse_affine(inp, rng.gauss(0.0, 1.5))
                     if x is None:
