@@ -45,7 +45,7 @@ def _show(tmp_path, text):
 def _mutations():
     good = json.dumps(_doc(), indent=1)
     yield "truncated", good[: len(good) // 2], "not valid JSON"
-    d = _doc(); d["format_version"] = 3
+    d = _doc(); d["format_version"] = 4
     yield "newer version", json.dumps(_resealed(d)), "format_version"
     d = _doc(); d["format"] = "something-else"
     yield "wrong format", json.dumps(_resealed(d)), "format"
