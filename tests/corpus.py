@@ -1,9 +1,9 @@
 """A practitioner corpus: pipelines of the kinds credit-risk, insurance-pricing, marketing and
 equipment teams fit, on invented data of four scenarios (no real people or companies).
 
-Each entry is (name, fitted estimator, the frame it was fitted on). Fifteen pipeline shapes
-(transforms, bins, interactions, missing indicators, encoders, every linear head) times the
-four scenarios give 60 pipelines; `build(name)` is cached per process.
+Each entry is (name, fitted estimator, the frame it was fitted on). Sixteen pipeline
+shapes (transforms, bins, splines, interactions, missing indicators, encoders, every linear
+head) times the four scenarios give 64 pipelines; `build(name)` is cached per process.
 """
 
 from __future__ import annotations
@@ -109,6 +109,13 @@ def _shapes(amount: str):
             lm.LogisticRegressionCV(cv=3, l1_ratios=(0.0,), max_iter=3000))),
         "lda": ("three", lambda: pl.make_pipeline(
             cols(num_logged, num_plain), da.LinearDiscriminantAnalysis())),
+        "splines_logistic": ("binary", lambda: pl.make_pipeline(
+            cols(("sp", pl.make_pipeline(impute.SimpleImputer(), pp.SplineTransformer(
+                n_knots=5, degree=3, extrapolation="linear")), ["score"]),
+                 ("ev", pp.SplineTransformer(n_knots=4, degree=2, knots="quantile",
+                                             extrapolation="constant",
+                                             handle_missing="zeros"), ["events"]),
+                 num_logged, cats), lm.LogisticRegression(max_iter=3000))),
         "huber_log_target": ("positive", lambda: pl.make_pipeline(
             cols(num_logged, num_plain, cats), compose.TransformedTargetRegressor(
                 lm.HuberRegressor(max_iter=2000), func=np.log, inverse_func=np.exp))),
