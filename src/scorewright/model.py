@@ -36,9 +36,12 @@ SCALING_OPS = ("subtract", "divide", "multiply", "add")
 TRANSFORM_OPS = ("log", "log1p", "sqrt")
 # transform -> (edge, whether the edge itself is outside): log x <= 0, log1p x <= -1, sqrt x < 0
 TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, False)}
-TASK_LINKS = {"binary": ("logit", "probit", "cloglog"), "multiclass": ("softmax",),
-              "regression": ("identity", "log")}
-LINK_VERSION = {"probit": 2, "cloglog": 2}  # links a version 1 file cannot hold
+# multiclass "ovr_logit": one-vs-rest logistic, each class's sigmoid divided by their sum;
+# regression "log1p": the value is expm1(margin), "sqrt": the value is margin * margin
+TASK_LINKS = {"binary": ("logit", "probit", "cloglog"), "multiclass": ("softmax", "ovr_logit"),
+              "regression": ("identity", "log", "log1p", "sqrt")}
+# links an older file version cannot hold
+LINK_VERSION = {"probit": 2, "cloglog": 2, "ovr_logit": 3, "log1p": 3, "sqrt": 3}
 
 Level = Union[str, int]
 

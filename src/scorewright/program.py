@@ -43,6 +43,7 @@ from typing import Any, Mapping
 import numpy as np
 
 from . import normal_tail, portable_exp
+from .errors import ScorewrightError
 from .model import BINS, SPLINE, TRANSFORM_DOMAIN
 from .plan import CategoricalInput, NumericInput, Plan
 from .values import MISSING_CODE, UNSEEN_CODE, category_code, numeric_value
@@ -556,17 +557,67 @@ def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
             higher = b.emit("gt", margins[k], top)
             top = b.emit("select", higher, margins[k], top)
             best = b.emit("select", higher, Const(k), best, hint="k")
+        if plan.link == "ovr_logit":
+            # one-vs-rest: each class's sigmoid, divided by their sum
+            sig = [_lower_logit(b, plan, m)[1] for m in margins]
+            total = b.emit("sum", *sig)
+            return [*margins, *(b.emit("div", p, total, hint="p") for p in sig), best]
         exps = [b.emit("exp", b.emit("max", b.emit("sub", m, top), Const(-guard)), hint="e")
                 for m in margins]
         total = b.emit("sum", *exps) if len(exps) > 1 else exps[0]
         probs = [b.emit("div", e, total, hint="p") for e in exps]
         return [*margins, *probs, best]
     m = margins[0]
-    if plan.link == "log":
+    if plan.link in ("log", "log1p"):
         g = b.emit("max", m, Const(-guard))
         g = b.emit("min", g, Const(plan.precision.log_link_max))
+        if plan.link == "log1p":
+            return [m, _lower_expm1(b, g, plan.precision.name == "float")]
         return [m, b.emit("exp", g, hint="y")]
+    if plan.link == "sqrt":
+        # the square of the margin, clamped so it stays finite
+        top = math.sqrt(plan.precision.max_value)
+        g = b.emit("min", b.emit("max", m, Const(-top)), Const(top))
+        return [m, b.emit("mul", g, g, hint="y")]
     return [m, m]
+
+
+# expm1(r) = r + r^2/2! + ... on |r| <= ln2/2 (+ rounding): 16 terms, the first one left
+# out below 3e-20 of the sum
+EXPM1_SERIES = tuple(1.0 / math.factorial(k) for k in range(1, 17))
+EXPM1_SPLIT = 1.5 * 2.0 ** 52  # (a + split) - split: a rounded to the nearest integer
+
+
+def _lower_expm1(b: _Builder, g, single: bool = False):
+    """exp(g) - 1 for a guarded g, in primitives only (no runtime exp, so the same bits on
+    every target): k = g / ln2 rounded, r = g - k ln2 (ln2 in two parts, k * LN2_HI
+    exact), e = expm1(r) by its series; the value is e when k = 0, else
+    (e + 1) * 2^k - 1, 2^k made of selected powers of two (every product exact).
+    Measured against mpmath (tests/test_heads.py)."""
+    if single:
+        raise ScorewrightError("the log1p link (expm1 of the margin) is not scored in single "
+                               "precision; use a double target")
+    k = b.emit("sub", b.emit("add", b.emit("mul", g, Const(float.fromhex(
+        portable_exp.CONSTANTS["INV_LN2"]))), Const(EXPM1_SPLIT)), Const(EXPM1_SPLIT))
+    r = b.emit("sub", g, b.emit("mul", k, Const(float.fromhex(
+        portable_exp.CONSTANTS["LN2_HI"]))))
+    r = b.emit("sub", r, b.emit("mul", k, Const(float.fromhex(
+        portable_exp.CONSTANTS["LN2_LO"]))))
+    s = Const(EXPM1_SERIES[-1])
+    for c in reversed(EXPM1_SERIES[:-1]):
+        s = b.emit("add", b.emit("mul", s, r), Const(c))
+    e = b.emit("mul", s, r)
+    scale, rest = Const(1.0), k
+    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
+        up = b.emit("ge", rest, Const(float(j)))
+        scale = b.emit("mul", scale, b.emit("select", up, Const(2.0 ** j), Const(1.0)))
+        rest = b.emit("sub", rest, b.emit("select", up, Const(float(j)), Const(0.0)))
+    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
+        down = b.emit("ge", Const(float(-j)), rest)
+        scale = b.emit("mul", scale, b.emit("select", down, Const(2.0 ** -j), Const(1.0)))
+        rest = b.emit("add", rest, b.emit("select", down, Const(float(j)), Const(0.0)))
+    whole = b.emit("sub", b.emit("mul", b.emit("add", e, Const(1.0)), scale), Const(1.0))
+    return b.emit("select", b.emit("eq", k, Const(0.0)), e, whole, hint="y")
 
 
 def _lower_logit(b: _Builder, plan: Plan, m) -> tuple[str, str]:

@@ -257,8 +257,10 @@ def _reference(model: FrozenModel, records):
         return out["probabilities"], scale, np.zeros(len(records), dtype=bool)
     m = out["margins"][:, 0]
     guarded = np.zeros(len(records), dtype=bool)
-    if plan.link == "log":
+    if plan.link in ("log", "log1p"):
         guarded = (m < -plan.precision.exp_guard) | (m > plan.precision.log_link_max)
+    elif plan.link == "sqrt":
+        guarded = np.abs(m) > math.sqrt(plan.precision.max_value)
     return out["value"].reshape(-1, 1), scale, guarded
 
 
@@ -308,6 +310,10 @@ def _differs(model: FrozenModel, source: np.ndarray, ref: np.ndarray,
     size = np.maximum(np.abs(source), np.abs(ref))
     if model.head.link == "identity":
         size = np.maximum(size, work[:, None])
+    elif model.head.link == "sqrt":  # v = m^2: an error e in m moves v by about 2|m|e
+        size = np.maximum(size, 2.0 * np.sqrt(size) * work[:, None])
+    elif model.head.link == "log1p":  # v = expm1(m): by about (v + 1) e
+        size = np.maximum(size * np.maximum(1.0, work)[:, None], (size + 1.0) * work[:, None])
     else:
         size = size * np.maximum(1.0, work)[:, None]
     return np.any(gap > TOLERANCE * size, axis=1)

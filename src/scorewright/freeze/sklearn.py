@@ -751,24 +751,63 @@ def _indicator_value(chain: Chain, flag: float) -> float:
 
 def _head(est, path) -> Head:
     from sklearn.compose import TransformedTargetRegressor
+    from sklearn.multiclass import OneVsRestClassifier
 
     if type(est) is TransformedTargetRegressor:
         return _transformed_target(est, path)
+    if type(est) is OneVsRestClassifier:
+        return _one_vs_rest_head(est, path)
     return _linear_head(est, path)
 
 
+# TransformedTargetRegressor's (func, inverse_func) -> the link of the frozen head: the
+# value is inverse_func of the regressor's prediction
+TARGET_LINKS = (("log", "exp", "log"), ("log1p", "expm1", "log1p"), ("sqrt", "square", "sqrt"))
+
+
 def _transformed_target(est, path) -> Head:
-    """TransformedTargetRegressor(func=np.log, inverse_func=np.exp) over a linear
-    regressor: exp of its prediction, the log link."""
-    if est.transformer is not None or est.func is not np.log or est.inverse_func is not np.exp:
+    """TransformedTargetRegressor over a linear regressor, with func and inverse_func
+    numpy's log and exp (the log link), log1p and expm1, or sqrt and square."""
+    link = next((link for f, inv, link in TARGET_LINKS
+                 if est.func is getattr(np, f) and est.inverse_func is getattr(np, inv)), None)
+    if est.transformer is not None or link is None:
         what = getattr(est.func, "__name__", repr(est.func))
         raise Unsupported(f"TransformedTargetRegressor at {path}: only func=np.log with "
-                          f"inverse_func=np.exp is frozen (the log link), not {what}")
+                          "inverse_func=np.exp, np.log1p with np.expm1, or np.sqrt with "
+                          f"np.square is frozen, not {what}")
     inner = _linear_head(est.regressor_, f"{path} > regressor")
     if inner.task != "regression" or inner.link != "identity":
         raise Unsupported(f"TransformedTargetRegressor at {path}: its regressor must be a "
                           "linear regression (identity link)")
-    return Head("regression", "log", None, inner.intercepts, inner.coefficients, None)
+    return Head("regression", link, None, inner.intercepts, inner.coefficients, None)
+
+
+def _one_vs_rest_head(est, path) -> Head:
+    """OneVsRestClassifier over binary logistic regressions: each class's sigmoid of its
+    own margin, divided by their sum (predict_proba); the class of the largest margin
+    (predict: lowest index on ties, as np.argmax)."""
+    from sklearn.linear_model import LogisticRegression, LogisticRegressionCV
+
+    if est.label_binarizer_.y_type_ not in ("binary", "multiclass"):
+        raise Unsupported(f"OneVsRestClassifier at {path} is multilabel; only single-label "
+                          "models are frozen")
+    rows = []
+    for k, inner in enumerate(est.estimators_):
+        where = f"{path} > estimator {k}"
+        if type(inner) not in (LogisticRegression, LogisticRegressionCV):
+            raise Unsupported(f"OneVsRestClassifier at {path}: estimator {k} is "
+                              f"{type(inner).__name__}; only LogisticRegression is frozen "
+                              "(a class seen in every or no row gives a constant one)")
+        head = _linear_head(inner, where)
+        if head.task != "binary" or head.classes != (0, 1):
+            raise Unsupported(f"{where}: not a binary 0/1 logistic regression")
+        rows.append(head)
+    classes = tuple(_class_label(c, path) for c in est.classes_)
+    if len(rows) == 1:
+        return Head("binary", "logit", classes, rows[0].intercepts, rows[0].coefficients, 0.0)
+    return Head("multiclass", "ovr_logit", classes,
+                tuple(h.intercepts[0] for h in rows),
+                tuple(h.coefficients[0] for h in rows), None)
 
 
 def _linear_head(est, path) -> Head:
