@@ -6,15 +6,16 @@ data sets scikit-learn ships (diabetes, iris, breast cancer)."""
 
 from __future__ import annotations
 
+import math
 import warnings
 
 import numpy as np
 import pytest
-from sklearn.datasets import load_breast_cancer, load_diabetes, load_iris
+from sklearn.datasets import load_breast_cancer, load_diabetes, load_iris, load_wine
 from sklearn.discriminant_analysis import LinearDiscriminantAnalysis
 from sklearn.linear_model import (ARDRegression, BayesianRidge, ElasticNetCV, HuberRegressor,
-                                  LassoCV, LogisticRegressionCV, QuantileRegressor, RidgeCV,
-                                  SGDRegressor)
+                                  LassoCV, LogisticRegression, LogisticRegressionCV,
+                                  QuantileRegressor, RidgeCV, SGDRegressor)
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
@@ -75,7 +76,118 @@ def test_transformed_target_log_exp_is_the_log_link():
     model, checked = freeze_checked(pipe, check_rows=x)
     assert model.head.link == "log" and checked.compared >= len(x)
     odd = make_pipeline(StandardScaler(), TransformedTargetRegressor(
-        Ridge(), func=np.sqrt, inverse_func=np.square)).fit(x, y)
+        Ridge(), func=np.log10, inverse_func=np.exp, check_inverse=False)).fit(x, y)
     from scorewright.errors import ScorewrightError
-    with pytest.raises(ScorewrightError, match="only func=np.log"):
+    with pytest.raises(ScorewrightError, match="only func=np.log") as err:
         freeze_checked(odd)
+    assert "\n" not in str(err.value) and "log10" in str(err.value)
+
+
+@pytest.mark.parametrize("func, inverse, link, shift", [
+    (np.log1p, np.expm1, "log1p", 0.0), (np.log1p, np.expm1, "log1p", -0.999),
+    (np.sqrt, np.square, "sqrt", 0.0)], ids=["log1p", "log1p-near-zero", "sqrt"])
+def test_transformed_target_log1p_and_sqrt(func, inverse, link, shift):
+    """TransformedTargetRegressor(func=np.log1p, inverse_func=np.expm1) predicts expm1 of
+    its regressor's prediction (the log1p link; near-zero targets put the margins near 0,
+    where expm1 must not cancel), np.sqrt with np.square its square (the sqrt link): held
+    to scikit-learn's predict to 1e-12 relative (the self-check), on the diabetes data
+    scikit-learn ships."""
+    from sklearn.compose import TransformedTargetRegressor
+    from sklearn.linear_model import Ridge
+
+    x, y = load_diabetes(return_X_y=True, as_frame=True)
+    target = y / 1000.0 + shift if shift else y
+    pipe = make_pipeline(StandardScaler(), TransformedTargetRegressor(
+        Ridge(), func=func, inverse_func=inverse, check_inverse=False)).fit(x, target)
+    model, checked = freeze_checked(pipe, check_rows=x)
+    assert model.head.link == link and checked.compared >= len(x)
+    assert model.to_document()["format_version"] == 3
+    plan = build_plan(model)
+    got = np.array([score_row(plan, r).value for r in x.head(50).to_dict("records")])
+    np.testing.assert_allclose(got, pipe.predict(x.head(50)), rtol=1e-12)
+
+
+def test_expm1_lowering_against_mpmath():
+    """The log1p link's expm1, written in primitives (no runtime exp): within 4 ULP of
+    mpmath's expm1 at 200 bits, over the guarded range and near zero."""
+    import random
+
+    import mpmath as mp
+
+    from scorewright.plan import DOUBLE, Plan
+    from scorewright.program import lower, run_row
+
+    def value(m):
+        plan = Plan(name="l", stem="l", sha256="", task="regression", link="log1p",
+                    classes=None, precision=DOUBLE, inputs=(), terms=(), intercepts=(m,),
+                    cut=None)
+        return run_row(lower(plan), {})["value"]
+
+    rng = random.Random(5)
+    xs = [rng.uniform(-1, 1) * 10 ** rng.uniform(-300, 2.85) for _ in range(1500)]
+    xs += [rng.uniform(-1.2, 1.2) for _ in range(1500)] + [0.3465, -0.3466, 709.0, -708.0]
+    with mp.workprec(200):
+        for m in xs:
+            if not -708.0 <= m <= 709.0:
+                continue
+            want = float(mp.expm1(mp.mpf(m)))
+            assert abs(value(m) - want) <= 4 * math.ulp(want), m
+    assert value(0.0) == 0.0 and value(1e-300) == 1e-300
+
+
+@pytest.mark.parametrize("data", [load_iris, load_wine], ids=["iris", "wine"])
+def test_one_vs_rest_logistic_is_normalised_sigmoids(data):
+    """OneVsRestClassifier(LogisticRegression) predicts each class's sigmoid divided by
+    their sum: frozen as the ovr_logit link and held to its predict_proba to 1e-12
+    (absolute) and its predict, on data sets scikit-learn ships; two classes are a binary
+    logistic head."""
+    from sklearn.multiclass import OneVsRestClassifier
+
+    x, y = data(return_X_y=True, as_frame=True)
+    pipe = make_pipeline(StandardScaler(), OneVsRestClassifier(
+        LogisticRegression(max_iter=2000))).fit(x, y)
+    model, checked = freeze_checked(pipe, check_rows=x)
+    assert model.head.link == "ovr_logit" and checked.compared >= len(x)
+    plan = build_plan(model)
+    scores = [score_row(plan, r) for r in x.to_dict("records")]
+    np.testing.assert_allclose([s.probabilities for s in scores], pipe.predict_proba(x),
+                               rtol=0, atol=1e-12)
+    assert [model.head.classes[s.class_index] for s in scores] == list(pipe.predict(x))
+    two = make_pipeline(StandardScaler(), OneVsRestClassifier(LogisticRegression())).fit(
+        x[y < 2], y[y < 2])
+    assert freeze_checked(two, check_rows=x[y < 2])[0].head.link == "logit"
+
+
+def test_new_links_verify_on_python(tmp_path):
+    """The ovr_logit, log1p and sqrt links on the Python target (every family under
+    --runslow: test_new_links_verify_on_every_family)."""
+    _verify_new_links(tmp_path, ["python"])
+
+
+@pytest.mark.slow
+def test_new_links_verify_on_every_family(tmp_path, postgres_dsn):
+    _verify_new_links(tmp_path, ["python", "c-double", "c-double-portable-exp", "java",
+                                 "onnx-double", "onnx-double-reference", "sql-sqlite",
+                                 "sql-duckdb", "sql-postgres", "sql-spark"],
+                      {"sql": {"dsn": postgres_dsn}})
+
+
+def _verify_new_links(tmp_path, targets, options=None):
+    from sklearn.compose import TransformedTargetRegressor
+    from sklearn.linear_model import Ridge
+    from sklearn.multiclass import OneVsRestClassifier
+
+    from scorewright.verify.harness import build_targets
+
+    x, y = load_wine(return_X_y=True, as_frame=True)
+    heads = [OneVsRestClassifier(LogisticRegression(max_iter=2000))]
+    xd, yd = load_diabetes(return_X_y=True, as_frame=True)
+    for i, head in enumerate(heads + [
+            TransformedTargetRegressor(Ridge(), func=np.log1p, inverse_func=np.expm1),
+            TransformedTargetRegressor(Ridge(), func=np.sqrt, inverse_func=np.square)]):
+        data = (x, y) if i == 0 else (xd, yd)
+        pipe = make_pipeline(StandardScaler(), head).fit(*data)
+        model, _ = freeze_checked(pipe, check_rows=data[0])
+        report = build_targets(model, tmp_path / str(i), data=None, n_random=200,
+                               targets=targets, options=options)
+        assert report.ok, [(r.profile.name, r.message) for r in report.results]
