@@ -84,8 +84,16 @@ def freeze_estimator(estimator, feature_names=None, name=None) -> FrozenModel:
 # ---------------------------------------------------------------- structure
 
 def _split(estimator):
+    from sklearn.calibration import CalibratedClassifierCV
     from sklearn.pipeline import Pipeline
 
+    inner = _calibrated_estimator(estimator) if type(estimator) is CalibratedClassifierCV \
+        else None
+    if isinstance(inner, Pipeline):  # calibrated pipeline: its transforms, then the head
+        steps = [(n, s) for n, s in inner.steps if s not in (None, "passthrough")]
+        transforms = [(f"the calibrated pipeline's step {n!r} (position {i})", s)
+                      for i, (n, s) in enumerate(steps[:-1])]
+        return estimator, transforms
     if isinstance(estimator, Pipeline):
         steps = [(n, s) for n, s in estimator.steps if s not in (None, "passthrough")]
         if not steps:
@@ -750,6 +758,7 @@ def _indicator_value(chain: Chain, flag: float) -> float:
 # ---------------------------------------------------------------- heads
 
 def _head(est, path) -> Head:
+    from sklearn.calibration import CalibratedClassifierCV
     from sklearn.compose import TransformedTargetRegressor
     from sklearn.multiclass import OneVsRestClassifier
 
@@ -757,7 +766,69 @@ def _head(est, path) -> Head:
         return _transformed_target(est, path)
     if type(est) is OneVsRestClassifier:
         return _one_vs_rest_head(est, path)
+    if type(est) is CalibratedClassifierCV:
+        return _calibrated_head(est, path)
     return _linear_head(est, path)
+
+
+def _calibrated_estimator(est):
+    """The one fitted estimator a CalibratedClassifierCV calibrates (None with several:
+    ensemble=True keeps one per fold)."""
+    fitted = getattr(est, "calibrated_classifiers_", None)
+    return fitted[0].estimator if fitted is not None and len(fitted) == 1 else None
+
+
+def _calibrated_head(est, path) -> Head:
+    """CalibratedClassifierCV(method='sigmoid', ensemble=False) over a linear classifier:
+    per class, expit(-(a f + b)) of its decision function f = w.x + c, which is the
+    sigmoid of the margin (-a w).x - (a c + b); binary: that sigmoid (the logit link),
+    multiclass: the sigmoids divided by their sum (the ovr_logit link)."""
+    from sklearn.pipeline import Pipeline
+
+    fitted = est.calibrated_classifiers_
+    if len(fitted) != 1:
+        raise Unsupported(f"CalibratedClassifierCV(ensemble=True) at {path} averages "
+                          f"{len(fitted)} folds' probabilities, which is not one margin per "
+                          "class through a link; refit it with ensemble=False")
+    cc = fitted[0]
+    if cc.method != "sigmoid":
+        raise Unsupported(f"CalibratedClassifierCV(method={cc.method!r}) at {path}: only "
+                          "method='sigmoid' is frozen")
+    inner = cc.estimator[-1] if isinstance(cc.estimator, Pipeline) else cc.estimator
+    where = f"{path} > estimator"
+    classes, intercepts, rows = _decision_function(inner, where)
+    if tuple(_class_label(c, path) for c in est.classes_) != classes:
+        raise Unsupported(f"CalibratedClassifierCV at {path}: its classes differ from its "
+                          "estimator's")
+    margins = []
+    for (c, w), cal in zip(zip(intercepts, rows), cc.calibrators):
+        a, b = float(cal.a_), float(cal.b_)
+        margins.append((-(a * c + b), tuple(-a * v for v in w)))
+    if len(classes) == 2:
+        return Head("binary", "logit", classes, (margins[0][0],), (margins[0][1],), 0.0)
+    return Head("multiclass", "ovr_logit", classes, tuple(m[0] for m in margins),
+                tuple(m[1] for m in margins), None)
+
+
+def _decision_function(est, path):
+    """A linear classifier's classes and its decision function's intercepts and
+    coefficient rows (one row for two classes)."""
+    from sklearn.discriminant_analysis import LinearDiscriminantAnalysis
+    from sklearn.linear_model import (LogisticRegression, LogisticRegressionCV, Perceptron,
+                                      RidgeClassifier, RidgeClassifierCV, SGDClassifier)
+    from sklearn.svm import LinearSVC
+
+    kinds = (LinearSVC, RidgeClassifier, RidgeClassifierCV, Perceptron, SGDClassifier,
+             LogisticRegression, LogisticRegressionCV, LinearDiscriminantAnalysis)
+    if type(est) not in kinds:
+        raise Unsupported(f"unsupported estimator {type(est).__name__} at {path}: a "
+                          "calibrated estimator must be a linear classifier ("
+                          f"{', '.join(k.__name__ for k in kinds)})")
+    coef = np.atleast_2d(np.asarray(est.coef_, dtype=np.float64))
+    intercept = np.atleast_1d(np.asarray(est.intercept_, dtype=np.float64))
+    classes = tuple(_class_label(c, path) for c in est.classes_)
+    return (classes, tuple(map(float, intercept)),
+            tuple(tuple(map(float, row)) for row in coef))
 
 
 # TransformedTargetRegressor's (func, inverse_func) -> the link of the frozen head: the
@@ -824,7 +895,8 @@ def _linear_head(est, path) -> Head:
                 LinearDiscriminantAnalysis):
         if kind is SGDClassifier and est.loss != "log_loss":
             raise Unsupported(f"SGDClassifier(loss={est.loss!r}) at {path}: only loss='log_loss' "
-                              "gives probabilities")
+                              "gives probabilities; wrap it in CalibratedClassifierCV("
+                              "method='sigmoid', ensemble=False), which is frozen")
         classes = tuple(_class_label(c, path) for c in est.classes_)
         coef = np.asarray(est.coef_, dtype=np.float64)
         intercept = np.atleast_1d(np.asarray(est.intercept_, dtype=np.float64))
@@ -855,6 +927,12 @@ def _linear_head(est, path) -> Head:
             link = "identity" if (est.link == "identity" or
                                   (est.link == "auto" and est.power <= 0)) else "log"
         return Head("regression", link, None, (intercept,), (tuple(map(float, coef)),), None)
+    if kind.__name__ in ("RidgeClassifier", "RidgeClassifierCV", "LinearSVC", "Perceptron",
+                         "PassiveAggressiveClassifier"):
+        raise Unsupported(f"{kind.__name__} at {path} gives a decision function but no "
+                          "probabilities, and every frozen classifier outputs probabilities; "
+                          "wrap it in CalibratedClassifierCV(method='sigmoid', "
+                          "ensemble=False), which is frozen")
     raise Unsupported(f"unsupported estimator {kind.__name__} at {path}")
 
 
