@@ -135,7 +135,8 @@ def test_expm1_lowering_against_mpmath():
     assert value(0.0) == 0.0 and value(1e-300) == 1e-300
 
 
-@pytest.mark.parametrize("data", [load_iris, load_wine], ids=["iris", "wine"])
+@pytest.mark.parametrize("data", [pytest.param(load_iris, marks=pytest.mark.slow), load_wine],
+                         ids=["iris", "wine"])
 def test_one_vs_rest_logistic_is_normalised_sigmoids(data):
     """OneVsRestClassifier(LogisticRegression) predicts each class's sigmoid divided by
     their sum: frozen as the ovr_logit link and held to its predict_proba to 1e-12
