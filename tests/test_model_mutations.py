@@ -103,6 +103,7 @@ def corpus():
     yield "empty file", "", "JSON"
     yield "a JSON array", "[]", "object"
     yield from _version_2_corpus()
+    yield from _version_3_corpus()
 
 
 def _version_2_corpus():
@@ -120,6 +121,38 @@ def _version_2_corpus():
         d = copy.deepcopy(good)
         _set(d, path, _wrong_type(value))
         yield f"format 2: wrong type at {path}", _sealed(d), None
+
+
+def _version_3_corpus():
+    """Every key removed and every value of the wrong type in a format-3 model (a periodic
+    spline after an imputer, its columns scaled): each refused."""
+    import numpy as np
+    import pandas as pd
+    from sklearn.impute import SimpleImputer
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import SplineTransformer, StandardScaler
+
+    import scorewright
+
+    rng = np.random.default_rng(7)
+    x = pd.DataFrame({"hour": rng.uniform(0, 24, 200)})
+    y = (np.sin(x.hour / 4) + rng.logistic(size=200) > 0).astype(int)
+    est = make_pipeline(SimpleImputer(), SplineTransformer(n_knots=3, degree=2,
+                                                           extrapolation="periodic"),
+                        StandardScaler(), LogisticRegression()).fit(x, y)
+    good = json.loads(scorewright.freeze(est, check_rows=x).to_json())
+    assert good["format_version"] == 3
+    for path, value in _paths(good):
+        if path == ("sha256",):
+            continue
+        if isinstance(path[-1], str):
+            d = copy.deepcopy(good)
+            _set(d, path, delete=True)
+            yield f"format 3: removed {path}", _sealed(d), None
+        d = copy.deepcopy(good)
+        _set(d, path, _wrong_type(value))
+        yield f"format 3: wrong type at {path}", _sealed(d), None
 
 
 CASES = list(corpus())

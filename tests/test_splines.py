@@ -214,7 +214,7 @@ def test_model_file_holds_splines_in_version_3():
     assert doc["format_version"] == 3
     step = doc["features"][0]["scaling"][0]
     assert step["op"] == "spline" and step["degree"] == 3 and step["extrapolation"] == "periodic"
-    assert doc["design"][0] == {"feature": "hour", "basis": 0}
+    assert doc["design"][0] == {"feature": "hour", "basis": 0, "scaling": []}
     again = parse_model(model.to_json())
     assert again.features == model.features and again.design == model.design
     for mutate, words in [

@@ -150,7 +150,8 @@ class DesignColumn:
     # target encoding, after any scaling): (value per level, value when unseen, value
     # when missing)
     encoded: tuple[tuple[float, ...], float, float] | None = None
-    # format version 3: the basis index of a spline feature's column (then `scaling`)
+    # format version 3: the basis index of a spline feature's column (then `scaling`,
+    # affine steps, () for none)
     basis: int | None = None
 
 
@@ -692,14 +693,12 @@ def _read_basis(value, path, name, spline) -> DesignColumn:
     r = _Reader
     if spline is None:
         raise ModelFileError(f"{path}.basis: feature {name!r} has no spline")
-    r.obj(value, path, ("feature", "basis"), optional=("scaling",))
+    r.obj(value, path, ("feature", "basis", "scaling"))
     j = value["basis"]
     if type(j) is not int or not 0 <= j < spline.spline_columns():
         raise ModelFileError(f"{path}.basis: expected a basis index of {name!r}, an integer "
                              f"from 0 to {spline.spline_columns() - 1}")
-    steps = None
-    if "scaling" in value:
-        steps = _read_steps(value["scaling"], f"{path}.scaling", None, path, affine_only=True)
+    steps = _read_steps(value["scaling"], f"{path}.scaling", None, path, affine_only=True)
     return DesignColumn(name, basis=j, scaling=steps)
 
 

@@ -670,7 +670,7 @@ def _features_and_design(chains, raw_names):
                 raise Unsupported(f"feature {name!r} reaches the estimator twice")
             splined[chain.feature] = chain
             design.append(DesignColumn(name, basis=chain.basis,
-                                       scaling=tuple(chain.steps[1:]) or None))
+                                       scaling=tuple(chain.steps[1:])))
             continue
         if chain.constant:
             constants[position] = _indicator_value(chain, 1.0)
