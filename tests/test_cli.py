@@ -58,15 +58,18 @@ def test_freeze_from_pickle_warns_and_writes(tmp_path):
 def test_freeze_refuses_unsupported_and_garbage(tmp_path):
     from sklearn.linear_model import LogisticRegression
     from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import SplineTransformer
+    from sklearn.preprocessing import Normalizer
+    from sklearn.svm import LinearSVC
 
     tm = models.build("spector")
-    est = make_pipeline(SplineTransformer(), LogisticRegression()).fit(tm.frame, tm.target)
-    pkl = tmp_path / "spline.pkl"
-    pkl.write_bytes(pickle.dumps(est))
-    out = tmp_path / "spline.json"
-    assert "SplineTransformer" in one_line_error(run("freeze", str(pkl), "-o", str(out)))
-    assert not out.exists()
+    for est, words in [(make_pipeline(Normalizer(), LogisticRegression()), "Normalizer"),
+                       (LinearSVC(), "CalibratedClassifierCV(method='sigmoid'")]:
+        est.fit(tm.frame, tm.target)
+        pkl = tmp_path / "refused.pkl"
+        pkl.write_bytes(pickle.dumps(est))
+        out = tmp_path / "refused.json"
+        assert words in one_line_error(run("freeze", str(pkl), "-o", str(out)))
+        assert not out.exists()
     junk = tmp_path / "junk.pkl"
     junk.write_bytes(b"not a pickle at all")
     assert "pickle" in one_line_error(run("freeze", str(junk), "-o", str(out)))

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import math
 
-from .model import TRANSFORM_OPS, FrozenModel, NumericFeature, outside_text
+from .model import TRANSFORM_DOMAIN, FrozenModel, NumericFeature, outside_text
 from .plan import build_plan
 
 
@@ -58,7 +58,7 @@ def describe_model(model: FrozenModel) -> str:
                              f"knots {list(s.knots)!r}" if s.knots is not None else
                              s.op if s.value is None else f"{s.op} {s.value!r}"
                              for s in feat.scaling) or "none"
-            if feat.scaling and feat.scaling[0].op in TRANSFORM_OPS:
+            if feat.scaling and feat.scaling[0].op in TRANSFORM_DOMAIN:
                 op = feat.scaling[0].op
                 missing += f" (so is a value {outside_text(op)}, outside {op}'s domain)"
             elif feat.scaling and feat.scaling[0].extrapolation == "error":

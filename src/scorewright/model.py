@@ -34,8 +34,14 @@ SCALING_OPS = ("subtract", "divide", "multiply", "add")
 # value outside the transform's domain (log: <= 0; log1p: <= -1; sqrt: < 0) is treated as
 # missing. Format version 2.
 TRANSFORM_OPS = ("log", "log1p", "sqrt")
+# Power transforms (format version 3): a numeric feature's first step with a value, the
+# fitted lambda, as scikit-learn's PowerTransformer applies it (scipy's yeojohnson; Box-Cox:
+# log(x) when |lambda| < 1e-19, else expm1(lambda log x) / lambda). A raw value Box-Cox
+# cannot take (<= 0, where scikit-learn raises) is treated as missing.
+POWER_OPS = ("yeo_johnson", "box_cox")
 # transform -> (edge, whether the edge itself is outside): log x <= 0, log1p x <= -1, sqrt x < 0
-TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, False)}
+TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, False),
+                    "box_cox": (0.0, True)}
 # multiclass "ovr_logit": one-vs-rest logistic, each class's sigmoid divided by their sum;
 # regression "log1p": the value is expm1(margin), "sqrt": the value is margin * margin
 TASK_LINKS = {"binary": ("logit", "probit", "cloglog"), "multiclass": ("softmax", "ovr_logit"),
@@ -213,8 +219,8 @@ def needs_version(model: FrozenModel) -> tuple[int, str]:
     """The lowest format version that can hold the model, and what needs it."""
     for feat in model.features:
         for step in getattr(feat, "scaling", ()):
-            if step.op == SPLINE:
-                return 3, f"the spline of feature {feat.name!r}"
+            if step.op == SPLINE or step.op in POWER_OPS:
+                return 3, f"the {step.op} step of feature {feat.name!r}"
     if model.head.link in LINK_VERSION:
         return LINK_VERSION[model.head.link], f"the {model.head.link} link"
     for feat in model.features:
@@ -500,9 +506,19 @@ def _read_steps(array, where: str, fill, path: str, affine_only: bool = False) -
             steps.append(ScalingStep(BINS, edges=edges))
             continue
         r.obj(step, spath, ("op", "value"))
+        if not affine_only and step["op"] in POWER_OPS:
+            if j != 0:
+                raise ModelFileError(f"{spath}.op: a {step['op']} transform must be the "
+                                     "first step")
+            if fill is not None and step["op"] in TRANSFORM_DOMAIN and not in_domain(
+                    step["op"], fill):
+                raise ModelFileError(f"{path}.missing.value: {fill!r} is outside the "
+                                     f"domain of {step['op']}")
+            steps.append(ScalingStep(step["op"], r.number(step["value"], f"{spath}.value")))
+            continue
         if step["op"] not in SCALING_OPS:
-            allowed = SCALING_OPS if affine_only else SCALING_OPS + TRANSFORM_OPS + (BINS,
-                                                                                      SPLINE)
+            allowed = SCALING_OPS if affine_only else (SCALING_OPS + TRANSFORM_OPS + POWER_OPS
+                                                       + (BINS, SPLINE))
             raise ModelFileError(f"{spath}.op: expected one of {', '.join(allowed)}, "
                                  f"got {step['op']!r}")
         number = r.number(step["value"], f"{spath}.value")

@@ -49,8 +49,8 @@ import re
 from dataclasses import dataclass
 
 from .errors import ScorewrightError
-from .model import (BINS, SPLINE, TRANSFORM_OPS, CategoricalFeature, FrozenModel,
-                    NumericFeature, ScalingStep, bin_count)
+from .model import (BINS, POWER_OPS, SPLINE, TRANSFORM_OPS, CategoricalFeature,
+                    FrozenModel, NumericFeature, ScalingStep, bin_count)
 
 
 @dataclass(frozen=True)
@@ -349,6 +349,9 @@ def _backward(allowed: float, steps, prec: Precision) -> float:
         if step.op == SPLINE:
             allowed = min(_spline_backward(allowed, step), prec.max_value)
             continue
+        if step.op in POWER_OPS:
+            allowed = min(_power_backward(allowed, step), prec.max_value)
+            continue
         if step.op == BINS:  # a bin number, 0..len(edges)
             allowed = prec.max_value if allowed >= len(step.edges) else 0.0
             continue
@@ -403,6 +406,25 @@ def _spline_backward(allowed: float, step) -> float:
     if step.extrapolation == "continue":
         return gap / 2.0 * allowed ** (1.0 / k) - reach
     return math.inf
+
+
+def _power_backward(allowed: float, step) -> float:
+    """The largest |x| whose power transform stays within `allowed`: each side grows like
+    (|x| + 1)^e / e (Yeo-Johnson: e = lambda above zero, 2 - lambda below; Box-Cox: lambda),
+    and its expm1 argument e log1p(|x|) stays under 700; an exponent e <= 0 keeps the side
+    within 1 / |e| (or log1p's own bound, e = 0)."""
+    lam = step.value
+    exps = (lam, 2.0 - lam) if step.op == "yeo_johnson" else (lam,)
+    bound = math.inf
+    for e in exps:
+        if e > 0:
+            bound = min(bound, math.exp(700.0 / e) - 1.0,
+                        math.exp(math.log(allowed * e) / e) - 1.0 if allowed * e > 1 else 0.0)
+        elif e < 0 and not allowed * -e >= 1.0:
+            return 0.0
+        elif e == 0 and allowed < 745.0:
+            return 0.0
+    return bound
 
 
 def _numeric_bound(feat, term, budgets, prec: Precision, index: int = -1,

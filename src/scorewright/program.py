@@ -44,7 +44,7 @@ import numpy as np
 
 from . import normal_tail, portable_exp
 from .errors import ScorewrightError
-from .model import BINS, SPLINE, TRANSFORM_DOMAIN
+from .model import BINS, POWER_OPS, SPLINE, TRANSFORM_DOMAIN
 from .plan import CategoricalInput, NumericInput, Plan
 from .values import MISSING_CODE, UNSEEN_CODE, category_code, numeric_value
 
@@ -256,6 +256,8 @@ def _apply_steps(b: _Builder, v, steps, single: bool = False):
             v = _select_by_bin(b, v, step.edges, [float(i) for i in range(len(step.edges) + 1)])
         elif step.op in _TRANSFORM:
             v = _TRANSFORM[step.op](b, v, single)
+        elif step.op in POWER_OPS:
+            v = _lower_power(b, v, step, single)
         else:
             v = b.emit(_STEP_OP[step.op], v, Const(step.value), hint="v")
     return v
@@ -526,6 +528,48 @@ def _lower_sqrt(b: _Builder, x, single: bool = False):
 
 
 _TRANSFORM = {"log": _lower_log, "log1p": _lower_log1p, "sqrt": _lower_sqrt}
+
+EPS = 2.0 ** -52  # numpy's finfo(float64).eps: scipy's yeojohnson takes log1p below it
+# Box-Cox with a negative lambda: the guard's largest |value| (reached at a positive x
+# near 0, which scores as the x that gives it)
+BOX_COX_CAP = 1e15
+
+
+def _guarded_expm1(b: _Builder, g, single: bool):
+    # expm1 of anything below -708 is -1.0 in double, as it is at -708
+    return _lower_expm1(b, b.emit("min", b.emit("max", g, Const(-708.0)), Const(700.0)),
+                        single)
+
+
+def _lower_power(b: _Builder, x, step, single: bool = False):
+    """scikit-learn's PowerTransformer with its fitted lambda, written as scipy computes
+    it (the log, log1p and expm1 the program's own, so every target gets the same bits).
+    Yeo-Johnson: x >= 0: expm1(lambda log1p(x)) / lambda (log1p(x) for |lambda| < eps);
+    x < 0: -expm1((2 - lambda) log1p(-x)) / (2 - lambda) (-log1p(-x) for
+    |lambda - 2| <= eps). Box-Cox (x > 0, the domain rule): log(x) for |lambda| < 1e-19,
+    else expm1(lambda log x) / lambda. The input guard keeps every expm1 argument within
+    +-700 (`plan._power_backward`)."""
+    lam = step.value
+    if step.op == "box_cox":
+        if abs(lam) < 1e-19:
+            return _lower_log(b, x, single)
+        if lam < 0:  # x^lam grows without bound as x nears 0: the guard holds it at the cap
+            x = b.emit("max", x, Const((BOX_COX_CAP * -lam) ** (1.0 / lam)), hint="v")
+        g = b.emit("mul", Const(lam), _lower_log(b, x, single))
+        return b.emit("div", _guarded_expm1(b, g, single), Const(lam), hint="v")
+    up = b.emit("max", x, Const(0.0))          # x's positive side (0.0 below zero)
+    down = b.emit("max", b.emit("neg", x), Const(0.0))
+    if abs(lam) < EPS:
+        pos = _lower_log1p(b, up, single)
+    else:
+        g = b.emit("mul", Const(lam), _lower_log1p(b, up, single))
+        pos = b.emit("div", _guarded_expm1(b, g, single), Const(lam))
+    if abs(lam - 2.0) > EPS:
+        g = b.emit("mul", Const(2.0 - lam), _lower_log1p(b, down, single))
+        neg = b.emit("div", b.emit("neg", _guarded_expm1(b, g, single)), Const(2.0 - lam))
+    else:
+        neg = b.emit("neg", _lower_log1p(b, down, single))
+    return b.emit("select", b.emit("ge", x, Const(0.0)), pos, neg, hint="v")
 
 
 def _lower_code(b: _Builder, inp: CategoricalInput) -> str:

@@ -28,7 +28,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import (TRANSFORM_DOMAIN, TRANSFORM_OPS, CategoricalFeature, FrozenModel,
+from ..model import (TRANSFORM_DOMAIN, CategoricalFeature, FrozenModel,
                      NumericFeature)
 
 TOLERANCE = 1e-12
@@ -142,7 +142,7 @@ def _base_row(model: FrozenModel, frame) -> dict:
     row = {}
     for feat in model.features:
         if isinstance(feat, NumericFeature):
-            plain = 1.0 if feat.scaling and feat.scaling[0].op in TRANSFORM_OPS else 0.0
+            plain = 1.0 if feat.scaling and feat.scaling[0].op in TRANSFORM_DOMAIN else 0.0
             row[feat.name] = feat.fill if feat.fill is not None else plain
             if feat.boolean:
                 row[feat.name] = False
@@ -162,7 +162,7 @@ def _extremes(feat: NumericFeature) -> list[float]:
     if edges is not None:  # every bin edge or spline knot, either side
         out += [x for e in edges
                 for x in (e, math.nextafter(e, math.inf), math.nextafter(e, -math.inf))]
-    elif feat.scaling and feat.scaling[0].op in TRANSFORM_OPS:
+    elif feat.scaling and feat.scaling[0].op in TRANSFORM_DOMAIN:
         # a transform's domain edge and values just inside it
         edge = TRANSFORM_DOMAIN[feat.scaling[0].op][0]
         out += [edge, math.nextafter(edge, math.inf), edge + 1e-300, 5e-324]
