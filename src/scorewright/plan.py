@@ -418,8 +418,9 @@ def _power_backward(allowed: float, step) -> float:
     bound = math.inf
     for e in exps:
         if e > 0:
-            bound = min(bound, math.exp(700.0 / e) - 1.0,
-                        math.exp(math.log(allowed * e) / e) - 1.0 if allowed * e > 1 else 0.0)
+            bound = min(bound, math.exp(min(700.0 / e, 700.0)) - 1.0,
+                        math.exp(min(math.log(allowed * e) / e, 700.0)) - 1.0
+                        if allowed * e > 1 else 0.0)
         elif e < 0 and not allowed * -e >= 1.0:
             return 0.0
         elif e == 0 and allowed < 745.0:

@@ -18,7 +18,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import (BINS, SPLINE, SPLINE_DEGREES, TRANSFORM_OPS, CategoricalFeature,
+from ..model import (BINS, POWER_OPS, SPLINE, SPLINE_DEGREES, TRANSFORM_DOMAIN,
+                     TRANSFORM_OPS, CategoricalFeature,
                      DesignColumn, FrozenModel, Head, NumericFeature, ScalingStep, in_domain,
                      outside_text)
 from .provenance import provenance
@@ -67,9 +68,9 @@ def freeze_estimator(estimator, feature_names=None, name=None) -> FrozenModel:
                           for b, row in zip(head.intercepts, head.coefficients)),
                     tuple(tuple(row[j] for j in keep) for row in head.coefficients), head.cut)
     notes = [f"scikit-learn cannot score {f.name}'s values {outside_text(f.scaling[0].op)} "
-             f"(np.{f.scaling[0].op} has no finite value there); the frozen model treats "
+             f"({f.scaling[0].op} has no finite value there); the frozen model treats "
              "them as missing" for f in features
-             if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
+             if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_DOMAIN]
     notes += _spline_notes(features)
     model = FrozenModel(
         name=name or _default_name(estimator),
@@ -150,8 +151,8 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
     from sklearn.pipeline import Pipeline
     from sklearn.preprocessing import (FunctionTransformer, KBinsDiscretizer, MaxAbsScaler,
                                        MinMaxScaler, OneHotEncoder, OrdinalEncoder,
-                                       PolynomialFeatures, RobustScaler, SplineTransformer,
-                                       StandardScaler, TargetEncoder)
+                                       PolynomialFeatures, PowerTransformer, RobustScaler,
+                                       SplineTransformer, StandardScaler, TargetEncoder)
 
     if step in (None, "passthrough"):
         return chains
@@ -172,6 +173,8 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
         return _polynomial(step, chains, path)
     if kind is SplineTransformer:
         return _splines(step, chains, path)
+    if kind is PowerTransformer:
+        return _power(step, chains, path)
     if kind is OrdinalEncoder:
         return _ordinal(step, chains, path)
     if kind is TargetEncoder:
@@ -375,6 +378,31 @@ def _splines(st, chains, path):
         for j in range(n_cols - (0 if st.include_bias else 1)):
             out.append(Chain(chain.feature, fill=chain.fill, steps=[step], basis=j))
     return out
+
+
+def _power(pt, chains, path):
+    """PowerTransformer: its fitted lambda per column (Yeo-Johnson or Box-Cox), then, with
+    standardize=True, its StandardScaler's subtract and divide."""
+    op = {"yeo-johnson": "yeo_johnson", "box-cox": "box_cox"}.get(pt.method)
+    if op is None:
+        raise Unsupported(f"PowerTransformer(method={pt.method!r}) at {path}: not frozen")
+    scaler = getattr(pt, "_scaler", None) if pt.standardize else None
+    for i, chain in enumerate(chains):
+        _require_raw(chain, path, "PowerTransformer")
+        if chain.steps or chain.clip is not None or isinstance(chain.fill, str):
+            raise Unsupported(f"PowerTransformer at {path} comes after scaling; put it first "
+                              "(after any SimpleImputer)")
+        if chain.fill is not None and op in TRANSFORM_DOMAIN and not in_domain(
+                op, float(chain.fill)):
+            raise Unsupported(f"PowerTransformer(method='box-cox') at {path}: the imputed "
+                              f"value {chain.fill!r} is not positive")
+        chain.steps.append(ScalingStep(op, float(pt.lambdas_[i])))
+        if scaler is not None:
+            for name, values in (("subtract", scaler.mean_), ("divide", scaler.scale_)):
+                if values is not None:
+                    chain.steps.append(ScalingStep(name, float(np.asarray(
+                        values, dtype=np.float64)[i])))
+    return chains
 
 
 def _spline_notes(features) -> list[str]:
