@@ -530,8 +530,8 @@ def _lower_sqrt(b: _Builder, x, single: bool = False):
 _TRANSFORM = {"log": _lower_log, "log1p": _lower_log1p, "sqrt": _lower_sqrt}
 
 EPS = 2.0 ** -52  # numpy's finfo(float64).eps: scipy's yeojohnson takes log1p below it
-# Box-Cox with a negative lambda: the guard's largest |value| (reached at a positive x
-# near 0, which scores as the x that gives it)
+# Box-Cox with a negative lambda: the guard's largest |value| (about; reached at a positive
+# x near 0, and a smaller x scores as that x)
 BOX_COX_CAP = 1e15
 
 
@@ -554,7 +554,9 @@ def _lower_power(b: _Builder, x, step, single: bool = False):
         if abs(lam) < 1e-19:
             return _lower_log(b, x, single)
         if lam < 0:  # x^lam grows without bound as x nears 0: the guard holds it at the cap
-            x = b.emit("max", x, Const((BOX_COX_CAP * -lam) ** (1.0 / lam)), hint="v")
+            # the x where expm1(lam log x) / lam reaches -BOX_COX_CAP... 1 / |lam| + cap
+            x = b.emit("max", x, Const(math.exp(math.log1p(BOX_COX_CAP * -lam) / lam)),
+                       hint="v")
         g = b.emit("mul", Const(lam), _lower_log(b, x, single))
         return b.emit("div", _guarded_expm1(b, g, single), Const(lam), hint="v")
     up = b.emit("max", x, Const(0.0))          # x's positive side (0.0 below zero)
