@@ -554,7 +554,7 @@ def _lower_power(b: _Builder, x, step, single: bool = False):
         if abs(lam) < 1e-19:
             return _lower_log(b, x, single)
         if lam < 0:  # x^lam grows without bound as x nears 0: the guard holds it at the cap
-            # the x where expm1(lam log x) / lam reaches -BOX_COX_CAP... 1 / |lam| + cap
+            # below this x, expm1(lam log x) / lam would pass BOX_COX_CAP
             x = b.emit("max", x, Const(math.exp(math.log1p(BOX_COX_CAP * -lam) / lam)),
                        hint="v")
         g = b.emit("mul", Const(lam), _lower_log(b, x, single))
