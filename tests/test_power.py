@@ -71,7 +71,7 @@ def test_power_transforms_freeze_and_agree_with_scikit_learn(method, standardize
 def test_yeo_johnson_on_both_sides_of_zero():
     """Negative values take the 2 - lambda branch (scipy's yeojohnson): held to
     PowerTransformer.transform on both sides of zero and at zero itself."""
-    x, y = _frame()
+    x, _ = _frame()
     pt = PowerTransformer(standardize=False).fit(x[["drift"]])
     model = scorewright.freeze(make_pipeline(pt, Ridge()).fit(x[["drift"]], x.drift * 2),
                                check_rows=x[["drift"]])
@@ -86,7 +86,7 @@ def test_box_cox_rules_outside_its_domain():
     """scikit-learn refuses a Box-Cox input <= 0; the frozen model treats it as missing
     (the imputer's fill). With a negative lambda, x^lambda grows without bound near 0: a
     positive x below the guard's point scores as that point (a stated rule)."""
-    x, y = _frame()
+    x, _ = _frame()
     pipe = make_pipeline(SimpleImputer(strategy="median"), PowerTransformer(method="box-cox"),
                          Ridge()).fit(x[["arrears"]], np.log(x.arrears))
     model = scorewright.freeze(pipe, check_rows=x[["arrears"]])

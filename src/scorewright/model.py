@@ -12,6 +12,7 @@ survive a write/read cycle bit for bit.
 from __future__ import annotations
 
 import hashlib
+import itertools
 import json
 import math
 from dataclasses import dataclass, field
@@ -543,7 +544,7 @@ def _read_spline(step, spath, j, n_steps, fill, path) -> ScalingStep:
                              f"{', '.join(SPLINE_EXTRAPOLATIONS)}, got {rule!r}")
     knots = tuple(r.number(e, f"{spath}.knots[{i}]")
                   for i, e in enumerate(r.array(step["knots"], f"{spath}.knots")))
-    if any(not a < b for a, b in zip(knots, knots[1:])):
+    if any(not a < b for a, b in itertools.pairwise(knots)):
         raise ModelFileError(f"{spath}.knots: expected increasing numbers")
     spline = ScalingStep(SPLINE, knots=knots, degree=degree, extrapolation=rule)
     if len(knots) < 2 * degree + 2 or spline.spline_columns() < 1 or (

@@ -44,6 +44,7 @@ carry), so such a target is compared with a reference using the same exp.
 
 from __future__ import annotations
 
+import itertools
 import math
 import re
 from dataclasses import dataclass
@@ -396,7 +397,7 @@ def _spline_backward(allowed: float, step) -> float:
         return 0.0
     t, k = step.knots, step.degree
     reach = max(abs(v) for v in t)
-    gap = min(b - a for a, b in zip(t, t[1:]))
+    gap = min(b - a for a, b in itertools.pairwise(t))
     if step.extrapolation == "periodic":
         lo, hi = step.spline_range()
         return (hi - lo) * 2.0 ** PERIODS
@@ -421,9 +422,7 @@ def _power_backward(allowed: float, step) -> float:
             bound = min(bound, math.exp(min(700.0 / e, 700.0)) - 1.0,
                         math.exp(min(math.log(allowed * e) / e, 700.0)) - 1.0
                         if allowed * e > 1 else 0.0)
-        elif e < 0 and not allowed * -e >= 1.0:
-            return 0.0
-        elif e == 0 and allowed < 745.0:
+        elif (e < 0 and not allowed * -e >= 1.0) or (e == 0 and allowed < 745.0):
             return 0.0
     return bound
 

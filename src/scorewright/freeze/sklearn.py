@@ -12,16 +12,16 @@ and, once one-hot encoded, the levels of each indicator column.
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import (BINS, POWER_OPS, SPLINE, SPLINE_DEGREES, TRANSFORM_DOMAIN,
-                     TRANSFORM_OPS, CategoricalFeature,
-                     DesignColumn, FrozenModel, Head, NumericFeature, ScalingStep, in_domain,
-                     outside_text)
+from ..model import (BINS, SPLINE, SPLINE_DEGREES, TRANSFORM_DOMAIN, TRANSFORM_OPS,
+                     CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
+                     ScalingStep, in_domain, outside_text)
 from .provenance import provenance
 
 
@@ -361,7 +361,7 @@ def _splines(st, chains, path):
                               "(after any SimpleImputer)")
         spl = st.bsplines_[i]
         knots = tuple(float(v) for v in np.asarray(spl.t, dtype=np.float64))
-        if any(not a < b for a, b in zip(knots, knots[1:])):
+        if any(not a < b for a, b in itertools.pairwise(knots)):
             raise Unsupported(f"SplineTransformer at {path}: feature column {i} has repeated "
                               "knots (too few distinct values); not frozen")
         step = ScalingStep(SPLINE, knots=knots, degree=int(spl.k),
