@@ -17,7 +17,11 @@ is read from its factors and their codings, never from the column names.
 - `np.log(x)`, `np.log1p(x)` and `np.sqrt(x)` of a data column are that feature with
   the transform (a value outside its domain, where statsmodels predicts NaN, is
   treated as missing).
-- Interactions, splines and other transforms are refused in one line naming the term.
+- `I(x ** 2)` and `I(x ** 3)` are products of the column with itself; an interaction
+  (`a:b`, `a*b`) of any factors is, per combination of its categorical factors' levels,
+  one product column, as patsy builds it (see `_from_formula`). A variable may appear in
+  several terms with the same transform everywhere.
+- Splines and other transforms are refused in one line naming the term.
 
 statsmodels cannot score a row with a missing value (the prediction is NaN) or an
 unseen level (patsy raises). The frozen model states its rule instead: a missing
@@ -29,6 +33,7 @@ level's). `scorewright show` and the freeze notes say so.
 from __future__ import annotations
 
 import ast
+import itertools
 import math
 
 import numpy as np
@@ -227,6 +232,13 @@ def _from_arrays(model, names, params, feature_names):
 # ---------------------------------------------------------------- formulas (patsy)
 
 def _from_formula(spec, names, params):
+    """Every term of the formula, column by column as patsy builds it: a design column is
+    the product, over the term's factors, of a categorical factor's contrast entry for
+    the row's level or a numerical factor's value (patsy's build.py, _build_subterm).
+    A column's coefficient is spread over the levels it depends on: per combination of
+    levels, the contribution is the sum over the term's columns of the contrast entries'
+    product times the coefficient; each becomes one design column (the product of the
+    numerical factors and the indicators of those levels)."""
     if list(spec.column_names) != list(names):
         raise Unsupported("the formula's design columns are not the model's exog columns")
     features: dict[str, object] = {}
@@ -236,48 +248,124 @@ def _from_formula(spec, names, params):
         if not term.factors:
             intercept = float(params[sl][0])
             continue
-        if len(term.factors) > 1 or len(subterms) != 1:
-            raise Unsupported(f"term {term.name()!r} is an interaction: not freezable yet "
-                              "(needs product terms)")
-        (factor,) = term.factors
-        info = spec.factor_infos[factor]
-        beta = [float(b) for b in params[sl]]
-        if info.type == "numerical":
-            feat = _numeric_factor(factor, info)
-            _add_feature(features, feat, term)
-            design.append(DesignColumn(feat.name))
-            coefs.append(beta[0])
-        else:
-            feat = _categorical_factor(factor, info)
-            _add_feature(features, feat, term)
-            matrix = subterms[0].contrast_matrices[factor].matrix
-            for level, row in zip(feat.levels, np.asarray(matrix, dtype=np.float64)):
-                contribution = math.fsum(float(r) * b for r, b in zip(row, beta))
-                if contribution != 0.0:
-                    design.append(DesignColumn(feat.name, (level,)))
-                    coefs.append(contribution)
+        beta = iter(float(b) for b in params[sl])
+        per_levels: dict[tuple, float] = {}   # (level per categorical factor) -> sum
+        numeric: list[tuple] = []             # the numerical factors' (name, steps, power)
+        categorical: list[str] = []
+        cat_factors: list = []
+        for factor in term.factors:
+            info = spec.factor_infos[factor]
+            if info.type == "numerical":
+                if info.num_columns != 1:
+                    raise Unsupported(f"term {term.name()!r}: the factor {factor.name()!r} "
+                                      f"makes {info.num_columns} columns (a spline or a "
+                                      "matrix); not freezable yet")
+                feat, power = _numeric_factor(factor, info)
+                _add_feature(features, feat, term)
+                numeric.append((feat.name, feat.scaling, power))
+            else:
+                feat = _categorical_factor(factor, info)
+                _add_feature(features, feat, term)
+                categorical.append(feat.name)
+                cat_factors.append(factor)
+        for sub in subterms:
+            combos = _subterm_columns(sub, spec)
+            for combo in combos:
+                b = next(beta)
+                # per categorical factor of the term, the levels with a non-zero entry in
+                # this column; a factor the subterm leaves out is 1 at every level (a
+                # missing or unseen level still adds nothing: the frozen model's rule)
+                column = dict(combo)
+                entries = []
+                for name, f in zip(categorical, cat_factors):
+                    levels = features[name].levels
+                    if f in column:
+                        matrix = np.asarray(sub.contrast_matrices[f].matrix, dtype=np.float64)
+                        entries.append([(level, float(v)) for level, v
+                                        in zip(levels, matrix[:, column[f]]) if v != 0.0])
+                    else:
+                        entries.append([(level, 1.0) for level in levels])
+                for pick in _product(entries):
+                    key = tuple(level for level, _ in pick)
+                    weight = b
+                    for _, v in pick:
+                        weight *= v
+                    per_levels.setdefault(key, []).append(weight)
+        for key, parts in per_levels.items():
+            contribution = math.fsum(parts)
+            if contribution == 0.0:
+                continue
+            if not numeric and len(key) == 1:
+                design.append(DesignColumn(categorical[0], (key[0],)))
+            elif len(numeric) == 1 and not key and numeric[0][2] == 1:
+                design.append(DesignColumn(numeric[0][0]))
+            else:
+                factors = []
+                for name, steps, power in numeric:
+                    factors += [DesignColumn(name, scaling=tuple(steps))] * power
+                factors += [DesignColumn(name, (level,)) for name, level
+                            in zip(categorical, key)]
+                design.append(DesignColumn(factors[0].feature, product=tuple(factors)))
+            coefs.append(contribution)
+        if next(beta, None) is not None:
+            raise Unsupported(f"term {term.name()!r}: its columns are not the ones patsy "
+                              "builds as read here")
     inputs = list(features)
     return list(features.values()), design, coefs, intercept, inputs
 
 
+def _subterm_columns(sub, spec) -> list[tuple]:
+    """Per design column of the subterm (in patsy's order: the left-most factor varies
+    fastest), the (factor, contrast column) of each categorical factor."""
+    sizes, cats = [], []
+    for factor in sub.factors:
+        if factor in sub.contrast_matrices:
+            sizes.append(sub.contrast_matrices[factor].matrix.shape[1])
+            cats.append(factor)
+        else:
+            sizes.append(spec.factor_infos[factor].num_columns)
+            cats.append(None)
+    out = []
+    for reversed_combo in itertools.product(*[range(n) for n in reversed(sizes)]):
+        combo = reversed_combo[::-1]
+        out.append(tuple((f, c) for f, c in zip(cats, combo) if f is not None))
+    return out
+
+
+def _product(lists):
+    return itertools.product(*lists) if lists else [()]
+
+
 def _add_feature(features: dict, feat, term) -> None:
-    if feat.name in features:
-        raise Unsupported(f"term {term.name()!r}: the variable {feat.name!r} appears in "
-                          "more than one term; not freezable yet")
+    """A variable in several terms is one feature: the same transform and levels
+    everywhere it appears."""
+    have = features.get(feat.name)
+    if have is not None and have != feat:
+        raise Unsupported(f"term {term.name()!r}: the variable {feat.name!r} appears with "
+                          "different transforms or levels in different terms; not "
+                          "freezable yet")
     features[feat.name] = feat
 
 
-def _numeric_factor(factor, info) -> NumericFeature:
+def _numeric_factor(factor, info) -> tuple[NumericFeature, int]:
+    """The feature of a numerical factor, and the power it is raised to (I(x ** 2))."""
     code = info.state.get("eval_code", factor.code) if isinstance(info.state, dict) \
         else factor.code
     tree = _parse(code, factor)
     if isinstance(tree, ast.Name):
-        return NumericFeature(tree.id, None)
+        return NumericFeature(tree.id, None), 1
+    if (isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name) and tree.func.id == "I"
+            and len(tree.args) == 1 and not tree.keywords):
+        inner = tree.args[0]
+        if (isinstance(inner, ast.BinOp) and isinstance(inner.op, ast.Pow)
+                and isinstance(inner.left, ast.Name) and isinstance(inner.right, ast.Constant)
+                and type(inner.right.value) is int and 1 <= inner.right.value <= 3):
+            return NumericFeature(inner.left.id, None), inner.right.value
     if (isinstance(tree, ast.Call) and isinstance(tree.func, ast.Attribute)
             and isinstance(tree.func.value, ast.Name) and tree.func.value.id in ("np", "numpy")
             and tree.func.attr in TRANSFORM_OPS and len(tree.args) == 1 and not tree.keywords
             and isinstance(tree.args[0], ast.Name)):
-        return NumericFeature(tree.args[0].id, None, (ScalingStep(tree.func.attr),))
+        return NumericFeature(tree.args[0].id, None, (ScalingStep(tree.func.attr),)), 1
     call = tree
     if (isinstance(call, ast.Call) and isinstance(call.func, ast.Attribute)
             and call.func.attr == "transform" and isinstance(call.func.value, ast.Name)
@@ -285,9 +373,10 @@ def _numeric_factor(factor, info) -> NumericFeature:
         obj = info.state["transforms"].get(call.func.value.id)
         options = {k.arg: ast.literal_eval(k.value) for k in call.keywords}
         steps = _stateful_steps(obj, options, factor)
-        return NumericFeature(call.args[0].id, None, tuple(steps))
+        return NumericFeature(call.args[0].id, None, tuple(steps)), 1
     raise Unsupported(f"term {factor.name()!r}: only a column, np.log(x), np.log1p(x), "
-                      "np.sqrt(x), center(x) and standardize(x) are frozen as numeric terms")
+                      "np.sqrt(x), I(x ** 2), I(x ** 3), center(x) and standardize(x) are "
+                      "frozen as numeric factors")
 
 
 def _stateful_steps(obj, options: dict, factor) -> list[ScalingStep]:
