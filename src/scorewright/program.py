@@ -410,7 +410,26 @@ def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
         g = b.emit("max", m, Const(-guard))
         g = b.emit("min", g, Const(plan.precision.log_link_max))
         return [m, b.emit("exp", g, hint="y")]
+    if plan.link == "inverse":
+        return [m, _lower_inverse(b, plan, m)]
     return [m, m]
+
+
+def inverse_floor(plan: Plan) -> float:
+    """The smallest normal number of the plan's precision: the inverse link divides by a
+    margin at least this far from zero."""
+    return 2.0 ** -126 if plan.precision.name == "float" else 2.0 ** -1022
+
+
+def _lower_inverse(b: _Builder, plan: Plan, m):
+    """1 / m (a Gamma model's inverse link: statsmodels' InversePower). A margin nearer
+    zero than the smallest normal number, where 1 / m overflows or divides by zero, is
+    taken as that number with the margin's sign (+0 and -0 as +): the value is then the
+    largest the link gives (about 4.5e307 in double), the same on every target."""
+    tiny = inverse_floor(plan)
+    small = b.emit("gt", Const(tiny), b.emit("abs", m), hint="f")
+    edge = b.emit("select", b.emit("ge", m, Const(0.0), hint="f"), Const(tiny), Const(-tiny))
+    return b.emit("div", Const(1.0), b.emit("select", small, edge, m), hint="y")
 
 
 def _lower_logit(b: _Builder, plan: Plan, m) -> tuple[str, str]:

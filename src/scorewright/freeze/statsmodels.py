@@ -52,11 +52,13 @@ DISCRETE = {"Logit": ("binary", "logit"), "Probit": ("binary", "probit"),
 GLM_LINKS = {("Binomial", "Logit"): ("binary", "logit"),
              ("Binomial", "Probit"): ("binary", "probit"),
              ("Binomial", "CLogLog"): ("binary", "cloglog"),
-             ("Gaussian", "Identity"): ("regression", "identity")}
+             ("Gaussian", "Identity"): ("regression", "identity"),
+             ("Gamma", "InversePower"): ("regression", "inverse"),
+             ("Gaussian", "InversePower"): ("regression", "inverse")}
 LOG_FAMILIES = ("Poisson", "Gamma", "Tweedie", "NegativeBinomial", "Gaussian", "InverseGaussian")
 # statsmodels' deprecated lower-case link classes are subclasses of these
 LINK_NAMES = {"probit": "Probit", "cloglog": "CLogLog", "logit": "Logit", "log": "Log",
-              "identity": "Identity"}
+              "identity": "Identity", "inverse_power": "InversePower"}
 
 
 class Unsupported(ScorewrightError):
@@ -168,8 +170,9 @@ def _task_and_link(model, kind: str) -> tuple[str, str]:
     if fam in LOG_FAMILIES and lnk == "Log":
         return "regression", "log"
     raise Unsupported(f"GLM {fam} family with the {lnk} link is not supported; frozen links: "
-                      "Binomial with logit, probit or cloglog, Gaussian/identity, log for "
-                      "Poisson, Gamma, Tweedie, NegativeBinomial, Gaussian and InverseGaussian")
+                      "Binomial with logit, probit or cloglog, Gaussian/identity, inverse for "
+                      "Gamma and Gaussian, log for Poisson, Gamma, Tweedie, NegativeBinomial, "
+                      "Gaussian and InverseGaussian")
 
 
 def half_cut(link: str) -> float:
