@@ -39,6 +39,7 @@ import math
 import numpy as np
 
 from ..errors import ScorewrightError
+from .offsets import with_offset
 from ..model import (TRANSFORM_OPS, CategoricalFeature, DesignColumn, FrozenModel, Head,
                      NumericFeature, ScalingStep, in_domain)
 
@@ -100,16 +101,6 @@ def freeze_results(results, feature_names=None, name=None, offset=None,
     else:
         features, design, coefs, intercept, inputs = _from_arrays(model, names, params,
                                                                   feature_names)
-    taken = {f.name for f in features}
-    for attr, column in offsets:
-        if column in taken:
-            raise ScorewrightError(f"{attr}={column!r}: the model already has a feature of "
-                                   "that name")
-        steps = (ScalingStep("log"),) if attr == "exposure" else ()
-        features.append(NumericFeature(column, None, steps))
-        design.append(DesignColumn(column))
-        coefs.append(1.0)
-        inputs.append(column)
     classes, cut = ((0, 1), half_cut(link)) if task == "binary" else (None, None)
     head = Head(task, link, classes, (intercept,), (tuple(coefs),), cut)
     source = f"statsmodels {kind}"
@@ -121,16 +112,12 @@ def freeze_results(results, feature_names=None, name=None, offset=None,
         source += f": {formula}"
     transforms = [(f.name, f.scaling[0].op) for f in features
                   if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
-    prov = _provenance(source, inputs, [t for t in transforms
-                                        if t[0] not in dict(offsets).values()])
+    prov = _provenance(source, inputs, transforms)
+    frozen = FrozenModel(name or kind.lower(), tuple(features), tuple(design), head,
+                         prov).sealed()
     for attr, column in offsets:
-        prov["inputs"][attr] = column
-        prov["notes"].append(
-            f"{column} is the {attr}: missing, it counts as 0" if attr == "offset" else
-            f"{column} is the exposure: missing or not positive, it counts as 1 (the "
-            "count is then the rate per unit of exposure)")
-    return FrozenModel(name or kind.lower(), tuple(features), tuple(design), head,
-                       prov).sealed()
+        frozen = with_offset(frozen, attr, column)
+    return frozen
 
 
 def _provenance(source: str, inputs: list[str], transforms=()) -> dict:
