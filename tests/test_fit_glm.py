@@ -66,3 +66,106 @@ def test_a_gamma_label_must_be_positive(claims, tmp_path):
                          capture_output=True, text=True)
     assert run.returncode == 2 and "needs positive values" in run.stderr
     assert "Traceback" not in run.stderr
+
+
+@pytest.fixture(scope="module")
+def cancer(tmp_path_factory):
+    """Rice's breast cancer counts by county with the population at risk (statsmodels
+    ships the data set); `population_k` is the population in thousands, as a feature."""
+    d = sm.datasets.cancer.load_pandas().data
+    d = d.assign(population_k=d.population / 1000.0)
+    path = tmp_path_factory.mktemp("cancer") / "cancer.csv"
+    d.to_csv(path, index=False)
+    return d, path
+
+
+def _fit_args(path, out, *args):
+    run = subprocess.run([sys.executable, "-m", "scorewright.cli", "fit", str(path),
+                          "--test-fraction", "0", "--cv", "2", "-o", str(out), *args],
+                         capture_output=True, text=True)
+    return run
+
+
+def test_a_poisson_rate_model_with_an_exposure_matches_statsmodels(cancer, tmp_path):
+    """A Poisson rate model with the population as exposure: statsmodels' GLM with
+    exposure= frozen agrees with its predict (with the exposure) to 1e-10; `fit
+    --exposure` fits the same model (scikit-learn on the rate with weights e, an
+    independent solver: 1e-6) and its frozen model outputs the expected count."""
+    import scorewright
+
+    d, path = cancer
+    x = sm.add_constant(d[["population_k"]])
+    results = sm.GLM(d.cancer, x, family=sm.families.Poisson(),
+                     exposure=d.population).fit(tol=1e-13, maxiter=100)
+    frozen_sm = scorewright.freeze(results, exposure="population", check_rows=d)
+    plan = build_plan(frozen_sm)
+    want = np.asarray(results.predict(x, exposure=d.population))
+    got = np.array([score_row(plan, r).value for r in d.to_dict("records")])
+    np.testing.assert_allclose(got, want, rtol=1e-10)
+    run = _fit_args(path, tmp_path / "m.json", "--label", "cancer", "--model", "poisson",
+                    "--penalty", "none", "--exposure", "population")
+    assert run.returncode == 0, run.stderr
+    assert "outputs the expected count" in run.stdout
+    frozen = load_model(tmp_path / "m.json")
+    assert [f.name for f in frozen.features] == ["population_k", "population"]
+    plan = build_plan(frozen)
+    got = np.array([score_row(plan, r).value for r in d.to_dict("records")])
+    np.testing.assert_allclose(got, want, rtol=1e-6)
+    # the stated rule: a missing or non-positive exposure counts as 1 (the rate)
+    row = d.iloc[0].to_dict()
+    rate = score_row(plan, dict(row, population=1.0)).value
+    for odd in (None, 0.0, -5.0, float("nan")):
+        assert score_row(plan, dict(row, population=odd)).value == rate
+
+
+def test_an_offset_is_the_log_of_an_exposure(cancer, tmp_path):
+    d, path = cancer
+    d = d.assign(log_population=np.log(d.population))
+    path = tmp_path / "offset.csv"
+    d.to_csv(path, index=False)
+    run = _fit_args(path, tmp_path / "m.json", "--label", "cancer", "--model", "poisson",
+                    "--penalty", "none", "--offset", "log_population", "--drop", "population")
+    assert run.returncode == 0, run.stderr
+    x = sm.add_constant(d[["population_k"]])
+    results = sm.GLM(d.cancer, x, family=sm.families.Poisson(),
+                     offset=d.log_population).fit(tol=1e-13, maxiter=100)
+    plan = build_plan(load_model(tmp_path / "m.json"))
+    got = np.array([score_row(plan, r).value for r in d.to_dict("records")])
+    np.testing.assert_allclose(got, results.predict(x, offset=d.log_population), rtol=1e-6)
+
+
+def test_weights_match_statsmodels_frequency_weights(claims, tmp_path):
+    """--weights: scikit-learn's sample_weight; statsmodels' freq_weights give the same
+    point estimates (an independent IRLS fit)."""
+    d, _ = claims
+    d = d.assign(policies=np.random.default_rng(3).integers(1, 5, len(d)).astype(float))
+    path = tmp_path / "weighted.csv"
+    d.to_csv(path, index=False)
+    run = _fit_args(path, tmp_path / "m.json", "--label", "claim_size", "--model", "gamma",
+                    "--penalty", "none", "--drop", "cost", "--weights", "policies")
+    assert run.returncode == 0, run.stderr
+    results = smf.glm("claim_size ~ power_kw + C(region)", data=d,
+                      family=sm.families.Gamma(sm.families.links.Log()),
+                      freq_weights=d.policies).fit(tol=1e-12, maxiter=200)
+    frozen = load_model(tmp_path / "m.json")
+    assert "policies" not in [f.name for f in frozen.features]
+    plan = build_plan(frozen)
+    rows = d[["power_kw", "region"]].head(300)
+    got = np.array([score_row(plan, r).value for r in rows.to_dict("records")])
+    np.testing.assert_allclose(got, results.predict(rows), rtol=1e-6)
+
+
+@pytest.mark.parametrize("args, words", [
+    (["--label", "cancer", "--model", "linear", "--exposure", "population"],
+     "--exposure applies to a count"),
+    (["--label", "cancer", "--model", "poisson", "--exposure", "nowhere"],
+     "no column named 'nowhere'"),
+    (["--label", "cancer", "--model", "poisson", "--exposure", "population",
+      "--offset", "population_k"], "give one"),
+    (["--label", "cancer", "--model", "poisson", "--weights", "cancer"], "is the label"),
+])
+def test_exposure_offset_and_weights_errors_are_one_line(cancer, tmp_path, args, words):
+    _, path = cancer
+    run = _fit_args(path, tmp_path / "m.json", *args)
+    assert run.returncode == 2 and words in run.stderr, run.stderr
+    assert "Traceback" not in run.stderr and not (tmp_path / "m.json").exists()

@@ -168,12 +168,18 @@ def _name_list(option: str, text: str | None) -> list[str] | None:
               help="Share of rows held out as the test part (0: none).")
 @click.option("--seed", default=0, show_default=True, help="Seed for the splits.")
 @click.option("--name", help="Model name (default: the label column).")
+@click.option("--exposure", metavar="COLUMN",
+              help="Count models: the exposure column (years, hours); the model fits the rate "
+                   "and its artifacts take the column and output the expected count.")
+@click.option("--offset", metavar="COLUMN",
+              help="Count models: a column added to the margin (the log of an exposure).")
+@click.option("--weights", metavar="COLUMN", help="A column of non-negative row weights.")
 @click.option("--report", "report_dir", type=click.Path(file_okay=False),
               help="Write report.html into this directory.")
 @click.option("--force", is_flag=True, help="Overwrite existing output files.")
 def fit(data, output, label, positive, features, drop, categorical, numeric, max_levels,
-        model_kind, penalty, cv, class_weight, cut, test_fraction, seed, name, report_dir,
-        force):
+        model_kind, penalty, cv, class_weight, cut, test_fraction, seed, name, exposure,
+        offset, weights, report_dir, force):
     """Fit and validate a model from a CSV or Parquet file, and freeze it."""
     from .files import check_writable, write_atomic
     from .fit import FitOptions, fit_file
@@ -189,7 +195,8 @@ def fit(data, output, label, positive, features, drop, categorical, numeric, max
         drop=_name_list("--drop", drop), categorical=_name_list("--categorical", categorical),
         numeric=_name_list("--numeric", numeric), max_levels=max_levels, model=model_kind,
         penalty=penalty, cv=cv, class_weight=class_weight, cut=cut, seed=seed,
-        test_fraction=test_fraction, name=name)
+        test_fraction=test_fraction, name=name, exposure=exposure, offset=offset,
+        weights=weights)
     result = fit_file(data, opts, echo=click.echo)
     for line in result_lines(result):
         click.echo(line)

@@ -48,25 +48,65 @@ class Validation:
     notes: list = field(default_factory=list)
     cv_fits: int = 0
     cv_unconverged: int = 0
+    terms: object = None                             # RowTerms: exposure and weights
 
 
-def _loss(spec: Spec, y, pred) -> float:
+def _loss(spec: Spec, y, pred, weights=None) -> float:
     if spec.classifier:
-        return metrics.log_loss(y, pred)
+        if weights is None:
+            return metrics.log_loss(y, pred)
+        p = np.clip(pred[np.arange(len(y)), np.asarray(y)], 1e-15, 1.0)
+        return float(np.average(-np.log(p), weights=weights))
     power = log_link_power(spec.model)
     if power is not None:
-        return float(np.mean(metrics.unit_deviance(y, pred, power)))
-    return float(np.mean((np.asarray(y) - pred) ** 2))
+        return float(np.average(metrics.unit_deviance(y, pred, power), weights=weights))
+    return float(np.average((np.asarray(y) - pred) ** 2, weights=weights))
 
 
-def _fit(pipe, x, y) -> bool:
+def _fit(pipe, x, y, sample_weight=None) -> bool:
     """Fit; False when the solver warned that it did not converge."""
     from sklearn.exceptions import ConvergenceWarning
 
+    extra = {} if sample_weight is None else {"estimate__sample_weight": sample_weight}
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        pipe.fit(x, y)
+        pipe.fit(x, y, **extra)
     return not any(issubclass(w.category, ConvergenceWarning) for w in caught)
+
+
+@dataclass(frozen=True)
+class RowTerms:
+    """Per row: what the rate is multiplied by (the exposure, or exp of the offset) and
+    the row weight; None where not given. A model with an exposure is fitted on the rate
+    y / e with sample weight w * e^(2 - p) (p the Tweedie power: 1 Poisson, 2 gamma),
+    whose estimating equations are those of the count model with offset log e (common
+    practice for Tweedie models); its predictions are rates, times e expected counts."""
+
+    exposure: np.ndarray | None = None
+    weights: np.ndarray | None = None
+
+    @classmethod
+    def of(cls, columns: dict | None) -> "RowTerms":
+        columns = columns or {}
+        e = columns.get("exposure")
+        if "offset" in columns:
+            e = np.exp(columns["offset"])
+        return cls(e, columns.get("weights"))
+
+    def target(self, y, idx, power):
+        if self.exposure is None:
+            return y[idx], None if self.weights is None else self.weights[idx]
+        e = self.exposure[idx]
+        w = e ** (2.0 - power)
+        if self.weights is not None:
+            w = w * self.weights[idx]
+        return y[idx] / e, w
+
+    def count(self, pred, idx):
+        return pred if self.exposure is None else pred * self.exposure[idx]
+
+    def weight(self, idx):
+        return None if self.weights is None else self.weights[idx]
 
 
 def predict(pipe, spec: Spec, x) -> np.ndarray:
@@ -104,10 +144,12 @@ def _splits(spec: Spec, y, folds: int, test_fraction: float, seed: int):
 
 
 def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: int,
-             test_fraction: float, progress: bool = True) -> Validation:
+             test_fraction: float, progress: bool = True, columns=None) -> Validation:
     import click
 
     y = label.y
+    terms = RowTerms.of(columns)
+    power = log_link_power(spec.model)
     v = Validation(loss_name="log loss" if spec.classifier else
                    "Poisson deviance" if spec.model == "poisson" else
                    f"{spec.model.split(':')[0]} deviance"
@@ -116,6 +158,7 @@ def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: i
     v.train_index, v.test_index = train, test
     v.n_train, v.n_test = len(train), len(test)
     x_train, y_train = x.iloc[train], y[train]
+    v.terms = terms
     refs = reference_levels(schema, x_train)
     v.grid = strength_grid(spec)
     oof = {}
@@ -131,12 +174,13 @@ def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: i
             for tr, va in splits:
                 pipe = make_pipeline(schema, spec, strength, refs)
                 v.cv_fits += 1
-                v.cv_unconverged += not _fit(pipe, x_train.iloc[tr], y_train[tr])
-                p = predict(pipe, spec, x_train.iloc[va])
+                target, sw = terms.target(y, train[tr], power)
+                v.cv_unconverged += not _fit(pipe, x_train.iloc[tr], target, sw)
+                p = terms.count(predict(pipe, spec, x_train.iloc[va]), train[va])
                 if pred is None:
                     pred = np.zeros((len(train),) + p.shape[1:])
                 pred[va] = p
-                losses.append(_loss(spec, y_train[va], p))
+                losses.append(_loss(spec, y_train[va], p, terms.weight(train[va])))
                 if bar is not None:
                     bar.update(1)
             oof[s] = pred
@@ -145,7 +189,8 @@ def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: i
         v.chosen = v.grid[best]
         v.oof_y, v.oof_pred = y_train, oof[best]
         v.pipeline = make_pipeline(schema, spec, v.chosen, refs)
-        converged = _fit(v.pipeline, x_train, y_train)
+        target, sw = terms.target(y, train, power)
+        converged = _fit(v.pipeline, x_train, target, sw)
         if bar is not None:
             bar.update(1)
     finally:
