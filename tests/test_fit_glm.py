@@ -169,3 +169,18 @@ def test_exposure_offset_and_weights_errors_are_one_line(cancer, tmp_path, args,
     run = _fit_args(path, tmp_path / "m.json", *args)
     assert run.returncode == 2 and words in run.stderr, run.stderr
     assert "Traceback" not in run.stderr and not (tmp_path / "m.json").exists()
+
+
+def test_a_count_label_is_fitted_as_poisson_by_default(cancer, tmp_path):
+    """Whole numbers of zero or more (a count) default to Poisson, never a linear
+    regression (which predicts negative counts); other numbers stay linear."""
+    d, path = cancer
+    run = _fit_args(path, tmp_path / "m.json", "--label", "cancer")
+    assert run.returncode == 0, run.stderr
+    assert "Poisson regression" in run.stdout and load_model(tmp_path / "m.json").head.link == "log"
+    d = d.assign(cancer=d.cancer - 2.0)  # negative values: not a count
+    path = tmp_path / "shifted.csv"
+    d.to_csv(path, index=False)
+    run = _fit_args(path, tmp_path / "n.json", "--label", "cancer")
+    assert run.returncode == 0, run.stderr
+    assert "linear regression" in run.stdout

@@ -77,6 +77,9 @@ def read_label(series, name: str, model: str | None, positive: str | None) -> La
     if model is None:
         if len(distinct) == 2:
             model = "logistic"
+        elif whole and len(distinct) > 2 and bool(np.all(numbers >= 0)):
+            # counts (whole numbers, none negative): never a linear regression by default
+            model = "poisson"
         elif all_numbers and len(distinct) > 2:
             model = "linear"
         else:
