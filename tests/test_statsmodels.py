@@ -156,18 +156,36 @@ INTERACTIONS = [
     "affairs ~ C(religious):age + C(rate_marriage) * educ",
     "affairs ~ C(religious):C(occupation)",
     "affairs ~ C(religious, Sum) * np.log(age) + center(yrs_married):C(children)",
-    "affairs ~ C(religious) * C(occupation, Sum) * age",
+    "affairs ~ C(religious, Treatment(reference=3)) + C(occupation) * educ",
+    # a three-way interaction: 47 design columns, the self-check's longest (--runslow)
+    pytest.param("affairs ~ C(religious) * C(occupation, Sum) * age", marks=pytest.mark.slow),
     "affairs ~ 0 + C(occupation):C(religious):yrs_married + I(educ ** 3)",
 ]
 
 
+@pytest.fixture(params=["patsy", "formulaic"])
+def engine(request):
+    """Each formula engine statsmodels can use (both installed by the tests)."""
+    import statsmodels.formula
+
+    pytest.importorskip(request.param)
+    options = statsmodels.formula.options
+    before = options.formula_engine
+    options.formula_engine = request.param
+    yield request.param
+    options.formula_engine = before
+
+
 @pytest.mark.parametrize("formula", INTERACTIONS)
-def test_formula_interactions_and_powers_agree_with_predict(formula):
+def test_formula_interactions_and_powers_agree_with_predict(formula, engine):
     """Fair's affairs data (statsmodels ships it): interactions of numerical and
     categorical factors under treatment and sum codings, with and without main effects
-    (patsy then codes some factors in full rank), and I(x ** k). Each agrees with
-    statsmodels' predict to 1e-12, through the freeze self-check (which adds rows with
-    missing values and unseen levels) and explicitly here."""
+    (the engine then codes some factors in full rank), and I(x ** k), through patsy and
+    through formulaic. Each agrees with statsmodels' predict to 1e-12, through the freeze
+    self-check (which adds rows with missing values and unseen levels: formulaic scores
+    an unseen level, and the frozen model agrees with it there too) and explicitly here."""
+    if engine == "formulaic":
+        formula = formula.replace(", Sum)", ", contr.sum)")
     data = _fair()
     data = data.assign(children=data.children.round())
     results = smf.glm(formula, data=data, family=sm.families.Poisson()).fit()

@@ -3,13 +3,15 @@ WLS, GLS) into a frozen model.
 
 A model fitted on arrays takes its features from `exog_names`, with the column
 `add_constant` made (statsmodels' `const_idx`) as the intercept. A model fitted
-through a formula takes its design from the formula's own design information
-(patsy's DesignInfo, which statsmodels keeps as `model.data.model_spec`): each term
-is read from its factors and their codings, never from the column names.
+through a formula takes its design from the formula's own design information, which
+statsmodels keeps as `model.data.model_spec`: patsy's DesignInfo or formulaic's
+ModelSpec, whichever engine fitted it. Each term is read from its factors and their
+codings, never from the column names.
 
-- A numerical factor that names a data column is that feature; `center(x)` and
-  `standardize(x, center=, rescale=, ddof=)` become the scaling steps patsy's
-  stateful transforms apply, with the constants they memorized.
+- A numerical factor that names a data column is that feature; patsy's `center(x)` and
+  `standardize(x, center=, rescale=, ddof=)` and formulaic's `center(x)` and `scale(x)`
+  become the scaling steps those stateful transforms apply, with the constants they
+  memorized.
 - A categorical factor (`C(x)`, `C(x, Treatment(reference=...))`, `C(x, Sum)`, any
   contrast, or a text column) is that feature's levels; whatever its contrast matrix,
   each level's contribution to the margin is the sum over the term's columns of the
@@ -19,8 +21,8 @@ is read from its factors and their codings, never from the column names.
   treated as missing).
 - `I(x ** 2)` and `I(x ** 3)` are products of the column with itself; an interaction
   (`a:b`, `a*b`) of any factors is, per combination of its categorical factors' levels,
-  one product column, as patsy builds it (see `_from_formula`). A variable may appear in
-  several terms with the same transform everywhere.
+  one product column, as the engine builds it (see `_design_of_terms`). A variable may
+  appear in several terms with the same transform everywhere.
 - Splines and other transforms are refused in one line naming the term.
 
 statsmodels cannot score a row with a missing value (the prediction is NaN) or an
@@ -94,10 +96,13 @@ def freeze_results(results, feature_names=None, name=None, offset=None,
         if feature_names is not None:
             raise ScorewrightError("feature_names: a formula model names its own features")
         features, design, coefs, intercept, inputs = _from_formula(spec, names, params)
+    elif spec is not None and type(spec).__module__.split(".")[0] == "formulaic":
+        if feature_names is not None:
+            raise ScorewrightError("feature_names: a formula model names its own features")
+        features, design, coefs, intercept, inputs = _from_formulaic(spec, names, params)
     elif spec is not None:
-        raise Unsupported(f"{kind} fitted through a formula engine other than patsy "
-                          f"({type(spec).__module__}): only patsy's design information is "
-                          "read; fit with patsy to freeze it")
+        raise Unsupported(f"{kind} fitted through a formula engine other than patsy or "
+                          f"formulaic ({type(spec).__module__})")
     else:
         features, design, coefs, intercept, inputs = _from_arrays(model, names, params,
                                                                   feature_names)
@@ -222,27 +227,15 @@ def _from_arrays(model, names, params, feature_names):
 # ---------------------------------------------------------------- formulas (patsy)
 
 def _from_formula(spec, names, params):
-    """Every term of the formula, column by column as patsy builds it: a design column is
-    the product, over the term's factors, of a categorical factor's contrast entry for
-    the row's level or a numerical factor's value (patsy's build.py, _build_subterm).
-    A column's coefficient is spread over the levels it depends on: per combination of
-    levels, the contribution is the sum over the term's columns of the contrast entries'
-    product times the coefficient; each becomes one design column (the product of the
-    numerical factors and the indicators of those levels)."""
+    """The terms of a patsy formula, as patsy builds them (build.py, _build_subterm): per
+    subterm, each column is the product over its factors of a categorical factor's
+    contrast entry for the row's level or a numerical factor's value; the left-most
+    factor varies fastest over the columns."""
     if list(spec.column_names) != list(names):
         raise Unsupported("the formula's design columns are not the model's exog columns")
-    features: dict[str, object] = {}
-    design, coefs, intercept = [], [], 0.0
+    terms = []
     for term, subterms in spec.term_codings.items():
-        sl = spec.term_slices[term]
-        if not term.factors:
-            intercept = float(params[sl][0])
-            continue
-        beta = iter(float(b) for b in params[sl])
-        per_levels: dict[tuple, float] = {}   # (level per categorical factor) -> sum
-        numeric: list[tuple] = []             # the numerical factors' (name, steps, power)
-        categorical: list[str] = []
-        cat_factors: list = []
+        factors = []
         for factor in term.factors:
             info = spec.factor_infos[factor]
             if info.type == "numerical":
@@ -250,98 +243,180 @@ def _from_formula(spec, names, params):
                     raise Unsupported(f"term {term.name()!r}: the factor {factor.name()!r} "
                                       f"makes {info.num_columns} columns (a spline or a "
                                       "matrix); not freezable yet")
-                feat, power = _numeric_factor(factor, info)
-                _add_feature(features, feat, term)
+                factors.append((factor, _numeric_factor(factor, info)))
+            else:
+                factors.append((factor, _categorical_factor(factor, info)))
+        subs = [(list(sub.factors), {f: np.asarray(sub.contrast_matrices[f].matrix,
+                                                   dtype=np.float64)
+                                     for f in sub.contrast_matrices}) for sub in subterms]
+        terms.append((term.name(), factors, subs, params[spec.term_slices[term]]))
+    return _design_of_terms(terms)
+
+
+def _from_formulaic(spec, names, params):
+    """The terms of a formulaic formula, as formulaic builds them (its materializer's
+    _get_columns_for_term: the row-wise product of the scoped factors' columns, the
+    left-most factor varying fastest); a categorical factor's columns are its contrasts'
+    coding matrix, full or reduced rank as the scoped factor says."""
+    if list(spec.column_names) != list(names):
+        raise Unsupported("the formula's design columns are not the model's exog columns")
+    position = {name: j for j, name in enumerate(spec.column_names)}
+    terms = []
+    for ets in spec.structure:
+        start = position[ets.columns[0]] if ets.columns else 0
+        beta = params[start:start + len(ets.columns)]
+        name = str(ets.term)
+        factors, subs, seen = [], [], {}
+        for scoped in ets.scoped_terms:
+            if scoped.scale != 1:
+                raise Unsupported(f"term {name!r}: a scaled term is not freezable yet")
+            matrices = {}
+            for sf in scoped.factors:
+                expr = sf.factor.expr
+                if expr not in seen:
+                    seen[expr] = True
+                    factors.append((expr, _formulaic_factor(spec, sf.factor, name)))
+                kind, state = spec.encoder_state.get(expr, (None, {}))
+                if getattr(kind, "value", kind) == "categorical":
+                    c = state["contrasts"]
+                    matrices[expr] = np.asarray(c.contrasts.get_coding_matrix(
+                        c.levels, reduced_rank=sf.reduced), dtype=np.float64)
+            subs.append(([sf.factor.expr for sf in scoped.factors], matrices))
+        if not factors:
+            terms.append((name, [], [], beta))
+            continue
+        terms.append((name, factors, subs, beta))
+    return _design_of_terms(terms)
+
+
+def _formulaic_factor(spec, factor, term: str):
+    expr = factor.expr
+    kind, state = spec.encoder_state.get(expr, (None, {}))
+    if getattr(kind, "value", kind) == "categorical":
+        tree = _parse_expr(expr, term)
+        if isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name) and \
+                tree.func.id == "C" and tree.args and isinstance(tree.args[0], ast.Name):
+            column = tree.args[0].id
+        elif isinstance(tree, ast.Name):
+            column = tree.id
+        else:
+            raise Unsupported(f"term {term!r}: a categorical factor must be C(column, ...) or "
+                              "a text column")
+        return CategoricalFeature(column, tuple(_level(v, term)
+                                                for v in state["contrasts"].levels))
+    tree = _parse_expr(expr, term)
+    if (isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name)
+            and tree.func.id in ("center", "scale") and len(tree.args) == 1
+            and isinstance(tree.args[0], ast.Name) and expr in spec.transform_state):
+        st = spec.transform_state[expr]
+        steps = []
+        if st.get("center") is not None:
+            steps.append(ScalingStep("subtract", float(np.asarray(st["center"]).reshape(-1)[0])))
+        if st.get("scale") is not None:
+            steps.append(ScalingStep("divide", float(np.asarray(st["scale"]).reshape(-1)[0])))
+        return NumericFeature(tree.args[0].id, None, tuple(steps)), 1
+    return _numeric_code(tree, term)
+
+
+def _design_of_terms(terms):
+    """Per term (name, [(factor, feature)], subterms, coefficients), where each subterm is
+    (its factors in its order, its categorical factors' coding matrices (levels x
+    columns)), the left-most factor varying fastest over its columns: the design columns.
+
+    A column's coefficient is spread over the levels it depends on: per combination of the
+    levels of the subterm's categorical factors, the contribution is the coding entries'
+    product times the coefficient. Contributions with the same numerical factors and the
+    same levels are summed (math.fsum) into one design column: the product of the
+    numerical factors and the indicators of those levels. A column does not depend on a
+    categorical factor its subterm leaves out; a missing or unseen level gets nothing from
+    the columns that depend on it (formulaic scores an unseen level so too)."""
+    features: dict[str, object] = {}
+    parts: dict[tuple, list] = {}     # (numeric factors, (feature, level)...) -> weights
+    for name, factors, subterms, params in terms:
+        beta = iter(float(b) for b in params)
+        if not factors:
+            parts.setdefault(((), ()), []).append(float(params[0]))
+            continue
+        numeric, categorical = [], {}
+        for factor, feat in factors:
+            if isinstance(feat, tuple):       # (numeric feature, power)
+                feat, power = feat
+                _add_feature(features, feat, name)
                 numeric.append((feat.name, feat.scaling, power))
             else:
-                feat = _categorical_factor(factor, info)
-                _add_feature(features, feat, term)
-                categorical.append(feat.name)
-                cat_factors.append(factor)
-        for sub in subterms:
-            combos = _subterm_columns(sub, spec)
-            for combo in combos:
+                _add_feature(features, feat, name)
+                categorical[factor] = feat.name
+        for order, matrices in subterms:
+            sizes = [matrices[f].shape[1] if f in matrices else 1 for f in order]
+            present = [f for f in order if f in categorical]
+            for reversed_combo in itertools.product(*[range(n) for n in reversed(sizes)]):
+                column = dict(zip(order, reversed_combo[::-1]))
                 b = next(beta)
-                # per categorical factor of the term, the levels with a non-zero entry in
-                # this column; a factor the subterm leaves out is 1 at every level (a
-                # missing or unseen level still adds nothing: the frozen model's rule)
-                column = dict(combo)
                 entries = []
-                for name, f in zip(categorical, cat_factors):
-                    levels = features[name].levels
-                    if f in column:
-                        matrix = np.asarray(sub.contrast_matrices[f].matrix, dtype=np.float64)
-                        entries.append([(level, float(v)) for level, v
-                                        in zip(levels, matrix[:, column[f]]) if v != 0.0])
-                    else:
-                        entries.append([(level, 1.0) for level in levels])
-                for pick in _product(entries):
-                    key = tuple(level for level, _ in pick)
+                for f in present:
+                    levels = features[categorical[f]].levels
+                    entries.append([((categorical[f], level), float(v)) for level, v
+                                    in zip(levels, matrices[f][:, column[f]]) if v != 0.0])
+                for pick in (itertools.product(*entries) if entries else [()]):
                     weight = b
                     for _, v in pick:
                         weight *= v
-                    per_levels.setdefault(key, []).append(weight)
-        for key, parts in per_levels.items():
-            contribution = math.fsum(parts)
-            if contribution == 0.0:
-                continue
-            if not numeric and len(key) == 1:
-                design.append(DesignColumn(categorical[0], (key[0],)))
-            elif len(numeric) == 1 and not key and numeric[0][2] == 1:
-                design.append(DesignColumn(numeric[0][0]))
-            else:
-                factors = []
-                for name, steps, power in numeric:
-                    factors += [DesignColumn(name, scaling=tuple(steps))] * power
-                factors += [DesignColumn(name, (level,)) for name, level
-                            in zip(categorical, key)]
-                design.append(DesignColumn(factors[0].feature, product=tuple(factors)))
-            coefs.append(contribution)
+                    key = (tuple(numeric), tuple(sorted(lv for lv, _ in pick)))
+                    parts.setdefault(key, []).append(weight)
         if next(beta, None) is not None:
-            raise Unsupported(f"term {term.name()!r}: its columns are not the ones patsy "
-                              "builds as read here")
-    inputs = list(features)
-    return list(features.values()), design, coefs, intercept, inputs
-
-
-def _subterm_columns(sub, spec) -> list[tuple]:
-    """Per design column of the subterm (in patsy's order: the left-most factor varies
-    fastest), the (factor, contrast column) of each categorical factor."""
-    sizes, cats = [], []
-    for factor in sub.factors:
-        if factor in sub.contrast_matrices:
-            sizes.append(sub.contrast_matrices[factor].matrix.shape[1])
-            cats.append(factor)
+            raise Unsupported(f"term {name!r}: its columns are not the ones the formula "
+                              "engine builds as read here")
+    design, coefs, intercept = [], [], 0.0
+    for (numeric, levels), weights in parts.items():
+        contribution = math.fsum(weights)
+        if not numeric and not levels:
+            intercept = contribution
+            continue
+        if contribution == 0.0:
+            continue
+        if not numeric and len(levels) == 1:
+            design.append(DesignColumn(levels[0][0], (levels[0][1],)))
+        elif len(numeric) == 1 and not levels and numeric[0][2] == 1:
+            design.append(DesignColumn(numeric[0][0]))
         else:
-            sizes.append(spec.factor_infos[factor].num_columns)
-            cats.append(None)
-    out = []
-    for reversed_combo in itertools.product(*[range(n) for n in reversed(sizes)]):
-        combo = reversed_combo[::-1]
-        out.append(tuple((f, c) for f, c in zip(cats, combo) if f is not None))
-    return out
+            cols = []
+            for feat_name, steps, power in numeric:
+                cols += [DesignColumn(feat_name, scaling=tuple(steps))] * power
+            cols += [DesignColumn(feat_name, (level,)) for feat_name, level in levels]
+            design.append(DesignColumn(cols[0].feature, product=tuple(cols)))
+        coefs.append(contribution)
+    return list(features.values()), design, coefs, intercept, list(features)
 
 
-def _product(lists):
-    return itertools.product(*lists) if lists else [()]
-
-
-def _add_feature(features: dict, feat, term) -> None:
+def _add_feature(features: dict, feat, term: str) -> None:
     """A variable in several terms is one feature: the same transform and levels
     everywhere it appears."""
     have = features.get(feat.name)
     if have is not None and have != feat:
-        raise Unsupported(f"term {term.name()!r}: the variable {feat.name!r} appears with "
+        raise Unsupported(f"term {term!r}: the variable {feat.name!r} appears with "
                           "different transforms or levels in different terms; not "
                           "freezable yet")
     features[feat.name] = feat
 
 
 def _numeric_factor(factor, info) -> tuple[NumericFeature, int]:
-    """The feature of a numerical factor, and the power it is raised to (I(x ** 2))."""
+    """The feature of a patsy numerical factor, and the power it is raised to."""
     code = info.state.get("eval_code", factor.code) if isinstance(info.state, dict) \
         else factor.code
-    tree = _parse(code, factor)
+    tree = _parse_expr(code, factor.name())
+    call = tree
+    if (isinstance(call, ast.Call) and isinstance(call.func, ast.Attribute)
+            and call.func.attr == "transform" and isinstance(call.func.value, ast.Name)
+            and len(call.args) == 1 and isinstance(call.args[0], ast.Name)):
+        obj = info.state["transforms"].get(call.func.value.id)
+        options = {k.arg: ast.literal_eval(k.value) for k in call.keywords}
+        steps = _stateful_steps(obj, options, factor)
+        return NumericFeature(call.args[0].id, None, tuple(steps)), 1
+    return _numeric_code(tree, factor.name())
+
+
+def _numeric_code(tree, term: str) -> tuple[NumericFeature, int]:
+    """A column, I(x ** k) (the column k times, k <= 3), or np.log/log1p/sqrt of one."""
     if isinstance(tree, ast.Name):
         return NumericFeature(tree.id, None), 1
     if (isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name) and tree.func.id == "I"
@@ -356,17 +431,9 @@ def _numeric_factor(factor, info) -> tuple[NumericFeature, int]:
             and tree.func.attr in TRANSFORM_OPS and len(tree.args) == 1 and not tree.keywords
             and isinstance(tree.args[0], ast.Name)):
         return NumericFeature(tree.args[0].id, None, (ScalingStep(tree.func.attr),)), 1
-    call = tree
-    if (isinstance(call, ast.Call) and isinstance(call.func, ast.Attribute)
-            and call.func.attr == "transform" and isinstance(call.func.value, ast.Name)
-            and len(call.args) == 1 and isinstance(call.args[0], ast.Name)):
-        obj = info.state["transforms"].get(call.func.value.id)
-        options = {k.arg: ast.literal_eval(k.value) for k in call.keywords}
-        steps = _stateful_steps(obj, options, factor)
-        return NumericFeature(call.args[0].id, None, tuple(steps)), 1
-    raise Unsupported(f"term {factor.name()!r}: only a column, np.log(x), np.log1p(x), "
-                      "np.sqrt(x), I(x ** 2), I(x ** 3), center(x) and standardize(x) are "
-                      "frozen as numeric factors")
+    raise Unsupported(f"term {term!r}: only a column, np.log(x), np.log1p(x), np.sqrt(x), "
+                      "I(x ** 2), I(x ** 3) and the formula engine's centering and scaling "
+                      "are frozen as numeric factors")
 
 
 def _stateful_steps(obj, options: dict, factor) -> list[ScalingStep]:
@@ -390,7 +457,7 @@ def _stateful_steps(obj, options: dict, factor) -> list[ScalingStep]:
 
 
 def _categorical_factor(factor, info) -> CategoricalFeature:
-    tree = _parse(factor.code, factor)
+    tree = _parse_expr(factor.code, factor.name())
     if isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name) and tree.func.id == "C" \
             and tree.args and isinstance(tree.args[0], ast.Name):
         name = tree.args[0].id
@@ -399,10 +466,10 @@ def _categorical_factor(factor, info) -> CategoricalFeature:
     else:
         raise Unsupported(f"term {factor.name()!r}: a categorical term must be C(column, ...) "
                           "or a text column")
-    return CategoricalFeature(name, tuple(_level(v, factor) for v in info.categories))
+    return CategoricalFeature(name, tuple(_level(v, factor.name()) for v in info.categories))
 
 
-def _level(value, factor):
+def _level(value, term: str):
     if isinstance(value, (bool, np.bool_)):
         return int(value)
     if isinstance(value, (int, np.integer)):
@@ -411,15 +478,14 @@ def _level(value, factor):
         return int(value)  # patsy matches 3 and 3.0 alike
     if isinstance(value, str):
         return value
-    raise Unsupported(f"term {factor.name()!r}: the level {value!r} is neither text nor an "
-                      "integer")
+    raise Unsupported(f"term {term!r}: the level {value!r} is neither text nor an integer")
 
 
-def _parse(code: str, factor):
+def _parse_expr(code: str, term: str):
     try:
         return ast.parse(code, mode="eval").body
     except SyntaxError:
-        raise Unsupported(f"term {factor.name()!r}: cannot read its code") from None
+        raise Unsupported(f"term {term!r}: cannot read its code") from None
 
 
 # ---------------------------------------------------------------- the self-check's view
