@@ -85,9 +85,11 @@ def _split_names(text: str | None) -> list[str] | None:
                    "made the layer's inputs.")
 @click.option("--classes", help="torch state_dict (.pt): comma-separated class labels.")
 @click.option("--offset", metavar="COLUMN",
-              help="statsmodels results fitted with offset=: the column that holds it.")
+              help="statsmodels results fitted with offset= (or a scikit-learn rate model): "
+                   "the column that holds it.")
 @click.option("--exposure", metavar="COLUMN",
-              help="statsmodels results fitted with exposure=: the column that holds it.")
+              help="statsmodels results fitted with exposure= (or a scikit-learn model fitted "
+                   "on rates): the column that holds it; artifacts output the expected count.")
 @click.option("--force", is_flag=True, help="Overwrite an existing output file.")
 def freeze(pickle_file, output, name, feature_names, check_data, task, preprocessor, classes,
            offset, exposure, force):
