@@ -184,3 +184,60 @@ def test_a_count_label_is_fitted_as_poisson_by_default(cancer, tmp_path):
     run = _fit_args(path, tmp_path / "n.json", "--label", "cancer")
     assert run.returncode == 0, run.stderr
     assert "linear regression" in run.stdout
+
+
+@pytest.mark.parametrize("model, label, family, exposure", [
+    ("poisson", "cancer", lambda: sm.families.Poisson(), "population"),
+    ("gamma", "claim_size", lambda: sm.families.Gamma(sm.families.links.Log()), None),
+    ("tweedie:1.5", "cost", lambda: sm.families.Tweedie(var_power=1.5,
+                                                         link=sm.families.links.Log()), None),
+    ("linear", "claim_size", None, None),
+])
+def test_inference_matches_statsmodels_for_every_family(claims, cancer, tmp_path, model,
+                                                         label, family, exposure):
+    """Standard errors, statistics, p-values and 95% intervals of an unpenalized fit equal
+    statsmodels' (GLM with the same family and log link, its default scale: 1 for
+    Poisson, Pearson's chi-square over the residual df otherwise; OLS with t intervals
+    for the linear model); Rice's cancer counts with the population as exposure, and the
+    claims data."""
+    import json
+
+    d, path = cancer if label == "cancer" else claims
+    args = ["--label", label, "--model", model, "--penalty", "none"]
+    if exposure:
+        args += ["--exposure", exposure]
+    else:
+        args += ["--drop", "cost" if label == "claim_size" else "claim_size"]
+    run = _fit_args(path, tmp_path / "m.json", *args)
+    assert run.returncode == 0, run.stderr
+    rows = json.loads((tmp_path / "m.json").read_text())["provenance"]["metrics"]["coefficients"]
+    ours = {r["term"]: r for r in rows}
+    if label == "cancer":
+        x = sm.add_constant(d[["population_k"]])
+        ref = sm.GLM(d.cancer, x, family=family(), exposure=d.population).fit(tol=1e-13)
+        names = {"intercept": "const", "population_k": "population_k"}
+    else:
+        formula = f"{label} ~ power_kw + C(region, Treatment(reference='{_top(d.region)}'))"
+        ref = (smf.ols(formula, data=d).fit() if family is None else
+               smf.glm(formula, data=d, family=family()).fit(tol=1e-13, maxiter=200))
+        names = {"intercept": "Intercept", "power_kw": "power_kw"}
+        for level in d.region.unique():
+            if level != _top(d.region):
+                names[f"region={level}"] = (f"C(region, Treatment(reference='{_top(d.region)}'))"
+                                            f"[T.{level}]")
+    stat = "t" if model == "linear" else "z"
+    for ours_name, sm_name in names.items():
+        mine = ours[ours_name]
+        assert mine["estimate"] == pytest.approx(ref.params[sm_name], rel=1e-6, abs=1e-9)
+        assert mine["se"] == pytest.approx(ref.bse[sm_name], rel=1e-5)
+        assert mine[stat] == pytest.approx(ref.tvalues[sm_name], rel=1e-5, abs=1e-6)
+        assert mine["p_value"] == pytest.approx(ref.pvalues[sm_name], rel=1e-4, abs=1e-12)
+        low, high = ref.conf_int().loc[sm_name]
+        assert mine["ci_low"] == pytest.approx(low, rel=1e-5, abs=1e-9)
+        assert mine["ci_high"] == pytest.approx(high, rel=1e-5, abs=1e-9)
+
+
+def _top(series):
+    """The most frequent level (ties: the first sorted): fit's reference level."""
+    counts = series.value_counts()
+    return sorted(level for level, n in counts.items() if n == counts.max())[0]

@@ -290,26 +290,27 @@ def _notes(result: FitResult, x) -> list[str]:
         notes += diagnostics.imbalance_notes(label.y, label.classes)
         notes += diagnostics.separation_notes(x.iloc[train].reset_index(drop=True), schema,
                                               label.y[train], label.classes)
-    if spec.model == "logistic" and spec.penalty == "none":
+    if spec.penalty == "none" and spec.model != "multinomial":
         if spec.class_weight is None and "weights" not in result.columns:
-            result.inference = fitted_inference(v, schema, x, label)
+            result.inference = fitted_inference(v, schema, x, label, spec)
         elif "weights" in result.columns:
             notes.append("no standard errors or p-values: the inference table is computed "
                          "for an unweighted fit")
+    if spec.model == "logistic" and spec.penalty == "none":
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             p = v.pipeline.predict_proba(x.iloc[train])[:, 1]
         note = diagnostics.fitted_extremes_note(p)
         if note:
             notes.append(note)
-        if result.inference is not None and result.inference.condition > 1e12:
-            notes.append(f"the information matrix is nearly singular (condition number "
-                         f"{result.inference.condition:.2g}): collinear columns or "
-                         "separation; standard errors are unreliable")
-    elif spec.classifier:
+    if result.inference is not None and result.inference.condition > 1e12:
+        notes.append(f"the information matrix is nearly singular (condition number "
+                     f"{result.inference.condition:.2g}): collinear columns or "
+                     "separation; standard errors are unreliable")
+    if spec.penalty != "none" or spec.model == "multinomial":
         notes.append("no standard errors or p-values: they are computed for an unpenalized "
-                     "binary logistic fit only (--penalty none); penalized estimates are "
-                     "biased toward zero by design")
+                     "fit (--penalty none) of a binary, linear or log-link model; penalized "
+                     "estimates are biased toward zero by design")
     if spec.penalty == "none" and schema.categorical:
         notes.append("unpenalized fit: each categorical column has a reference level (its "
                      "most frequent); an unseen level scores as that reference level")

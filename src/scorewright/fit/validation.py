@@ -233,9 +233,10 @@ def _decide(proba: np.ndarray, threshold: float | None) -> np.ndarray:
     return np.argmax(proba, axis=1)
 
 
-def fitted_inference(v: Validation, schema, x, label: Label):
-    """The inference table of the refitted unpenalized logistic model."""
-    from .inference import logistic_inference
+def fitted_inference(v: Validation, schema, x, label: Label, spec: Spec):
+    """The inference table of the refitted unpenalized model (binary logistic, linear, or
+    a log-link model, with its exposure)."""
+    from .inference import glm_inference
 
     pipe = v.pipeline
     x_train = x.iloc[v.train_index]
@@ -244,6 +245,11 @@ def fitted_inference(v: Validation, schema, x, label: Label):
         design = np.asarray(pipe.named_steps["prepare"].transform(x_train), dtype=np.float64)
     est = pipe.named_steps["estimate"]
     means, scales = standardization(pipe, schema)
-    return logistic_inference(design, label.y[v.train_index], float(est.intercept_[0]),
-                              np.asarray(est.coef_[0], dtype=np.float64),
-                              design_names(pipe, schema), means, scales)
+    coef = np.asarray(est.coef_, dtype=np.float64).reshape(-1)
+    intercept = float(np.asarray(est.intercept_).reshape(-1)[0])
+    exposure = None
+    if v.terms is not None and v.terms.exposure is not None:
+        exposure = v.terms.exposure[v.train_index]
+    return glm_inference(design, label.y[v.train_index], intercept, coef,
+                         design_names(pipe, schema), means, scales, spec.model,
+                         log_link_power(spec.model), exposure)
