@@ -134,7 +134,8 @@ def test_spector_probit_matches_the_published_fit_and_predicts_alike():
     assert np.all(np.abs(got - want) <= 1e-12)
 
 
-@pytest.mark.parametrize("link, name", [("probit", "Probit"), ("cloglog", "CLogLog")])
+@pytest.mark.parametrize("link, name", [("probit", "Probit"), ("cloglog", "CLogLog"),
+                                        ("cauchit", "Cauchy")])
 def test_glm_binomial_links_freeze_and_agree(link, name):
     y, x, exog = _spector()
     family = sm.families.Binomial(getattr(sm.families.links, name)())
@@ -144,20 +145,30 @@ def test_glm_binomial_links_freeze_and_agree(link, name):
     assert "Binomial" in model.provenance["source"]
 
 
-def test_a_cauchy_link_is_refused_in_one_line():
-    y, x, _ = _spector()
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        results = sm.GLM(y, x, family=sm.families.Binomial(sm.families.links.Cauchy())).fit()
-    with pytest.raises(ScorewrightError) as err:
-        scorewright.freeze(results)
-    assert "Cauchy" in str(err.value) and "\n" not in str(err.value)
+def test_cauchit_is_the_cauchy_cdf_to_a_few_ulps():
+    """1/2 + atan(m)/pi against mpmath at 200 bits, across the body and both tails (the
+    far tail through atan(1/|m|), so no cancellation): within 2 ULP relative; the
+    polynomial's coefficients are refitted by mpmath."""
+    from scorewright.program import fit_atan_coefficients, ATAN_P
+
+    assert [float.fromhex(c) for c in fit_atan_coefficients()] == list(ATAN_P)
+    margins = list(_margins(-60.0, 60.0, 3000)) + [0.0, -0.0, 1e-300, -1e-300, 7 / 16,
+                                                   11 / 16, 1.0, -1.0, 1e10, -1e10, 1e30,
+                                                   -1e30, math.nextafter(1.0, 2.0)]
+    worst = 0.0
+    for m in margins:
+        with mp.workprec(200):
+            want = mp.mpf(0.5) + mp.atan(mp.mpf(m)) / mp.pi
+        got = link_probability("cauchit", m)
+        worst = max(worst, float(abs((mp.mpf(got) - want) / want)))
+    assert worst <= 2 * 2.0 ** -52, worst / 2.0 ** -52
 
 
 def _probit_model(link="probit"):
     y, x, exog = _spector()
     family = sm.families.Binomial(getattr(sm.families.links,
-                                          {"probit": "Probit", "cloglog": "CLogLog"}[link])())
+                                          {"probit": "Probit", "cloglog": "CLogLog",
+                                           "cauchit": "Cauchy"}[link])())
     return scorewright.freeze(sm.GLM(y, x, family=family).fit(), check_rows=exog)
 
 
@@ -177,7 +188,7 @@ def test_the_model_file_says_version_2_only_when_it_needs_to():
         parse_model(json.dumps(doc))
 
 
-@pytest.mark.parametrize("link", ["probit", "cloglog"])
+@pytest.mark.parametrize("link", ["probit", "cloglog", "cauchit"])
 def test_links_verify_on_the_targets_that_render_the_program(link, tmp_path):
     """Python and the portable-exp C and Java builds bit-identical with the reference;
     C with glibc's exp bit-identical too; firmware (newlib's exp) within its profile."""

@@ -35,9 +35,9 @@ SCALING_OPS = ("subtract", "divide", "multiply", "add")
 TRANSFORM_OPS = ("log", "log1p", "sqrt")
 # transform -> (edge, whether the edge itself is outside): log x <= 0, log1p x <= -1, sqrt x < 0
 TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, False)}
-TASK_LINKS = {"binary": ("logit", "probit", "cloglog"), "multiclass": ("softmax",),
+TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit"), "multiclass": ("softmax",),
               "regression": ("identity", "log", "inverse")}
-LINK_VERSION = {"probit": 2, "cloglog": 2, "inverse": 2}  # links a version 1 file cannot hold
+LINK_VERSION = {"probit": 2, "cloglog": 2, "inverse": 2, "cauchit": 2}  # links a version 1 file cannot hold
 
 Level = Union[str, int]
 

@@ -97,7 +97,8 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
             fields.append(Field(inp.index, name, comment_text(inp.name), "int", "categorical",
                                 tuple((string_literal(lv), len(lv.encode("utf-8")))
                                       for lv in levels)))
-    uses_exp = not decision_only and (plan.task != "regression" or plan.link == "log")
+    program = lower(plan)
+    uses_exp = not decision_only and any(op.op == "exp" for op in program.ops)
     routine = exp_routine(prefix) if portable and uses_exp else None
     libm_exp = None
     if routine is not None:
@@ -108,7 +109,6 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         exp_fn = libm_exp["name"]
     else:
         exp_fn = prec.exp
-    program = lower(plan)
     split = split_margins(program, ROW_PART_TERMS)
     spelling = c_spelling(prec, exp_fn)
     tables = _table_names(plan, prefix)

@@ -55,13 +55,14 @@ DISCRETE = {"Logit": ("binary", "logit"), "Probit": ("binary", "probit"),
 GLM_LINKS = {("Binomial", "Logit"): ("binary", "logit"),
              ("Binomial", "Probit"): ("binary", "probit"),
              ("Binomial", "CLogLog"): ("binary", "cloglog"),
+             ("Binomial", "Cauchy"): ("binary", "cauchit"),
              ("Gaussian", "Identity"): ("regression", "identity"),
              ("Gamma", "InversePower"): ("regression", "inverse"),
              ("Gaussian", "InversePower"): ("regression", "inverse")}
 LOG_FAMILIES = ("Poisson", "Gamma", "Tweedie", "NegativeBinomial", "Gaussian", "InverseGaussian")
 # statsmodels' deprecated lower-case link classes are subclasses of these
 LINK_NAMES = {"probit": "Probit", "cloglog": "CLogLog", "logit": "Logit", "log": "Log",
-              "identity": "Identity", "inverse_power": "InversePower"}
+              "identity": "Identity", "inverse_power": "InversePower", "cauchy": "Cauchy"}
 
 
 class Unsupported(ScorewrightError):
@@ -162,7 +163,8 @@ def _task_and_link(model, kind: str) -> tuple[str, str]:
     if fam in LOG_FAMILIES and lnk == "Log":
         return "regression", "log"
     raise Unsupported(f"GLM {fam} family with the {lnk} link is not supported; frozen links: "
-                      "Binomial with logit, probit or cloglog, Gaussian/identity, inverse for "
+                      "Binomial with logit, probit, cloglog or cauchit, Gaussian/identity, "
+                      "inverse for "
                       "Gamma and Gaussian, log for Poisson, Gamma, Tweedie, NegativeBinomial, "
                       "Gaussian and InverseGaussian")
 
@@ -172,7 +174,7 @@ def half_cut(link: str) -> float:
     of the margin (p1 is exactly 0.5 there; margins within about 1e-16 above it round to
     0.5 too). For cloglog: the largest margin whose positive-class probability, as the
     scoring program computes it, is at most 0.5, found near ln(ln 2) a double at a time."""
-    if link in ("logit", "probit"):
+    if link in ("logit", "probit", "cauchit"):
         return 0.0
     from ..program import link_probability
 
