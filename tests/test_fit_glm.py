@@ -241,3 +241,51 @@ def _top(series):
     """The most frequent level (ties: the first sorted): fit's reference level."""
     counts = series.value_counts()
     return sorted(level for level, n in counts.items() if n == counts.max())[0]
+
+
+def test_negative_binomial_matches_statsmodels(tmp_path):
+    """--model negative-binomial: NB2 with the log link, coefficients, alpha and the
+    inference table equal statsmodels' NegativeBinomial on the raw columns (the fit runs on
+    standardized ones; the maximum is the same); the RAND health insurance experiment's
+    doctor-visit counts (statsmodels ships the data set; its first 3,000 rows)."""
+    import json
+
+    d = sm.datasets.randhie.load_pandas().data.head(3000)
+    path = tmp_path / "randhie.csv"
+    d.to_csv(path, index=False)
+    run = _fit_args(path, tmp_path / "m.json", "--label", "mdvis", "--model",
+                    "negative-binomial")
+    assert run.returncode == 0, run.stderr
+    doc = json.loads((tmp_path / "m.json").read_text())
+    x = sm.add_constant(d.drop(columns="mdvis"))
+    ref = sm.NegativeBinomial(d.mdvis, x).fit(disp=0, method="newton", maxiter=300)
+    assert doc["provenance"]["created"]["nb2_alpha"] == pytest.approx(ref.params["alpha"],
+                                                                       rel=1e-6)
+    ours = {r["term"]: r for r in doc["provenance"]["metrics"]["coefficients"]}
+    for term, mine in ours.items():
+        name = "const" if term == "intercept" else term
+        assert mine["estimate"] == pytest.approx(ref.params[name], rel=1e-6, abs=1e-10)
+        assert mine["se"] == pytest.approx(ref.bse[name], rel=1e-5)
+        assert mine["p_value"] == pytest.approx(ref.pvalues[name], rel=1e-4, abs=1e-300)
+    plan = build_plan(load_model(tmp_path / "m.json"))
+    rows = d.drop(columns="mdvis").head(200)
+    got = np.array([score_row(plan, r).value for r in rows.to_dict("records")])
+    np.testing.assert_allclose(got, ref.predict(x.head(200)), rtol=1e-7)
+    run = _fit_args(path, tmp_path / "n.json", "--label", "mdvis", "--model",
+                    "negative-binomial", "--penalty", "l2")
+    assert run.returncode == 2 and "--penalty none" in run.stderr
+
+
+def test_negative_binomial_takes_an_exposure_as_its_offset(cancer, tmp_path):
+    """With --exposure the negative binomial model is fitted with the offset log(e), as
+    statsmodels' NegativeBinomial(exposure=e) is, and outputs the expected count."""
+    d, path = cancer
+    run = _fit_args(path, tmp_path / "m.json", "--label", "cancer", "--model",
+                    "negative-binomial", "--exposure", "population")
+    assert run.returncode == 0, run.stderr
+    x = sm.add_constant(d[["population_k"]])
+    ref = sm.NegativeBinomial(d.cancer, x, exposure=d.population).fit(disp=0, method="newton",
+                                                                      maxiter=300)
+    plan = build_plan(load_model(tmp_path / "m.json"))
+    got = np.array([score_row(plan, r).value for r in d.to_dict("records")])
+    np.testing.assert_allclose(got, ref.predict(x, exposure=d.population), rtol=1e-6)

@@ -158,10 +158,11 @@ def _name_list(option: str, text: str | None) -> list[str] | None:
 @click.option("--max-levels", default=30, show_default=True,
               help="Most levels a categorical column may have.")
 @click.option("--model", "model_kind", metavar="FAMILY",
-              help="Model family: logistic, multinomial, linear, poisson, gamma or "
-                   "tweedie[:POWER] (1 < POWER < 2; default 1.5); default: from the label.")
-@click.option("--penalty", default="l2", show_default=True,
-              type=click.Choice(["l2", "l1", "elasticnet", "none"]))
+              help="Model family: logistic, multinomial, linear, poisson, negative-binomial, "
+                   "gamma or tweedie[:POWER] (1 < POWER < 2; default 1.5); default: from the "
+                   "label.")
+@click.option("--penalty", type=click.Choice(["l2", "l1", "elasticnet", "none"]),
+              help="Penalty (default: l2; none for negative-binomial).")
 @click.option("--cv", default=5, show_default=True, help="Cross-validation folds.")
 @click.option("--class-weight", type=click.Choice(["balanced"]),
               help="Weight classes inversely to their frequency.")

@@ -100,8 +100,8 @@ def logistic_inference(design: np.ndarray, y: np.ndarray, intercept: float, coef
 
 def glm_inference(design: np.ndarray, y: np.ndarray, intercept: float, coef: np.ndarray,
                   names: list[str], means: np.ndarray, scales: np.ndarray, model: str,
-                  power: float | None = None, exposure: np.ndarray | None = None
-                  ) -> Inference:
+                  power: float | None = None, exposure: np.ndarray | None = None,
+                  cov_std: np.ndarray | None = None) -> Inference:
     """`design` is the standardized design matrix the model was fitted on; its first
     len(means) columns are the standardized numeric features. `model`: logistic, linear,
     or a log-link model of Tweedie `power`."""
@@ -127,9 +127,14 @@ def glm_inference(design: np.ndarray, y: np.ndarray, intercept: float, coef: np.
         df = float(n - k - 1)
     info = x.T @ (x * w[:, None])
     condition = float(np.linalg.cond(info))
-    cov_std = np.linalg.pinv(info) if not np.isfinite(condition) or condition > 1e15 \
-        else np.linalg.inv(info)
-    cov_std = scale * (cov_std + cov_std.T) / 2.0
+    if cov_std is None:
+        cov_std = np.linalg.pinv(info) if not np.isfinite(condition) or condition > 1e15 \
+            else np.linalg.inv(info)
+        cov_std = scale * (cov_std + cov_std.T) / 2.0
+    else:
+        # the fitter's own covariance (a negative binomial model: statsmodels' inverse
+        # Hessian of the likelihood of the coefficients and alpha, alpha's row left out)
+        cov_std = (np.asarray(cov_std, dtype=np.float64) + np.asarray(cov_std).T) / 2.0
     n_num = len(means)
     a = np.eye(k + 1)
     for j in range(n_num):

@@ -45,7 +45,7 @@ class FitOptions:
     numeric: list | None = None
     max_levels: int = 30
     model: str | None = None
-    penalty: str = "l2"
+    penalty: str | None = None  # None: l2, or none for a negative binomial model
     cv: int = 5
     class_weight: str | None = None
     cut: str | None = None
@@ -118,7 +118,8 @@ def fit_table(table: Table, opts: FitOptions, progress: bool = True, echo=None) 
         if x[name.name].isna().all():
             raise ScorewrightError(f"column {name.name!r} has no values in the labelled rows; "
                                    f"leave it out with --drop {shlex.quote(name.name)}")
-    spec = Spec(label.model, opts.penalty, opts.class_weight, opts.seed)
+    penalty = opts.penalty or ("none" if label.model == "negative-binomial" else "l2")
+    spec = Spec(label.model, penalty, opts.class_weight, opts.seed)
     check_spec(spec)
     if opts.cut is not None and label.model != "logistic":
         raise ScorewrightError(f"--cut applies to a binary (logistic) model, not {label.model}")
@@ -154,6 +155,9 @@ def _extra_columns(frame, opts: FitOptions, label: Label) -> dict:
             raise ScorewrightError(f"--{kind} {column!r} is the label")
         if column in extra:
             raise ScorewrightError(f"--{kind} {column!r} is already the --{extra[column]}")
+        if kind == "weights" and label.model == "negative-binomial":
+            raise ScorewrightError("--weights is not available for --model negative-binomial "
+                                   "(statsmodels' NegativeBinomial takes no row weights)")
         if kind != "weights" and log_link_power(label.model) is None:
             raise ScorewrightError(f"--{kind} applies to a count or amount model with a log "
                                    f"link (poisson, gamma, tweedie), not --model {label.model}")
@@ -207,7 +211,8 @@ def _use_extra_columns(extra: dict, label: Label, x, frame):
 def _task_line(label: Label, spec: Spec) -> str:
     what = {"logistic": "binary logistic", "multinomial": "multinomial logistic",
             "linear": "linear regression", "poisson": "Poisson regression (log link)",
-            "gamma": "gamma regression (log link)"}
+            "gamma": "gamma regression (log link)",
+            "negative-binomial": "negative binomial regression (NB2, log link)"}
     name = what.get(spec.model) or (f"Tweedie regression, power {spec.model.split(':')[1]} "
                                     "(log link)")
     line = f"model: {name}, penalty {spec.penalty}"
@@ -361,6 +366,9 @@ def _with_provenance(model: FrozenModel, r: FitResult, opts: FitOptions) -> Froz
         "exposure": opts.exposure, "offset": opts.offset, "weights": opts.weights,
         "selection": f"lowest mean cross-validated {v.loss_name}",
     }
+    alpha = getattr(v.pipeline.named_steps["estimate"], "alpha_", None)
+    if r.spec.model == "negative-binomial" and alpha is not None:
+        created["nb2_alpha"] = alpha  # the dispersion: variance mu + alpha mu^2
     created["self_check"] = r.self_check.summary()
     if r.self_check.notes:
         created["self_check_notes"] = r.self_check.notes

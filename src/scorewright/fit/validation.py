@@ -23,7 +23,8 @@ from . import diagnostics, metrics
 from .labels import log_link_power
 from .cut import CutRule, choose_threshold
 from .labels import Label
-from .pipeline import Spec, design_names, make_pipeline, reference_levels, standardization
+from .pipeline import (NEGATIVE_BINOMIAL, Spec, design_names, make_pipeline,
+                       reference_levels, standardization)
 from .pipeline import strength_grid
 
 
@@ -63,11 +64,12 @@ def _loss(spec: Spec, y, pred, weights=None) -> float:
     return float(np.average((np.asarray(y) - pred) ** 2, weights=weights))
 
 
-def _fit(pipe, x, y, sample_weight=None) -> bool:
-    """Fit; False when the solver warned that it did not converge."""
+def _fit(pipe, x, y, extra=None) -> bool:
+    """Fit (`extra`: the estimator's fit parameters); False when the solver warned that it
+    did not converge."""
     from sklearn.exceptions import ConvergenceWarning
 
-    extra = {} if sample_weight is None else {"estimate__sample_weight": sample_weight}
+    extra = {f"estimate__{k}": v for k, v in (extra or {}).items()}
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         pipe.fit(x, y, **extra)
@@ -93,14 +95,20 @@ class RowTerms:
             e = np.exp(columns["offset"])
         return cls(e, columns.get("weights"))
 
-    def target(self, y, idx, power):
+    def target(self, y, idx, spec: Spec):
+        """The target and the estimator's fit parameters for rows `idx`. A negative
+        binomial model takes the exposure as its offset log(e) and fits the counts."""
+        if spec.model == NEGATIVE_BINOMIAL:
+            return y[idx], ({} if self.exposure is None else
+                            {"offset": np.log(self.exposure[idx])})
         if self.exposure is None:
-            return y[idx], None if self.weights is None else self.weights[idx]
+            return y[idx], ({} if self.weights is None else
+                            {"sample_weight": self.weights[idx]})
         e = self.exposure[idx]
-        w = e ** (2.0 - power)
+        w = e ** (2.0 - log_link_power(spec.model))
         if self.weights is not None:
             w = w * self.weights[idx]
-        return y[idx] / e, w
+        return y[idx] / e, {"sample_weight": w}
 
     def count(self, pred, idx):
         return pred if self.exposure is None else pred * self.exposure[idx]
@@ -149,9 +157,8 @@ def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: i
 
     y = label.y
     terms = RowTerms.of(columns)
-    power = log_link_power(spec.model)
     v = Validation(loss_name="log loss" if spec.classifier else
-                   "Poisson deviance" if spec.model == "poisson" else
+                   "Poisson deviance" if spec.model in ("poisson", NEGATIVE_BINOMIAL) else
                    f"{spec.model.split(':')[0]} deviance"
                    if log_link_power(spec.model) is not None else "squared error")
     train, test, splits = _splits(spec, y, folds, test_fraction, spec.seed)
@@ -174,8 +181,8 @@ def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: i
             for tr, va in splits:
                 pipe = make_pipeline(schema, spec, strength, refs)
                 v.cv_fits += 1
-                target, sw = terms.target(y, train[tr], power)
-                v.cv_unconverged += not _fit(pipe, x_train.iloc[tr], target, sw)
+                target, extra = terms.target(y, train[tr], spec)
+                v.cv_unconverged += not _fit(pipe, x_train.iloc[tr], target, extra)
                 p = terms.count(predict(pipe, spec, x_train.iloc[va]), train[va])
                 if pred is None:
                     pred = np.zeros((len(train),) + p.shape[1:])
@@ -189,8 +196,8 @@ def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: i
         v.chosen = v.grid[best]
         v.oof_y, v.oof_pred = y_train, oof[best]
         v.pipeline = make_pipeline(schema, spec, v.chosen, refs)
-        target, sw = terms.target(y, train, power)
-        converged = _fit(v.pipeline, x_train, target, sw)
+        target, extra = terms.target(y, train, spec)
+        converged = _fit(v.pipeline, x_train, target, extra)
         if bar is not None:
             bar.update(1)
     finally:
@@ -252,4 +259,5 @@ def fitted_inference(v: Validation, schema, x, label: Label, spec: Spec):
         exposure = v.terms.exposure[v.train_index]
     return glm_inference(design, label.y[v.train_index], intercept, coef,
                          design_names(pipe, schema), means, scales, spec.model,
-                         log_link_power(spec.model), exposure)
+                         log_link_power(spec.model), exposure,
+                         cov_std=getattr(est, "cov_", None))
