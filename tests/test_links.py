@@ -18,8 +18,8 @@ from scorewright.errors import ModelFileError, ScorewrightError
 from scorewright.freeze.statsmodels import half_cut
 from scorewright.freeze import freeze_checked
 from scorewright.model import Head, canonical_sha256, parse_model
-from scorewright.plan import FLOAT
-from scorewright.program import link_probability
+from scorewright.plan import FLOAT, build_plan
+from scorewright.program import link_probability, lower, run_row
 
 sm = pytest.importorskip("statsmodels.api")
 
@@ -134,7 +134,8 @@ def test_spector_probit_matches_the_published_fit_and_predicts_alike():
     assert np.all(np.abs(got - want) <= 1e-12)
 
 
-@pytest.mark.parametrize("link, name", [("probit", "Probit"), ("cloglog", "CLogLog")])
+@pytest.mark.parametrize("link, name", [("probit", "Probit"), ("cloglog", "CLogLog"),
+                                        ("cauchit", "Cauchy")])
 def test_glm_binomial_links_freeze_and_agree(link, name):
     y, x, exog = _spector()
     family = sm.families.Binomial(getattr(sm.families.links, name)())
@@ -144,20 +145,30 @@ def test_glm_binomial_links_freeze_and_agree(link, name):
     assert "Binomial" in model.provenance["source"]
 
 
-def test_a_cauchy_link_is_refused_in_one_line():
-    y, x, _ = _spector()
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        results = sm.GLM(y, x, family=sm.families.Binomial(sm.families.links.Cauchy())).fit()
-    with pytest.raises(ScorewrightError) as err:
-        scorewright.freeze(results)
-    assert "Cauchy" in str(err.value) and "\n" not in str(err.value)
+def test_cauchit_is_the_cauchy_cdf_to_a_few_ulps():
+    """1/2 + atan(m)/pi against mpmath at 200 bits, across the body and both tails (the
+    far tail through atan(1/|m|), so no cancellation): within 2 ULP relative; the
+    polynomial's coefficients are refitted by mpmath."""
+    from scorewright.program import fit_atan_coefficients, ATAN_P
+
+    assert [float.fromhex(c) for c in fit_atan_coefficients()] == list(ATAN_P)
+    margins = list(_margins(-60.0, 60.0, 3000)) + [0.0, -0.0, 1e-300, -1e-300, 7 / 16,
+                                                   11 / 16, 1.0, -1.0, 1e10, -1e10, 1e30,
+                                                   -1e30, math.nextafter(1.0, 2.0)]
+    worst = 0.0
+    for m in margins:
+        with mp.workprec(200):
+            want = mp.mpf(0.5) + mp.atan(mp.mpf(m)) / mp.pi
+        got = link_probability("cauchit", m)
+        worst = max(worst, float(abs((mp.mpf(got) - want) / want)))
+    assert worst <= 2 * 2.0 ** -52, worst / 2.0 ** -52
 
 
 def _probit_model(link="probit"):
     y, x, exog = _spector()
     family = sm.families.Binomial(getattr(sm.families.links,
-                                          {"probit": "Probit", "cloglog": "CLogLog"}[link])())
+                                          {"probit": "Probit", "cloglog": "CLogLog",
+                                           "cauchit": "Cauchy"}[link])())
     return scorewright.freeze(sm.GLM(y, x, family=family).fit(), check_rows=exog)
 
 
@@ -177,7 +188,7 @@ def test_the_model_file_says_version_2_only_when_it_needs_to():
         parse_model(json.dumps(doc))
 
 
-@pytest.mark.parametrize("link", ["probit", "cloglog"])
+@pytest.mark.parametrize("link", ["probit", "cloglog", "cauchit"])
 def test_links_verify_on_the_targets_that_render_the_program(link, tmp_path):
     """Python and the portable-exp C and Java builds bit-identical with the reference;
     C with glibc's exp bit-identical too; firmware (newlib's exp) within its profile."""
@@ -195,3 +206,54 @@ def test_links_verify_on_the_targets_that_render_the_program(link, tmp_path):
 def test_head_accepts_the_new_links():
     assert Head("binary", "cloglog", (0, 1), (0.0,), ((1.0,),), half_cut("cloglog"))
     assert portable_exp.exp(0.0) == 1.0
+
+
+def _inverse_probe() -> "FrozenModel":
+    """An inverse-link model whose value is 1 / x of its one input."""
+    from scorewright.model import DesignColumn, FrozenModel, NumericFeature
+    head = Head("regression", "inverse", None, (0.0,), ((1.0,),), None)
+    return FrozenModel("inverse_probe", (NumericFeature("cycle_seconds", None),),
+                       (DesignColumn("cycle_seconds"),), head,
+                       {"scorewright_version": "test", "source": "inverse probe"}).sealed()
+
+
+def test_gamma_inverse_link_agrees_with_statsmodels():
+    """The Scottish vote data (statsmodels ships it), a Gamma GLM with statsmodels'
+    default (canonical) InversePower link: the frozen value agrees with predict to 1e-12;
+    the file says format version 3 (a version 2 reader does not know the link)."""
+    data = sm.datasets.scotland.load_pandas()
+    x = data.exog[["COUTAX", "UNEMPF", "MOR", "ACT"]]
+    x = (x - x.mean()) / x.std()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # statsmodels: the link does not respect the domain
+        results = sm.GLM(data.endog, sm.add_constant(x), family=sm.families.Gamma()).fit()
+    model = scorewright.freeze(results, check_rows=x)
+    assert model.head.link == "inverse"
+    assert json.loads(model.to_json())["format_version"] == 3
+    plan = build_plan(model)
+    program = lower(plan)
+    want = np.asarray(results.predict(sm.add_constant(x)))
+    got = np.array([run_row(program, r)["value"] for r in x.to_dict("records")])
+    assert np.all(np.abs(got - want) <= 1e-12 * np.abs(want))
+
+
+def test_the_inverse_link_near_zero_is_the_stated_value_on_every_target(tmp_path):
+    """1 / m; a margin nearer zero than the smallest normal number divides by that number
+    with the margin's sign (+0 and -0 as +): no target divides by zero, overflows or
+    raises (PostgreSQL raises on both). Python, gcc, javac, onnxruntime, SQLite, DuckDB."""
+    from scorewright.verify.harness import build_targets
+
+    program = lower(build_plan(_inverse_probe()))
+    tiny = 2.0 ** -1022
+    for x, want in [(2.0, 0.5), (-4.0, -0.25), (0.0, 1 / tiny), (-0.0, 1 / tiny),
+                    (5e-324, 1 / tiny), (-5e-324, -1 / tiny), (tiny, 1 / tiny),
+                    (-tiny, -1 / tiny), (1e200, 1 / 1e200)]:
+        assert run_row(program, {"cycle_seconds": x})["value"] == want, x
+    rows = tmp_path / "rows.csv"
+    grid = [0.0, -0.0, 5e-324, -5e-324, tiny, -tiny, math.nextafter(tiny, 0.0),
+            math.nextafter(-tiny, 0.0), 1e-300, -1e-300, 1.0, -3.0, 7e307, -7e307]
+    rows.write_text("cycle_seconds\n" + "".join(f"{v!r}\n" for v in grid))
+    report = build_targets(_inverse_probe(), tmp_path / "out", data=rows, n_random=100,
+                           targets=["python", "c-double", "c-float", "java", "onnx-double",
+                                    "sql-sqlite", "sql-duckdb"])
+    assert report.ok, [(r.profile.name, r.message) for r in report.results]

@@ -128,3 +128,35 @@ def test_cli_freezes_saved_results_with_an_exposure(tmp_path):
                           "-o", str(tmp_path / "again.json")], capture_output=True, text=True)
     assert run.returncode == 2 and "--exposure COLUMN" in run.stderr
     assert "Traceback" not in run.stderr
+
+
+def test_a_scikit_learn_rate_model_takes_its_exposure_at_freeze(tmp_path):
+    """scikit-learn's PoissonRegressor fitted on rates with sample_weight = exposure (the
+    count model's estimating equations): freeze(est, exposure=...) makes the exposure an
+    input; the frozen model agrees with est.predict(x) * exposure (scikit-learn, the
+    outside source) to 1e-12 through the self-check and here, and builds on CPython and
+    SQLite. Rice's breast cancer counts with the population at risk (statsmodels ships
+    the data set)."""
+    from sklearn.linear_model import PoissonRegressor
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    from scorewright.verify.harness import build_targets
+
+    d = sm.datasets.cancer.load_pandas().data
+    x = pd.DataFrame({"population_k": d.population / 1000.0})
+    est = make_pipeline(StandardScaler(), PoissonRegressor(alpha=0.0, tol=1e-12)).fit(
+        x, d.cancer / d.population, poissonregressor__sample_weight=d.population)
+    rows = x.assign(population=d.population)
+    model, checked = freeze_checked(est, exposure="population", check_rows=rows)
+    assert [f.name for f in model.features] == ["population_k", "population"]
+    assert any("counts as 1" in r for r in checked.rules)
+    plan = build_plan(model)
+    got = np.array([score_row(plan, r).value for r in rows.to_dict("records")])
+    want = est.predict(x) * d.population.to_numpy()
+    np.testing.assert_allclose(got, want, rtol=1e-12)
+    report = build_targets(model, tmp_path, targets=["python", "sql-sqlite"], data=None,
+                           n_random=200)
+    assert report.ok, [r.message for r in report.results]
+    with pytest.raises(ScorewrightError, match="give one"):
+        scorewright.freeze(est, exposure="population", offset="population_k")

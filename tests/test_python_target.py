@@ -176,3 +176,35 @@ def test_hostile_names_stay_inside_string_literals(tmp_path):
     top = [n for n in tree.body if isinstance(n, (ast.FunctionDef, ast.Assign, ast.Import,
                                                    ast.ImportFrom, ast.If, ast.Expr))]
     assert len(top) == len(tree.body)
+
+
+@pytest.mark.parametrize("name", sorted(models.BUILDERS))
+def test_the_fast_paths_change_no_bit(name, tmp_path):
+    """The scorer tests a float inside the input's bound first and writes values used once
+    inside their user; neither may change a bit. Each numeric input takes the bound itself,
+    one ULP either side of it, a numpy float (a float subclass: the slow path), -0.0, a
+    subnormal, an int and a bool; each categorical input a level, '', a non-str and None.
+    The truth is the reference evaluator (scorewright.reference.score_row)."""
+    tm = models.build(name)
+    plan = build_plan(tm.model)
+    scorer = _import(_write(tm.model, tmp_path))
+    base = tm.frame.iloc[0].to_dict()
+    rows = []
+    for inp in plan.inputs:
+        feature = plan.feature_names[inp.index]
+        if inp.kind == "categorical":
+            odd = [inp.levels[0], "", 7, None, str(inp.levels[-1])]
+        else:
+            b = float(inp.bound)
+            odd = [b, -b, math.nextafter(b, math.inf), math.nextafter(-b, -math.inf),
+                   math.nextafter(b, 0.0), np.float64(1.5), np.float64(math.nan), -0.0,
+                   5e-324, 3, True, math.nan, "2.5"]
+        rows += [dict(base, **{feature: v}) for v in odd]
+    for row in rows:
+        ref = score_row(plan, row)
+        margins = scorer.margin(row)
+        assert _bits(margins if plan.task == "multiclass" else [margins]) == _bits(ref.margins)
+        if plan.task == "regression":
+            assert _bits([scorer.predict(row)]) == _bits([ref.value])
+        else:
+            assert _bits(scorer.predict_proba(row)) == _bits(ref.probabilities)

@@ -85,9 +85,11 @@ def _split_names(text: str | None) -> list[str] | None:
                    "made the layer's inputs.")
 @click.option("--classes", help="torch state_dict (.pt): comma-separated class labels.")
 @click.option("--offset", metavar="COLUMN",
-              help="statsmodels results fitted with offset=: the column that holds it.")
+              help="statsmodels results fitted with offset= (or a scikit-learn rate model): "
+                   "the column that holds it.")
 @click.option("--exposure", metavar="COLUMN",
-              help="statsmodels results fitted with exposure=: the column that holds it.")
+              help="statsmodels results fitted with exposure= (or a scikit-learn model fitted "
+                   "on rates): the column that holds it; artifacts output the expected count.")
 @click.option("--force", is_flag=True, help="Overwrite an existing output file.")
 def freeze(pickle_file, output, name, feature_names, check_data, task, preprocessor, classes,
            offset, exposure, force):
@@ -156,10 +158,11 @@ def _name_list(option: str, text: str | None) -> list[str] | None:
 @click.option("--max-levels", default=30, show_default=True,
               help="Most levels a categorical column may have.")
 @click.option("--model", "model_kind", metavar="FAMILY",
-              help="Model family: logistic, multinomial, linear, poisson, gamma or "
-                   "tweedie[:POWER] (1 < POWER < 2; default 1.5); default: from the label.")
-@click.option("--penalty", default="l2", show_default=True,
-              type=click.Choice(["l2", "l1", "elasticnet", "none"]))
+              help="Model family: logistic, multinomial, linear, poisson, negative-binomial, "
+                   "gamma or tweedie[:POWER] (1 < POWER < 2; default 1.5); default: from the "
+                   "label.")
+@click.option("--penalty", type=click.Choice(["l2", "l1", "elasticnet", "none"]),
+              help="Penalty (default: l2; none for negative-binomial).")
 @click.option("--cv", default=5, show_default=True, help="Cross-validation folds.")
 @click.option("--class-weight", type=click.Choice(["balanced"]),
               help="Weight classes inversely to their frequency.")
@@ -168,12 +171,18 @@ def _name_list(option: str, text: str | None) -> list[str] | None:
               help="Share of rows held out as the test part (0: none).")
 @click.option("--seed", default=0, show_default=True, help="Seed for the splits.")
 @click.option("--name", help="Model name (default: the label column).")
+@click.option("--exposure", metavar="COLUMN",
+              help="Count models: the exposure column (years, hours); the model fits the rate "
+                   "and its artifacts take the column and output the expected count.")
+@click.option("--offset", metavar="COLUMN",
+              help="Count models: a column added to the margin (the log of an exposure).")
+@click.option("--weights", metavar="COLUMN", help="A column of non-negative row weights.")
 @click.option("--report", "report_dir", type=click.Path(file_okay=False),
               help="Write report.html into this directory.")
 @click.option("--force", is_flag=True, help="Overwrite existing output files.")
 def fit(data, output, label, positive, features, drop, categorical, numeric, max_levels,
-        model_kind, penalty, cv, class_weight, cut, test_fraction, seed, name, report_dir,
-        force):
+        model_kind, penalty, cv, class_weight, cut, test_fraction, seed, name, exposure,
+        offset, weights, report_dir, force):
     """Fit and validate a model from a CSV or Parquet file, and freeze it."""
     from .files import check_writable, write_atomic
     from .fit import FitOptions, fit_file
@@ -189,7 +198,8 @@ def fit(data, output, label, positive, features, drop, categorical, numeric, max
         drop=_name_list("--drop", drop), categorical=_name_list("--categorical", categorical),
         numeric=_name_list("--numeric", numeric), max_levels=max_levels, model=model_kind,
         penalty=penalty, cv=cv, class_weight=class_weight, cut=cut, seed=seed,
-        test_fraction=test_fraction, name=name)
+        test_fraction=test_fraction, name=name, exposure=exposure, offset=offset,
+        weights=weights)
     result = fit_file(data, opts, echo=click.echo)
     for line in result_lines(result):
         click.echo(line)

@@ -44,11 +44,14 @@ POWER_OPS = ("yeo_johnson", "box_cox")
 TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, False),
                     "box_cox": (0.0, True)}
 # multiclass "ovr_logit": one-vs-rest logistic, each class's sigmoid divided by their sum;
-# regression "log1p": the value is expm1(margin), "sqrt": the value is margin * margin
-TASK_LINKS = {"binary": ("logit", "probit", "cloglog"), "multiclass": ("softmax", "ovr_logit"),
-              "regression": ("identity", "log", "log1p", "sqrt")}
+# regression "log1p": the value is expm1(margin), "sqrt": the value is margin * margin,
+# "inverse": 1 / margin (statsmodels' InversePower); binary "cauchit": the Cauchy CDF
+TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit"),
+              "multiclass": ("softmax", "ovr_logit"),
+              "regression": ("identity", "log", "log1p", "sqrt", "inverse")}
 # links an older file version cannot hold
-LINK_VERSION = {"probit": 2, "cloglog": 2, "ovr_logit": 3, "log1p": 3, "sqrt": 3}
+LINK_VERSION = {"probit": 2, "cloglog": 2, "ovr_logit": 3, "log1p": 3, "sqrt": 3,
+                "inverse": 3, "cauchit": 3}
 
 Level = Union[str, int]
 

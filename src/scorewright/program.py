@@ -625,6 +625,8 @@ def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
         top = math.sqrt(plan.precision.max_value)
         g = b.emit("min", b.emit("max", m, Const(-top)), Const(top))
         return [m, b.emit("mul", g, g, hint="y")]
+    if plan.link == "inverse":
+        return [m, _lower_inverse(b, plan, m)]
     return [m, m]
 
 
@@ -664,6 +666,23 @@ def _lower_expm1(b: _Builder, g, single: bool = False):
         rest = b.emit("add", rest, b.emit("select", down, Const(float(j)), Const(0.0)))
     whole = b.emit("sub", b.emit("mul", b.emit("add", e, Const(1.0)), scale), Const(1.0))
     return b.emit("select", b.emit("eq", k, Const(0.0)), e, whole, hint="y")
+
+
+def inverse_floor(plan: Plan) -> float:
+    """The smallest normal number of the plan's precision: the inverse link divides by a
+    margin at least this far from zero."""
+    return 2.0 ** -126 if plan.precision.name == "float" else 2.0 ** -1022
+
+
+def _lower_inverse(b: _Builder, plan: Plan, m):
+    """1 / m (a Gamma model's inverse link: statsmodels' InversePower). A margin nearer
+    zero than the smallest normal number, where 1 / m overflows or divides by zero, is
+    taken as that number with the margin's sign (+0 and -0 as +): the value is then the
+    largest the link gives (about 4.5e307 in double), the same on every target."""
+    tiny = inverse_floor(plan)
+    small = b.emit("gt", Const(tiny), b.emit("abs", m), hint="f")
+    edge = b.emit("select", b.emit("ge", m, Const(0.0), hint="f"), Const(tiny), Const(-tiny))
+    return b.emit("div", Const(1.0), b.emit("select", small, edge, m), hint="y")
 
 
 def _lower_logit(b: _Builder, plan: Plan, m) -> tuple[str, str]:
@@ -731,7 +750,72 @@ def _lower_cloglog(b: _Builder, plan: Plan, m) -> tuple[str, str]:
     return b.emit("sub", Const(1.0), p1, hint="p"), p1
 
 
-_BINARY_LINKS = {"logit": _lower_logit, "probit": _lower_probit, "cloglog": _lower_cloglog}
+# atan(u) = u + u^3 P(u^2) on |u| <= 7/16 (Chebyshev fit of 11 terms with mpmath;
+# `fit_atan_coefficients` re-derives them; at most 1.02 * 2^-53 relative, measured)
+ATAN_P = tuple(float.fromhex(c) for c in (
+    "-0x1.5555555555554p-2", "0x1.999999999885fp-3", "-0x1.24924923b06cdp-3",
+    "0x1.c71c7136517a9p-4", "-0x1.745cff6136307p-4", "0x1.3b116171b0dd7p-4",
+    "-0x1.10ed1cedbec09p-4", "0x1.df0b70d0fde14p-5", "-0x1.9c6054173be88p-5",
+    "0x1.35da608772867p-5", "-0x1.1f782b80bfd1ep-6"))
+ATAN_HALF = float.fromhex("0x1.dac670561bb4fp-2")   # atan(1/2), rounded (mpmath)
+QUARTER_PI = float.fromhex("0x1.921fb54442d18p-1")  # atan(1), rounded
+INV_PI = float.fromhex("0x1.45f306dc9c883p-2")      # 1/pi, rounded
+CAUCHIT_MAX = 2.0 ** 100  # a margin beyond +-2^100 is taken as +-2^100
+
+
+def fit_atan_coefficients(prec_bits: int = 200) -> list[str]:
+    import mpmath as mp
+
+    with mp.workprec(prec_bits):
+        top = mp.mpf(7) / 16
+
+        def g(z):
+            if z == 0:
+                return mp.mpf(-1) / 3
+            s = mp.sqrt(z)
+            return (mp.atan(s) - s) / s ** 3
+
+        poly = mp.chebyfit(g, [0, top ** 2 * mp.mpf("1.0001")], 11)
+        return [float.hex(float(c)) for c in reversed(poly)]
+
+
+def _lower_atan01(b: _Builder, t):
+    """atan(t) for t in [0, 1], the same bits everywhere: t is reduced around 0, 1/2 or 1
+    (below 7/16, below 11/16, else: atan(t) = atan(c) + atan((t - c) / (1 + t c))), then
+    the odd polynomial `ATAN_P` on |u| <= 7/16 (a classic method). Every branch is
+    computed and one selected; no division meets zero."""
+    r1 = b.emit("ge", t, Const(7.0 / 16.0), hint="f")
+    r2 = b.emit("ge", t, Const(11.0 / 16.0), hint="f")
+    half = b.emit("div", b.emit("sub", b.emit("add", t, t), Const(1.0)),
+                  b.emit("add", Const(2.0), t))
+    one = b.emit("div", b.emit("sub", t, Const(1.0)), b.emit("add", t, Const(1.0)))
+    u = b.emit("select", r2, one, b.emit("select", r1, half, t))
+    base = b.emit("select", r2, Const(QUARTER_PI),
+                  b.emit("select", r1, Const(ATAN_HALF), Const(0.0)))
+    z = b.emit("mul", u, u)
+    p = Const(ATAN_P[-1])
+    for c in reversed(ATAN_P[:-1]):
+        p = b.emit("add", b.emit("mul", p, z), Const(c))
+    return b.emit("add", base, b.emit("add", u, b.emit("mul", u, b.emit("mul", z, p))))
+
+
+def _lower_cauchit(b: _Builder, plan: Plan, m) -> tuple[str, str]:
+    """The Cauchy CDF 1/2 + atan(m)/pi through its upper tail q = P(X > |m|): for
+    |m| <= 1, 1/2 - atan(|m|)/pi; beyond, atan(1/|m|)/pi (no cancellation in the far
+    tail); p1 is q for a negative margin, else 1 - q; |m| at most CAUCHIT_MAX."""
+    a = b.emit("min", b.emit("abs", m), Const(CAUCHIT_MAX))
+    big = b.emit("gt", a, Const(1.0), hint="f")
+    t = b.emit("select", big, b.emit("div", Const(1.0), b.emit("select", big, a, Const(1.0))),
+               a)
+    share = b.emit("mul", _lower_atan01(b, t), Const(INV_PI))
+    q = b.emit("select", big, share, b.emit("sub", Const(0.5), share), hint="q")
+    p1 = b.emit("select", b.emit("ge", m, Const(0.0)), b.emit("sub", Const(1.0), q), q,
+                hint="p")
+    return b.emit("sub", Const(1.0), p1, hint="p"), p1
+
+
+_BINARY_LINKS = {"logit": _lower_logit, "probit": _lower_probit, "cloglog": _lower_cloglog,
+                 "cauchit": _lower_cauchit}
 
 
 def link_probability(link: str, margin: float, precision=None, exp_kind: str = "libm") -> float:

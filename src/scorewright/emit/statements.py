@@ -25,7 +25,9 @@ class Spelling:
     code: Callable[[int], str]         # a literal of a code
     assign: Callable[[str, str, str], str]  # (name, type, value) -> declaring statement
     reassign: Callable[[str, str], str]     # (name, value) -> a statement updating it
-    ops: dict[str, str]                # primitive -> text with {0}, {1}, ... operands
+    # primitive -> text with {0}, {1}, ... operands, or a function of (operands, fields)
+    # giving that text (a language whose spelling depends on the input, e.g. its levels)
+    ops: dict[str, str | Callable[..., str]]
     name: Callable[[str], str] = str   # a program name as the language's local name
     table_name: str = "_T{n}"          # lookup tables, numbered in order of first use
     # the most operands one statement of an ordered sum may hold (a compiler's parser
@@ -70,7 +72,9 @@ class Renderer:
                 out += self._sum_lines(op, args, text)
                 continue
             dest = self.spelling.name(op.dest)
-            out.append(self.spelling.assign(dest, op.type, text.format(*args, **self._fields(op))))
+            fields = self._fields(op)
+            value = text(*args, **fields) if callable(text) else text.format(*args, **fields)
+            out.append(self.spelling.assign(dest, op.type, value))
         return out
 
     def _fields(self, op: Op) -> dict:

@@ -46,9 +46,13 @@ def result_lines(result) -> list[str]:
                    + "; ".join(f"{classes[i]!r}: {row}" for i, row in
                                enumerate(result.test_confusion)))
     if result.inference is not None:
-        out.append("coefficients per original unit (95% interval), odds ratio:")
-        for row in result.inference.table():
-            ratio = f"  OR {row['odds_ratio']:.4g}" if "odds_ratio" in row else ""
+        inf = result.inference
+        named = {"odds_ratio": ", odds ratio", "mean_ratio": ", ratio of means"}
+        out.append(f"coefficients per original unit (95% interval){named.get(inf.ratio, '')}"
+                   f"{'' if inf.df is None else f' (t, {inf.df:.0f} df)'}:")
+        for row in inf.table():
+            ratio = (f"  OR {row['odds_ratio']:.4g}" if "odds_ratio" in row else
+                     f"  ratio {row['mean_ratio']:.4g}" if "mean_ratio" in row else "")
             out.append(f"  {row['term']:<28} {row['estimate']:>11.5g} "
                        f"({row['ci_low']:.4g}, {row['ci_high']:.4g})  p {row['p_value']:.3g}"
                        f"{ratio}")

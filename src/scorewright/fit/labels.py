@@ -14,13 +14,16 @@ import numpy as np
 
 from ..errors import ScorewrightError
 
-MODELS = ("logistic", "multinomial", "linear", "poisson", "gamma", "tweedie")
+MODELS = ("logistic", "multinomial", "linear", "poisson", "gamma", "tweedie",
+          "negative-binomial")
 TWEEDIE_POWER = 1.5  # the compound Poisson-gamma default of --model tweedie (common practice)
 
 
 def log_link_power(model: str) -> float | None:
-    """The Tweedie power of a log-link model (poisson 1, gamma 2, tweedie:P), else None."""
-    if model == "poisson":
+    """The Tweedie power of a log-link model (poisson 1, gamma 2, tweedie:P), else None.
+    A negative binomial model is a count model with the log link: 1, the power its
+    deviance and label checks use (its fit and inference are its own)."""
+    if model in ("poisson", "negative-binomial"):
         return 1.0
     if model == "gamma":
         return 2.0
@@ -77,6 +80,9 @@ def read_label(series, name: str, model: str | None, positive: str | None) -> La
     if model is None:
         if len(distinct) == 2:
             model = "logistic"
+        elif whole and len(distinct) > 2 and bool(np.all(numbers >= 0)):
+            # counts (whole numbers, none negative): never a linear regression by default
+            model = "poisson"
         elif all_numbers and len(distinct) > 2:
             model = "linear"
         else:

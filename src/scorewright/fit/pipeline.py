@@ -18,6 +18,7 @@ from ..errors import ScorewrightError
 from .labels import log_link_power
 
 PENALTIES = ("l2", "l1", "elasticnet", "none")
+NEGATIVE_BINOMIAL = "negative-binomial"
 ELASTICNET_MIX = 0.5  # share of the l1 part in an elastic-net penalty
 
 
@@ -41,6 +42,9 @@ def check_spec(spec: Spec) -> None:
     if spec.penalty not in PENALTIES:
         raise ScorewrightError(f"--penalty: expected one of {', '.join(PENALTIES)}, "
                                f"got {spec.penalty!r}")
+    if spec.model == NEGATIVE_BINOMIAL and spec.penalty != "none":
+        raise ScorewrightError(f"--penalty {spec.penalty} is not available for --model "
+                               "negative-binomial (it is fitted unpenalized: --penalty none)")
     if log_link_power(spec.model) is not None and spec.penalty in ("l1", "elasticnet"):
         raise ScorewrightError(f"--penalty {spec.penalty} is not available for --model "
                                f"{spec.model} (use l2 or none)")
@@ -51,7 +55,7 @@ def check_spec(spec: Spec) -> None:
 
 def strength_grid(spec: Spec) -> list[float | None]:
     """Candidate strengths, weakest penalty last; [None] for an unpenalized fit."""
-    if spec.penalty == "none":
+    if spec.penalty == "none" or spec.model == NEGATIVE_BINOMIAL:
         return [None]
     if spec.classifier:
         return [float(c) for c in np.logspace(-3, 3, 13)]        # C: inverse strength
@@ -108,6 +112,8 @@ def _estimator(spec: Spec, strength):
         mix = 1.0 if spec.penalty == "l1" else ELASTICNET_MIX
         return lm.LogisticRegression(C=strength, l1_ratio=mix, solver="saga", max_iter=3000,
                                      tol=1e-4, class_weight=weight, random_state=spec.seed)
+    if spec.model == NEGATIVE_BINOMIAL:
+        return NegativeBinomialRegressor()
     power = log_link_power(spec.model)
     if power is not None:
         alpha = 0.0 if strength is None else strength
@@ -154,3 +160,56 @@ def standardization(pipeline, schema):
         return np.zeros(0), np.ones(0)
     scaler = prep.named_transformers_["numeric"].named_steps["standardize"]
     return np.asarray(scaler.mean_, dtype=np.float64), np.asarray(scaler.scale_, dtype=np.float64)
+
+
+class NegativeBinomialRegressor:
+    """A negative binomial (NB2: variance mu + alpha mu^2) regression with the log link,
+    fitted by statsmodels' discrete NegativeBinomial: maximum likelihood of the
+    coefficients and alpha together (Newton's method). `predict` gives the mean
+    exp(intercept_ + X coef_), per unit of exposure when fitted with an `offset` (the
+    log of the exposure). The covariance of (intercept, coefficients) statsmodels
+    reports is kept for the inference table. A scikit-learn regressor in every way
+    `fit` and `freeze` use one (fit, predict, get_params, coef_, intercept_)."""
+
+    def __init__(self, maxiter: int = 300):
+        self.maxiter = maxiter
+
+    def get_params(self, deep=True):
+        return {"maxiter": self.maxiter}
+
+    def set_params(self, **params):
+        for k, v in params.items():
+            setattr(self, k, v)
+        return self
+
+    def __sklearn_tags__(self):
+        from sklearn.utils import RegressorTags, Tags, TargetTags
+
+        return Tags(estimator_type="regressor", target_tags=TargetTags(required=True),
+                    regressor_tags=RegressorTags())
+
+    def fit(self, X, y, offset=None):
+        import warnings
+
+        import statsmodels.api as sm
+        from sklearn.exceptions import ConvergenceWarning
+
+        x = np.asarray(X, dtype=np.float64)
+        exog = np.hstack([np.ones((len(x), 1)), x])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            res = sm.NegativeBinomial(np.asarray(y, dtype=np.float64), exog,
+                                      offset=offset).fit(disp=0, method="newton",
+                                                         maxiter=self.maxiter)
+        params = np.asarray(res.params, dtype=np.float64)
+        self.intercept_ = float(params[0])
+        self.coef_ = params[1:-1].copy()
+        self.alpha_ = float(params[-1])
+        self.cov_ = np.asarray(res.cov_params(), dtype=np.float64)[:-1, :-1]
+        self.n_features_in_ = x.shape[1]
+        if not res.mle_retvals.get("converged", True):
+            warnings.warn("negative binomial fit did not converge", ConvergenceWarning)
+        return self
+
+    def predict(self, X):
+        return np.exp(self.intercept_ + np.asarray(X, dtype=np.float64) @ self.coef_)

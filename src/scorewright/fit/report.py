@@ -74,8 +74,11 @@ def _coefficient_plot(r) -> bytes:
         est = [row.get("per_sd", row["estimate"]) for row in rows]
         low = [row.get("per_sd_low", row["ci_low"]) for row in rows]
         high = [row.get("per_sd_high", row["ci_high"]) for row in rows]
+        scale = {"odds_ratio": "Log-odds", "mean_ratio": "Log of the mean"}.get(
+            r.inference.ratio, "Effect on the mean")
         return plots.coefficients(names, est, low, high,
-                                  "Log-odds with 95% CI (numeric: per SD; levels: vs reference)")
+                                  f"{scale} with 95% CI (numeric: per SD; levels: vs "
+                                  "reference)")
     head = r.model.head
     names = [d.feature if d.levels is None else f"{d.feature}={'|'.join(map(str, d.levels))}"
              for d in r.model.design]

@@ -20,7 +20,7 @@ from ..model import FrozenModel
 from . import diagnostics, metrics
 from .cut import FrozenCut, parse_cut, reconcile
 from .data import Table, read_table
-from .labels import Label, read_label
+from .labels import Label, log_link_power, read_label
 from .pipeline import Spec, check_spec
 from .schema import Schema, infer_schema, summary_lines
 from .validation import Validation, fitted_inference, predict, validate
@@ -45,13 +45,16 @@ class FitOptions:
     numeric: list | None = None
     max_levels: int = 30
     model: str | None = None
-    penalty: str = "l2"
+    penalty: str | None = None  # None: l2, or none for a negative binomial model
     cv: int = 5
     class_weight: str | None = None
     cut: str | None = None
     seed: int = 0
     test_fraction: float = 0.25
     name: str | None = None
+    exposure: str | None = None   # a column: fit the rate, output the expected count
+    offset: str | None = None     # a column added to the margin (log scale)
+    weights: str | None = None    # a column of non-negative row weights
 
 
 @dataclass
@@ -72,6 +75,7 @@ class FitResult:
     inference: object = None
     frozen_cut: FrozenCut | None = None
     reference_gap: float = 0.0                 # max |reference - scikit-learn| on test rows
+    columns: dict = field(default_factory=dict)  # exposure/offset/weights values per row
     self_check: object = None                  # freeze.self_check.CheckResult
     notes: list = field(default_factory=list)
 
@@ -99,18 +103,23 @@ def fit_table(table: Table, opts: FitOptions, progress: bool = True, echo=None) 
     label = None
     if opts.label in frame.columns:  # label faults first: they matter more than columns
         label = read_label(frame[opts.label], opts.label, opts.model, opts.positive)
-    schema, x = infer_schema(frame, opts.label, opts.features, opts.drop, opts.categorical,
+    extra = _extra_columns(frame, opts, label)
+    drop = list(opts.drop or []) + [c for c in extra if c not in (opts.drop or [])]
+    schema, x = infer_schema(frame, opts.label, opts.features, drop, opts.categorical,
                              opts.numeric, opts.max_levels)
     summary = summary_lines(schema, len(frame))
     if label.missing:
         summary.append(f"left out {label.missing} of {len(frame)} rows with no label "
                        f"{opts.label!r}")
     x = x[label.kept].reset_index(drop=True)
+    columns, label, x, lines = _use_extra_columns(extra, label, x, frame)
+    summary += lines
     for name in schema.columns:
         if x[name.name].isna().all():
             raise ScorewrightError(f"column {name.name!r} has no values in the labelled rows; "
                                    f"leave it out with --drop {shlex.quote(name.name)}")
-    spec = Spec(label.model, opts.penalty, opts.class_weight, opts.seed)
+    penalty = opts.penalty or ("none" if label.model == "negative-binomial" else "l2")
+    spec = Spec(label.model, penalty, opts.class_weight, opts.seed)
     check_spec(spec)
     if opts.cut is not None and label.model != "logistic":
         raise ScorewrightError(f"--cut applies to a binary (logistic) model, not {label.model}")
@@ -118,8 +127,13 @@ def fit_table(table: Table, opts: FitOptions, progress: bool = True, echo=None) 
     summary.append(_task_line(label, spec))
     for line in summary:
         echo(line)
-    v = validate(schema, x, label, spec, rule, opts.cv, opts.test_fraction, progress=progress)
+    v = validate(schema, x, label, spec, rule, opts.cv, opts.test_fraction, progress=progress,
+                 columns=columns)
     result = FitResult(None, table, schema, label, spec, v, summary)
+    result.columns = columns
+    for attr in ("exposure", "offset"):
+        if attr in columns:
+            x[getattr(opts, attr)] = columns[attr]
     model = _freeze(result, x, opts)
     model = _score_and_cut(result, model, x)
     result.notes = _notes(result, x)
@@ -127,10 +141,78 @@ def fit_table(table: Table, opts: FitOptions, progress: bool = True, echo=None) 
     return result
 
 
+def _extra_columns(frame, opts: FitOptions, label: Label) -> dict:
+    """{column: kind} of --exposure, --offset and --weights, checked against the data and
+    the model."""
+    extra = {}
+    for kind in ("exposure", "offset", "weights"):
+        column = getattr(opts, kind)
+        if column is None:
+            continue
+        if column not in frame.columns:
+            raise ScorewrightError(f"--{kind}: no column named {column!r} in the data")
+        if column == opts.label:
+            raise ScorewrightError(f"--{kind} {column!r} is the label")
+        if column in extra:
+            raise ScorewrightError(f"--{kind} {column!r} is already the --{extra[column]}")
+        if kind == "weights" and label.model == "negative-binomial":
+            raise ScorewrightError("--weights is not available for --model negative-binomial "
+                                   "(statsmodels' NegativeBinomial takes no row weights)")
+        if kind != "weights" and log_link_power(label.model) is None:
+            raise ScorewrightError(f"--{kind} applies to a count or amount model with a log "
+                                   f"link (poisson, gamma, tweedie), not --model {label.model}")
+        extra[column] = kind
+    if opts.exposure is not None and opts.offset is not None:
+        raise ScorewrightError("--exposure and --offset: give one (an exposure is the offset "
+                               "log(exposure))")
+    return extra
+
+
+def _use_extra_columns(extra: dict, label: Label, x, frame):
+    """The values of the extra columns on the labelled rows; rows where one is unusable
+    (a missing or non-positive exposure, a missing offset, a missing or negative weight)
+    are left out of the fit and counted."""
+    import pandas as pd
+
+    columns, lines = {}, []
+    keep = np.ones(len(label.y), dtype=bool)
+    for column, kind in extra.items():
+        raw = pd.Series(frame[column].to_numpy(dtype=object)[label.kept])
+        values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=np.float64)
+        ok = np.isfinite(values)
+        if kind == "exposure":
+            ok &= values > 0
+        if kind == "weights":
+            if np.any(ok & (values < 0)):
+                raise ScorewrightError(f"--weights {column!r} has negative values")
+        bad = int((~ok).sum())
+        if bad:
+            what = {"exposure": "no positive exposure", "offset": "no offset",
+                    "weights": "no weight"}[kind]
+            lines.append(f"left out {bad} labelled rows with {what} {column!r}")
+        keep &= ok
+        columns[kind] = values
+    if not extra:
+        return columns, label, x, lines
+    if not keep.any():
+        raise ScorewrightError("no labelled row has every --exposure/--offset/--weights value")
+    columns = {k: v[keep] for k, v in columns.items()}
+    kept = label.kept.copy()
+    kept[np.flatnonzero(label.kept)[~keep]] = False
+    label = replace(label, y=label.y[keep], kept=kept)
+    x = x[keep].reset_index(drop=True)
+    if "exposure" in columns or "offset" in columns:
+        kind = "exposure" if "exposure" in columns else "offset"
+        lines.append(f"{kind} {dict((v, k) for k, v in extra.items())[kind]!r}: the model "
+                     "fits the rate and outputs the expected count")
+    return columns, label, x, lines
+
+
 def _task_line(label: Label, spec: Spec) -> str:
     what = {"logistic": "binary logistic", "multinomial": "multinomial logistic",
             "linear": "linear regression", "poisson": "Poisson regression (log link)",
-            "gamma": "gamma regression (log link)"}
+            "gamma": "gamma regression (log link)",
+            "negative-binomial": "negative binomial regression (NB2, log link)"}
     name = what.get(spec.model) or (f"Tweedie regression, power {spec.model.split(':')[1]} "
                                     "(log link)")
     line = f"model: {name}, penalty {spec.penalty}"
@@ -148,11 +230,19 @@ def _freeze(result: FitResult, x, opts: FitOptions) -> FrozenModel:
     from ..freeze.self_check import check_model
     from ..freeze.sklearn import freeze_estimator
 
+    from ..freeze.offsets import RateSource, with_offset
+
     pipeline, label = result.validation.pipeline, result.label
     model = freeze_estimator(pipeline, name=opts.name or opts.label)
     booleans = {c.name for c in result.schema.columns if c.boolean}
     model = mark_boolean_features(model, booleans)
-    result.self_check = check_model(pipeline, model, x)
+    source = pipeline
+    for attr in ("exposure", "offset"):
+        column = getattr(opts, attr)
+        if column is not None:
+            model = with_offset(model, attr, column)
+            source = RateSource(pipeline, attr, column, [f.name for f in model.features])
+    result.self_check = check_model(source, model, x)
     if label.classes is not None:
         model = replace(model, head=replace(model.head, classes=tuple(label.classes)))
     return model
@@ -179,7 +269,7 @@ def _score_and_cut(result: FitResult, model: FrozenModel, x) -> FrozenModel:
         return model
     y = label.y[test]
     result.test_y = y
-    sk = predict(v.pipeline, spec, x.iloc[test])
+    sk = v.terms.count(predict(v.pipeline, spec, x.iloc[test]), test)
     if spec.classifier:
         proba = out["probabilities"][test]
         result.test_output = proba
@@ -205,23 +295,27 @@ def _notes(result: FitResult, x) -> list[str]:
         notes += diagnostics.imbalance_notes(label.y, label.classes)
         notes += diagnostics.separation_notes(x.iloc[train].reset_index(drop=True), schema,
                                               label.y[train], label.classes)
+    if spec.penalty == "none" and spec.model != "multinomial":
+        if spec.class_weight is None and "weights" not in result.columns:
+            result.inference = fitted_inference(v, schema, x, label, spec)
+        elif "weights" in result.columns:
+            notes.append("no standard errors or p-values: the inference table is computed "
+                         "for an unweighted fit")
     if spec.model == "logistic" and spec.penalty == "none":
-        if spec.class_weight is None:
-            result.inference = fitted_inference(v, schema, x, label)
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             p = v.pipeline.predict_proba(x.iloc[train])[:, 1]
         note = diagnostics.fitted_extremes_note(p)
         if note:
             notes.append(note)
-        if result.inference is not None and result.inference.condition > 1e12:
-            notes.append(f"the information matrix is nearly singular (condition number "
-                         f"{result.inference.condition:.2g}): collinear columns or "
-                         "separation; standard errors are unreliable")
-    elif spec.classifier:
+    if result.inference is not None and result.inference.condition > 1e12:
+        notes.append(f"the information matrix is nearly singular (condition number "
+                     f"{result.inference.condition:.2g}): collinear columns or "
+                     "separation; standard errors are unreliable")
+    if spec.penalty != "none" or spec.model == "multinomial":
         notes.append("no standard errors or p-values: they are computed for an unpenalized "
-                     "binary logistic fit only (--penalty none); penalized estimates are "
-                     "biased toward zero by design")
+                     "fit (--penalty none) of a binary, linear or log-link model; penalized "
+                     "estimates are biased toward zero by design")
     if spec.penalty == "none" and schema.categorical:
         notes.append("unpenalized fit: each categorical column has a reference level (its "
                      "most frequent); an unseen level scores as that reference level")
@@ -269,8 +363,12 @@ def _with_provenance(model: FrozenModel, r: FitResult, opts: FitOptions) -> Froz
         r.spec.strength_name: v.chosen, "strength_grid": v.grid,
         "class_weight": r.spec.class_weight, "cv_folds": opts.cv,
         "test_fraction": opts.test_fraction, "seed": opts.seed,
+        "exposure": opts.exposure, "offset": opts.offset, "weights": opts.weights,
         "selection": f"lowest mean cross-validated {v.loss_name}",
     }
+    alpha = getattr(v.pipeline.named_steps["estimate"], "alpha_", None)
+    if r.spec.model == "negative-binomial" and alpha is not None:
+        created["nb2_alpha"] = alpha  # the dispersion: variance mu + alpha mu^2
     created["self_check"] = r.self_check.summary()
     if r.self_check.notes:
         created["self_check_notes"] = r.self_check.notes

@@ -23,7 +23,8 @@ from . import diagnostics, metrics
 from .labels import log_link_power
 from .cut import CutRule, choose_threshold
 from .labels import Label
-from .pipeline import Spec, design_names, make_pipeline, reference_levels, standardization
+from .pipeline import (NEGATIVE_BINOMIAL, Spec, design_names, make_pipeline,
+                       reference_levels, standardization)
 from .pipeline import strength_grid
 
 
@@ -48,25 +49,72 @@ class Validation:
     notes: list = field(default_factory=list)
     cv_fits: int = 0
     cv_unconverged: int = 0
+    terms: object = None                             # RowTerms: exposure and weights
 
 
-def _loss(spec: Spec, y, pred) -> float:
+def _loss(spec: Spec, y, pred, weights=None) -> float:
     if spec.classifier:
-        return metrics.log_loss(y, pred)
+        if weights is None:
+            return metrics.log_loss(y, pred)
+        p = np.clip(pred[np.arange(len(y)), np.asarray(y)], 1e-15, 1.0)
+        return float(np.average(-np.log(p), weights=weights))
     power = log_link_power(spec.model)
     if power is not None:
-        return float(np.mean(metrics.unit_deviance(y, pred, power)))
-    return float(np.mean((np.asarray(y) - pred) ** 2))
+        return float(np.average(metrics.unit_deviance(y, pred, power), weights=weights))
+    return float(np.average((np.asarray(y) - pred) ** 2, weights=weights))
 
 
-def _fit(pipe, x, y) -> bool:
-    """Fit; False when the solver warned that it did not converge."""
+def _fit(pipe, x, y, extra=None) -> bool:
+    """Fit (`extra`: the estimator's fit parameters); False when the solver warned that it
+    did not converge."""
     from sklearn.exceptions import ConvergenceWarning
 
+    extra = {f"estimate__{k}": v for k, v in (extra or {}).items()}
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        pipe.fit(x, y)
+        pipe.fit(x, y, **extra)
     return not any(issubclass(w.category, ConvergenceWarning) for w in caught)
+
+
+@dataclass(frozen=True)
+class RowTerms:
+    """Per row: what the rate is multiplied by (the exposure, or exp of the offset) and
+    the row weight; None where not given. A model with an exposure is fitted on the rate
+    y / e with sample weight w * e^(2 - p) (p the Tweedie power: 1 Poisson, 2 gamma),
+    whose estimating equations are those of the count model with offset log e (common
+    practice for Tweedie models); its predictions are rates, times e expected counts."""
+
+    exposure: np.ndarray | None = None
+    weights: np.ndarray | None = None
+
+    @classmethod
+    def of(cls, columns: dict | None) -> "RowTerms":
+        columns = columns or {}
+        e = columns.get("exposure")
+        if "offset" in columns:
+            e = np.exp(columns["offset"])
+        return cls(e, columns.get("weights"))
+
+    def target(self, y, idx, spec: Spec):
+        """The target and the estimator's fit parameters for rows `idx`. A negative
+        binomial model takes the exposure as its offset log(e) and fits the counts."""
+        if spec.model == NEGATIVE_BINOMIAL:
+            return y[idx], ({} if self.exposure is None else
+                            {"offset": np.log(self.exposure[idx])})
+        if self.exposure is None:
+            return y[idx], ({} if self.weights is None else
+                            {"sample_weight": self.weights[idx]})
+        e = self.exposure[idx]
+        w = e ** (2.0 - log_link_power(spec.model))
+        if self.weights is not None:
+            w = w * self.weights[idx]
+        return y[idx] / e, {"sample_weight": w}
+
+    def count(self, pred, idx):
+        return pred if self.exposure is None else pred * self.exposure[idx]
+
+    def weight(self, idx):
+        return None if self.weights is None else self.weights[idx]
 
 
 def predict(pipe, spec: Spec, x) -> np.ndarray:
@@ -104,18 +152,20 @@ def _splits(spec: Spec, y, folds: int, test_fraction: float, seed: int):
 
 
 def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: int,
-             test_fraction: float, progress: bool = True) -> Validation:
+             test_fraction: float, progress: bool = True, columns=None) -> Validation:
     import click
 
     y = label.y
+    terms = RowTerms.of(columns)
     v = Validation(loss_name="log loss" if spec.classifier else
-                   "Poisson deviance" if spec.model == "poisson" else
+                   "Poisson deviance" if spec.model in ("poisson", NEGATIVE_BINOMIAL) else
                    f"{spec.model.split(':')[0]} deviance"
                    if log_link_power(spec.model) is not None else "squared error")
     train, test, splits = _splits(spec, y, folds, test_fraction, spec.seed)
     v.train_index, v.test_index = train, test
     v.n_train, v.n_test = len(train), len(test)
     x_train, y_train = x.iloc[train], y[train]
+    v.terms = terms
     refs = reference_levels(schema, x_train)
     v.grid = strength_grid(spec)
     oof = {}
@@ -131,12 +181,13 @@ def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: i
             for tr, va in splits:
                 pipe = make_pipeline(schema, spec, strength, refs)
                 v.cv_fits += 1
-                v.cv_unconverged += not _fit(pipe, x_train.iloc[tr], y_train[tr])
-                p = predict(pipe, spec, x_train.iloc[va])
+                target, extra = terms.target(y, train[tr], spec)
+                v.cv_unconverged += not _fit(pipe, x_train.iloc[tr], target, extra)
+                p = terms.count(predict(pipe, spec, x_train.iloc[va]), train[va])
                 if pred is None:
                     pred = np.zeros((len(train),) + p.shape[1:])
                 pred[va] = p
-                losses.append(_loss(spec, y_train[va], p))
+                losses.append(_loss(spec, y_train[va], p, terms.weight(train[va])))
                 if bar is not None:
                     bar.update(1)
             oof[s] = pred
@@ -145,7 +196,8 @@ def validate(schema, x, label: Label, spec: Spec, rule: CutRule | None, folds: i
         v.chosen = v.grid[best]
         v.oof_y, v.oof_pred = y_train, oof[best]
         v.pipeline = make_pipeline(schema, spec, v.chosen, refs)
-        converged = _fit(v.pipeline, x_train, y_train)
+        target, extra = terms.target(y, train, spec)
+        converged = _fit(v.pipeline, x_train, target, extra)
         if bar is not None:
             bar.update(1)
     finally:
@@ -188,9 +240,10 @@ def _decide(proba: np.ndarray, threshold: float | None) -> np.ndarray:
     return np.argmax(proba, axis=1)
 
 
-def fitted_inference(v: Validation, schema, x, label: Label):
-    """The inference table of the refitted unpenalized logistic model."""
-    from .inference import logistic_inference
+def fitted_inference(v: Validation, schema, x, label: Label, spec: Spec):
+    """The inference table of the refitted unpenalized model (binary logistic, linear, or
+    a log-link model, with its exposure)."""
+    from .inference import glm_inference
 
     pipe = v.pipeline
     x_train = x.iloc[v.train_index]
@@ -199,6 +252,12 @@ def fitted_inference(v: Validation, schema, x, label: Label):
         design = np.asarray(pipe.named_steps["prepare"].transform(x_train), dtype=np.float64)
     est = pipe.named_steps["estimate"]
     means, scales = standardization(pipe, schema)
-    return logistic_inference(design, label.y[v.train_index], float(est.intercept_[0]),
-                              np.asarray(est.coef_[0], dtype=np.float64),
-                              design_names(pipe, schema), means, scales)
+    coef = np.asarray(est.coef_, dtype=np.float64).reshape(-1)
+    intercept = float(np.asarray(est.intercept_).reshape(-1)[0])
+    exposure = None
+    if v.terms is not None and v.terms.exposure is not None:
+        exposure = v.terms.exposure[v.train_index]
+    return glm_inference(design, label.y[v.train_index], intercept, coef,
+                         design_names(pipe, schema), means, scales, spec.model,
+                         log_link_power(spec.model), exposure,
+                         cov_std=getattr(est, "cov_", None))

@@ -9,6 +9,7 @@ from pathlib import Path
 
 from ..errors import ScorewrightError
 from ..model import FrozenModel, NumericFeature
+from .offsets import RateSource, with_offset
 from .self_check import (CheckResult, FreezeMismatch, FreezeNote, base_row, check_model,
                          feature_order)
 from .sklearn import freeze_estimator
@@ -38,7 +39,10 @@ def freeze(estimator, feature_names=None, name=None, check_rows=None, preprocess
 
     statsmodels results fitted with an `offset=` or `exposure=` array take the name of
     the column that holds it (`offset="..."`, `exposure="..."`): an input of the frozen
-    model, whose artifacts then output the expected count."""
+    model, whose artifacts then output the expected count. A scikit-learn log-link
+    regressor fitted on rates (y / exposure, with sample_weight exposure for Poisson) takes
+    `exposure="..."` (or `offset="..."`, the log of one) the same way: its prediction
+    times the exposure is the expected count the artifacts output."""
     model, result = freeze_checked(estimator, feature_names=feature_names, name=name,
                                    check_rows=check_rows, preprocessor=preprocessor,
                                    task=task, classes=classes, offset=offset,
@@ -61,11 +65,20 @@ def freeze_checked(estimator, feature_names=None, name=None, check_rows=None,
         model = freeze_results(estimator, feature_names=feature_names, name=name,
                                offset=offset, exposure=exposure)
         source = ResultsSource(estimator, model)
-    elif offset is not None or exposure is not None:
-        raise ScorewrightError("offset and exposure apply to statsmodels results only")
     else:
         model = freeze_estimator(estimator, feature_names=feature_names, name=name)
         source = estimator
+        if offset is not None and exposure is not None:
+            raise ScorewrightError("offset and exposure: give one (an exposure is the offset "
+                                   "log(exposure))")
+        for attr, column in (("offset", offset), ("exposure", exposure)):
+            if column is not None:
+                # a scikit-learn regressor fitted on rates (sample_weight e for Poisson):
+                # the artifacts take the column and output the expected count
+                if not isinstance(column, str) or not column:
+                    raise ScorewrightError(f"{attr}: expected a column name, got {column!r}")
+                model = with_offset(model, attr, column)
+                source = RateSource(estimator, attr, column, feature_order(model))
     frame = check_frame(check_rows, feature_order(model))
     if frame is not None:
         model = mark_booleans(model, frame)

@@ -261,6 +261,9 @@ def _reference(model: FrozenModel, records):
         guarded = (m < -plan.precision.exp_guard) | (m > plan.precision.log_link_max)
     elif plan.link == "sqrt":
         guarded = np.abs(m) > math.sqrt(plan.precision.max_value)
+    elif plan.link == "inverse":
+        from ..program import inverse_floor
+        guarded = np.abs(m) < inverse_floor(plan)
     return out["value"].reshape(-1, 1), scale, guarded
 
 

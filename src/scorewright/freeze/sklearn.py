@@ -955,6 +955,11 @@ def _linear_head(est, path) -> Head:
             link = "identity" if (est.link == "identity" or
                                   (est.link == "auto" and est.power <= 0)) else "log"
         return Head("regression", link, None, (intercept,), (tuple(map(float, coef)),), None)
+    if kind.__name__ == "NegativeBinomialRegressor" and \
+            kind.__module__ == "scorewright.fit.pipeline":
+        # fit's negative binomial model: the mean is exp(intercept_ + x coef_)
+        return Head("regression", "log", None, (float(est.intercept_),),
+                    (tuple(map(float, est.coef_)),), None)
     if kind.__name__ in ("RidgeClassifier", "RidgeClassifierCV", "LinearSVC", "Perceptron",
                          "PassiveAggressiveClassifier"):
         raise Unsupported(f"{kind.__name__} at {path} gives a decision function but no "

@@ -3,13 +3,15 @@ WLS, GLS) into a frozen model.
 
 A model fitted on arrays takes its features from `exog_names`, with the column
 `add_constant` made (statsmodels' `const_idx`) as the intercept. A model fitted
-through a formula takes its design from the formula's own design information
-(patsy's DesignInfo, which statsmodels keeps as `model.data.model_spec`): each term
-is read from its factors and their codings, never from the column names.
+through a formula takes its design from the formula's own design information, which
+statsmodels keeps as `model.data.model_spec`: patsy's DesignInfo or formulaic's
+ModelSpec, whichever engine fitted it. Each term is read from its factors and their
+codings, never from the column names.
 
-- A numerical factor that names a data column is that feature; `center(x)` and
-  `standardize(x, center=, rescale=, ddof=)` become the scaling steps patsy's
-  stateful transforms apply, with the constants they memorized.
+- A numerical factor that names a data column is that feature; patsy's `center(x)` and
+  `standardize(x, center=, rescale=, ddof=)` and formulaic's `center(x)` and `scale(x)`
+  become the scaling steps those stateful transforms apply, with the constants they
+  memorized.
 - A categorical factor (`C(x)`, `C(x, Treatment(reference=...))`, `C(x, Sum)`, any
   contrast, or a text column) is that feature's levels; whatever its contrast matrix,
   each level's contribution to the margin is the sum over the term's columns of the
@@ -17,7 +19,11 @@ is read from its factors and their codings, never from the column names.
 - `np.log(x)`, `np.log1p(x)` and `np.sqrt(x)` of a data column are that feature with
   the transform (a value outside its domain, where statsmodels predicts NaN, is
   treated as missing).
-- Interactions, splines and other transforms are refused in one line naming the term.
+- `I(x ** 2)` and `I(x ** 3)` are products of the column with itself; an interaction
+  (`a:b`, `a*b`) of any factors is, per combination of its categorical factors' levels,
+  one product column, as the engine builds it (see `_design_of_terms`). A variable may
+  appear in several terms with the same transform everywhere.
+- Splines and other transforms are refused in one line naming the term.
 
 statsmodels cannot score a row with a missing value (the prediction is NaN) or an
 unseen level (patsy raises). The frozen model states its rule instead: a missing
@@ -29,11 +35,13 @@ level's). `scorewright show` and the freeze notes say so.
 from __future__ import annotations
 
 import ast
+import itertools
 import math
 
 import numpy as np
 
 from ..errors import ScorewrightError
+from .offsets import with_offset
 from ..model import (TRANSFORM_OPS, CategoricalFeature, DesignColumn, FrozenModel, Head,
                      NumericFeature, ScalingStep, in_domain)
 
@@ -47,11 +55,14 @@ DISCRETE = {"Logit": ("binary", "logit"), "Probit": ("binary", "probit"),
 GLM_LINKS = {("Binomial", "Logit"): ("binary", "logit"),
              ("Binomial", "Probit"): ("binary", "probit"),
              ("Binomial", "CLogLog"): ("binary", "cloglog"),
-             ("Gaussian", "Identity"): ("regression", "identity")}
+             ("Binomial", "Cauchy"): ("binary", "cauchit"),
+             ("Gaussian", "Identity"): ("regression", "identity"),
+             ("Gamma", "InversePower"): ("regression", "inverse"),
+             ("Gaussian", "InversePower"): ("regression", "inverse")}
 LOG_FAMILIES = ("Poisson", "Gamma", "Tweedie", "NegativeBinomial", "Gaussian", "InverseGaussian")
 # statsmodels' deprecated lower-case link classes are subclasses of these
 LINK_NAMES = {"probit": "Probit", "cloglog": "CLogLog", "logit": "Logit", "log": "Log",
-              "identity": "Identity"}
+              "identity": "Identity", "inverse_power": "InversePower", "cauchy": "Cauchy"}
 
 
 class Unsupported(ScorewrightError):
@@ -86,23 +97,16 @@ def freeze_results(results, feature_names=None, name=None, offset=None,
         if feature_names is not None:
             raise ScorewrightError("feature_names: a formula model names its own features")
         features, design, coefs, intercept, inputs = _from_formula(spec, names, params)
+    elif spec is not None and type(spec).__module__.split(".")[0] == "formulaic":
+        if feature_names is not None:
+            raise ScorewrightError("feature_names: a formula model names its own features")
+        features, design, coefs, intercept, inputs = _from_formulaic(spec, names, params)
     elif spec is not None:
-        raise Unsupported(f"{kind} fitted through a formula engine other than patsy "
-                          f"({type(spec).__module__}): only patsy's design information is "
-                          "read; fit with patsy to freeze it")
+        raise Unsupported(f"{kind} fitted through a formula engine other than patsy or "
+                          f"formulaic ({type(spec).__module__})")
     else:
         features, design, coefs, intercept, inputs = _from_arrays(model, names, params,
                                                                   feature_names)
-    taken = {f.name for f in features}
-    for attr, column in offsets:
-        if column in taken:
-            raise ScorewrightError(f"{attr}={column!r}: the model already has a feature of "
-                                   "that name")
-        steps = (ScalingStep("log"),) if attr == "exposure" else ()
-        features.append(NumericFeature(column, None, steps))
-        design.append(DesignColumn(column))
-        coefs.append(1.0)
-        inputs.append(column)
     classes, cut = ((0, 1), half_cut(link)) if task == "binary" else (None, None)
     head = Head(task, link, classes, (intercept,), (tuple(coefs),), cut)
     source = f"statsmodels {kind}"
@@ -114,16 +118,12 @@ def freeze_results(results, feature_names=None, name=None, offset=None,
         source += f": {formula}"
     transforms = [(f.name, f.scaling[0].op) for f in features
                   if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
-    prov = _provenance(source, inputs, [t for t in transforms
-                                        if t[0] not in dict(offsets).values()])
+    prov = _provenance(source, inputs, transforms)
+    frozen = FrozenModel(name or kind.lower(), tuple(features), tuple(design), head,
+                         prov).sealed()
     for attr, column in offsets:
-        prov["inputs"][attr] = column
-        prov["notes"].append(
-            f"{column} is the {attr}: missing, it counts as 0" if attr == "offset" else
-            f"{column} is the exposure: missing or not positive, it counts as 1 (the "
-            "count is then the rate per unit of exposure)")
-    return FrozenModel(name or kind.lower(), tuple(features), tuple(design), head,
-                       prov).sealed()
+        frozen = with_offset(frozen, attr, column)
+    return frozen
 
 
 def _provenance(source: str, inputs: list[str], transforms=()) -> dict:
@@ -163,8 +163,10 @@ def _task_and_link(model, kind: str) -> tuple[str, str]:
     if fam in LOG_FAMILIES and lnk == "Log":
         return "regression", "log"
     raise Unsupported(f"GLM {fam} family with the {lnk} link is not supported; frozen links: "
-                      "Binomial with logit, probit or cloglog, Gaussian/identity, log for "
-                      "Poisson, Gamma, Tweedie, NegativeBinomial, Gaussian and InverseGaussian")
+                      "Binomial with logit, probit, cloglog or cauchit, Gaussian/identity, "
+                      "inverse for "
+                      "Gamma and Gaussian, log for Poisson, Gamma, Tweedie, NegativeBinomial, "
+                      "Gaussian and InverseGaussian")
 
 
 def half_cut(link: str) -> float:
@@ -172,7 +174,7 @@ def half_cut(link: str) -> float:
     of the margin (p1 is exactly 0.5 there; margins within about 1e-16 above it round to
     0.5 too). For cloglog: the largest margin whose positive-class probability, as the
     scoring program computes it, is at most 0.5, found near ln(ln 2) a double at a time."""
-    if link in ("logit", "probit"):
+    if link in ("logit", "probit", "cauchit"):
         return 0.0
     from ..program import link_probability
 
@@ -227,57 +229,183 @@ def _from_arrays(model, names, params, feature_names):
 # ---------------------------------------------------------------- formulas (patsy)
 
 def _from_formula(spec, names, params):
+    """The terms of a patsy formula, as patsy builds them (build.py, _build_subterm): per
+    subterm, each column is the product over its factors of a categorical factor's
+    contrast entry for the row's level or a numerical factor's value; the left-most
+    factor varies fastest over the columns."""
     if list(spec.column_names) != list(names):
         raise Unsupported("the formula's design columns are not the model's exog columns")
-    features: dict[str, object] = {}
-    design, coefs, intercept = [], [], 0.0
+    terms = []
     for term, subterms in spec.term_codings.items():
-        sl = spec.term_slices[term]
-        if not term.factors:
-            intercept = float(params[sl][0])
+        factors = []
+        for factor in term.factors:
+            info = spec.factor_infos[factor]
+            if info.type == "numerical":
+                if info.num_columns != 1:
+                    raise Unsupported(f"term {term.name()!r}: the factor {factor.name()!r} "
+                                      f"makes {info.num_columns} columns (a spline or a "
+                                      "matrix); not freezable yet")
+                factors.append((factor, _numeric_factor(factor, info)))
+            else:
+                factors.append((factor, _categorical_factor(factor, info)))
+        subs = [(list(sub.factors), {f: np.asarray(sub.contrast_matrices[f].matrix,
+                                                   dtype=np.float64)
+                                     for f in sub.contrast_matrices}) for sub in subterms]
+        terms.append((term.name(), factors, subs, params[spec.term_slices[term]]))
+    return _design_of_terms(terms)
+
+
+def _from_formulaic(spec, names, params):
+    """The terms of a formulaic formula, as formulaic builds them (its materializer's
+    _get_columns_for_term: the row-wise product of the scoped factors' columns, the
+    left-most factor varying fastest); a categorical factor's columns are its contrasts'
+    coding matrix, full or reduced rank as the scoped factor says."""
+    if list(spec.column_names) != list(names):
+        raise Unsupported("the formula's design columns are not the model's exog columns")
+    position = {name: j for j, name in enumerate(spec.column_names)}
+    terms = []
+    for ets in spec.structure:
+        start = position[ets.columns[0]] if ets.columns else 0
+        beta = params[start:start + len(ets.columns)]
+        name = str(ets.term)
+        factors, subs, seen = [], [], {}
+        for scoped in ets.scoped_terms:
+            if scoped.scale != 1:
+                raise Unsupported(f"term {name!r}: a scaled term is not freezable yet")
+            matrices = {}
+            for sf in scoped.factors:
+                expr = sf.factor.expr
+                if expr not in seen:
+                    seen[expr] = True
+                    factors.append((expr, _formulaic_factor(spec, sf.factor, name)))
+                kind, state = spec.encoder_state.get(expr, (None, {}))
+                if getattr(kind, "value", kind) == "categorical":
+                    c = state["contrasts"]
+                    matrices[expr] = np.asarray(c.contrasts.get_coding_matrix(
+                        c.levels, reduced_rank=sf.reduced), dtype=np.float64)
+            subs.append(([sf.factor.expr for sf in scoped.factors], matrices))
+        if not factors:
+            terms.append((name, [], [], beta))
             continue
-        if len(term.factors) > 1 or len(subterms) != 1:
-            raise Unsupported(f"term {term.name()!r} is an interaction: not freezable yet "
-                              "(needs product terms)")
-        (factor,) = term.factors
-        info = spec.factor_infos[factor]
-        beta = [float(b) for b in params[sl]]
-        if info.type == "numerical":
-            feat = _numeric_factor(factor, info)
-            _add_feature(features, feat, term)
-            design.append(DesignColumn(feat.name))
-            coefs.append(beta[0])
+        terms.append((name, factors, subs, beta))
+    return _design_of_terms(terms)
+
+
+def _formulaic_factor(spec, factor, term: str):
+    expr = factor.expr
+    kind, state = spec.encoder_state.get(expr, (None, {}))
+    if getattr(kind, "value", kind) == "categorical":
+        tree = _parse_expr(expr, term)
+        if isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name) and \
+                tree.func.id == "C" and tree.args and isinstance(tree.args[0], ast.Name):
+            column = tree.args[0].id
+        elif isinstance(tree, ast.Name):
+            column = tree.id
         else:
-            feat = _categorical_factor(factor, info)
-            _add_feature(features, feat, term)
-            matrix = subterms[0].contrast_matrices[factor].matrix
-            for level, row in zip(feat.levels, np.asarray(matrix, dtype=np.float64)):
-                contribution = math.fsum(float(r) * b for r, b in zip(row, beta))
-                if contribution != 0.0:
-                    design.append(DesignColumn(feat.name, (level,)))
-                    coefs.append(contribution)
-    inputs = list(features)
-    return list(features.values()), design, coefs, intercept, inputs
+            raise Unsupported(f"term {term!r}: a categorical factor must be C(column, ...) or "
+                              "a text column")
+        return CategoricalFeature(column, tuple(_level(v, term)
+                                                for v in state["contrasts"].levels))
+    tree = _parse_expr(expr, term)
+    if (isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name)
+            and tree.func.id in ("center", "scale") and len(tree.args) == 1
+            and isinstance(tree.args[0], ast.Name) and expr in spec.transform_state):
+        st = spec.transform_state[expr]
+        steps = []
+        if st.get("center") is not None:
+            steps.append(ScalingStep("subtract", float(np.asarray(st["center"]).reshape(-1)[0])))
+        if st.get("scale") is not None:
+            steps.append(ScalingStep("divide", float(np.asarray(st["scale"]).reshape(-1)[0])))
+        return NumericFeature(tree.args[0].id, None, tuple(steps)), 1
+    return _numeric_code(tree, term)
 
 
-def _add_feature(features: dict, feat, term) -> None:
-    if feat.name in features:
-        raise Unsupported(f"term {term.name()!r}: the variable {feat.name!r} appears in "
-                          "more than one term; not freezable yet")
+def _design_of_terms(terms):
+    """Per term (name, [(factor, feature)], subterms, coefficients), where each subterm is
+    (its factors in its order, its categorical factors' coding matrices (levels x
+    columns)), the left-most factor varying fastest over its columns: the design columns.
+
+    A column's coefficient is spread over the levels it depends on: per combination of the
+    levels of the subterm's categorical factors, the contribution is the coding entries'
+    product times the coefficient. Contributions with the same numerical factors and the
+    same levels are summed (math.fsum) into one design column: the product of the
+    numerical factors and the indicators of those levels. A column does not depend on a
+    categorical factor its subterm leaves out; a missing or unseen level gets nothing from
+    the columns that depend on it (formulaic scores an unseen level so too)."""
+    features: dict[str, object] = {}
+    parts: dict[tuple, list] = {}     # (numeric factors, (feature, level)...) -> weights
+    for name, factors, subterms, params in terms:
+        beta = iter(float(b) for b in params)
+        if not factors:
+            parts.setdefault(((), ()), []).append(float(params[0]))
+            continue
+        numeric, categorical = [], {}
+        for factor, feat in factors:
+            if isinstance(feat, tuple):       # (numeric feature, power)
+                feat, power = feat
+                _add_feature(features, feat, name)
+                numeric.append((feat.name, feat.scaling, power))
+            else:
+                _add_feature(features, feat, name)
+                categorical[factor] = feat.name
+        for order, matrices in subterms:
+            sizes = [matrices[f].shape[1] if f in matrices else 1 for f in order]
+            present = [f for f in order if f in categorical]
+            for reversed_combo in itertools.product(*[range(n) for n in reversed(sizes)]):
+                column = dict(zip(order, reversed_combo[::-1]))
+                b = next(beta)
+                entries = []
+                for f in present:
+                    levels = features[categorical[f]].levels
+                    entries.append([((categorical[f], level), float(v)) for level, v
+                                    in zip(levels, matrices[f][:, column[f]]) if v != 0.0])
+                for pick in (itertools.product(*entries) if entries else [()]):
+                    weight = b
+                    for _, v in pick:
+                        weight *= v
+                    key = (tuple(numeric), tuple(sorted(lv for lv, _ in pick)))
+                    parts.setdefault(key, []).append(weight)
+        if next(beta, None) is not None:
+            raise Unsupported(f"term {name!r}: its columns are not the ones the formula "
+                              "engine builds as read here")
+    design, coefs, intercept = [], [], 0.0
+    for (numeric, levels), weights in parts.items():
+        contribution = math.fsum(weights)
+        if not numeric and not levels:
+            intercept = contribution
+            continue
+        if contribution == 0.0:
+            continue
+        if not numeric and len(levels) == 1:
+            design.append(DesignColumn(levels[0][0], (levels[0][1],)))
+        elif len(numeric) == 1 and not levels and numeric[0][2] == 1:
+            design.append(DesignColumn(numeric[0][0]))
+        else:
+            cols = []
+            for feat_name, steps, power in numeric:
+                cols += [DesignColumn(feat_name, scaling=tuple(steps))] * power
+            cols += [DesignColumn(feat_name, (level,)) for feat_name, level in levels]
+            design.append(DesignColumn(cols[0].feature, product=tuple(cols)))
+        coefs.append(contribution)
+    return list(features.values()), design, coefs, intercept, list(features)
+
+
+def _add_feature(features: dict, feat, term: str) -> None:
+    """A variable in several terms is one feature: the same transform and levels
+    everywhere it appears."""
+    have = features.get(feat.name)
+    if have is not None and have != feat:
+        raise Unsupported(f"term {term!r}: the variable {feat.name!r} appears with "
+                          "different transforms or levels in different terms; not "
+                          "freezable yet")
     features[feat.name] = feat
 
 
-def _numeric_factor(factor, info) -> NumericFeature:
+def _numeric_factor(factor, info) -> tuple[NumericFeature, int]:
+    """The feature of a patsy numerical factor, and the power it is raised to."""
     code = info.state.get("eval_code", factor.code) if isinstance(info.state, dict) \
         else factor.code
-    tree = _parse(code, factor)
-    if isinstance(tree, ast.Name):
-        return NumericFeature(tree.id, None)
-    if (isinstance(tree, ast.Call) and isinstance(tree.func, ast.Attribute)
-            and isinstance(tree.func.value, ast.Name) and tree.func.value.id in ("np", "numpy")
-            and tree.func.attr in TRANSFORM_OPS and len(tree.args) == 1 and not tree.keywords
-            and isinstance(tree.args[0], ast.Name)):
-        return NumericFeature(tree.args[0].id, None, (ScalingStep(tree.func.attr),))
+    tree = _parse_expr(code, factor.name())
     call = tree
     if (isinstance(call, ast.Call) and isinstance(call.func, ast.Attribute)
             and call.func.attr == "transform" and isinstance(call.func.value, ast.Name)
@@ -285,9 +413,29 @@ def _numeric_factor(factor, info) -> NumericFeature:
         obj = info.state["transforms"].get(call.func.value.id)
         options = {k.arg: ast.literal_eval(k.value) for k in call.keywords}
         steps = _stateful_steps(obj, options, factor)
-        return NumericFeature(call.args[0].id, None, tuple(steps))
-    raise Unsupported(f"term {factor.name()!r}: only a column, np.log(x), np.log1p(x), "
-                      "np.sqrt(x), center(x) and standardize(x) are frozen as numeric terms")
+        return NumericFeature(call.args[0].id, None, tuple(steps)), 1
+    return _numeric_code(tree, factor.name())
+
+
+def _numeric_code(tree, term: str) -> tuple[NumericFeature, int]:
+    """A column, I(x ** k) (the column k times, k <= 3), or np.log/log1p/sqrt of one."""
+    if isinstance(tree, ast.Name):
+        return NumericFeature(tree.id, None), 1
+    if (isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name) and tree.func.id == "I"
+            and len(tree.args) == 1 and not tree.keywords):
+        inner = tree.args[0]
+        if (isinstance(inner, ast.BinOp) and isinstance(inner.op, ast.Pow)
+                and isinstance(inner.left, ast.Name) and isinstance(inner.right, ast.Constant)
+                and type(inner.right.value) is int and 1 <= inner.right.value <= 3):
+            return NumericFeature(inner.left.id, None), inner.right.value
+    if (isinstance(tree, ast.Call) and isinstance(tree.func, ast.Attribute)
+            and isinstance(tree.func.value, ast.Name) and tree.func.value.id in ("np", "numpy")
+            and tree.func.attr in TRANSFORM_OPS and len(tree.args) == 1 and not tree.keywords
+            and isinstance(tree.args[0], ast.Name)):
+        return NumericFeature(tree.args[0].id, None, (ScalingStep(tree.func.attr),)), 1
+    raise Unsupported(f"term {term!r}: only a column, np.log(x), np.log1p(x), np.sqrt(x), "
+                      "I(x ** 2), I(x ** 3) and the formula engine's centering and scaling "
+                      "are frozen as numeric factors")
 
 
 def _stateful_steps(obj, options: dict, factor) -> list[ScalingStep]:
@@ -311,7 +459,7 @@ def _stateful_steps(obj, options: dict, factor) -> list[ScalingStep]:
 
 
 def _categorical_factor(factor, info) -> CategoricalFeature:
-    tree = _parse(factor.code, factor)
+    tree = _parse_expr(factor.code, factor.name())
     if isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name) and tree.func.id == "C" \
             and tree.args and isinstance(tree.args[0], ast.Name):
         name = tree.args[0].id
@@ -320,10 +468,10 @@ def _categorical_factor(factor, info) -> CategoricalFeature:
     else:
         raise Unsupported(f"term {factor.name()!r}: a categorical term must be C(column, ...) "
                           "or a text column")
-    return CategoricalFeature(name, tuple(_level(v, factor) for v in info.categories))
+    return CategoricalFeature(name, tuple(_level(v, factor.name()) for v in info.categories))
 
 
-def _level(value, factor):
+def _level(value, term: str):
     if isinstance(value, (bool, np.bool_)):
         return int(value)
     if isinstance(value, (int, np.integer)):
@@ -332,15 +480,14 @@ def _level(value, factor):
         return int(value)  # patsy matches 3 and 3.0 alike
     if isinstance(value, str):
         return value
-    raise Unsupported(f"term {factor.name()!r}: the level {value!r} is neither text nor an "
-                      "integer")
+    raise Unsupported(f"term {term!r}: the level {value!r} is neither text nor an integer")
 
 
-def _parse(code: str, factor):
+def _parse_expr(code: str, term: str):
     try:
         return ast.parse(code, mode="eval").body
     except SyntaxError:
-        raise Unsupported(f"term {factor.name()!r}: cannot read its code") from None
+        raise Unsupported(f"term {term!r}: cannot read its code") from None
 
 
 # ---------------------------------------------------------------- the self-check's view
