@@ -23,7 +23,8 @@ codings, never from the column names.
   (`a:b`, `a*b`) of any factors is, per combination of its categorical factors' levels,
   one product column, as the engine builds it (see `_design_of_terms`). A variable may
   appear in several terms with the same transform everywhere.
-- Splines and other transforms are refused in one line naming the term.
+- patsy's `bs(x, ...)` is a spline feature (format version 3; see `_bs_term`); `cr()`,
+  `cc()`, `te()` and other transforms are refused in one line naming the term.
 
 statsmodels cannot score a row with a missing value (the prediction is NaN) or an
 unseen level (patsy raises). The frozen model states its rule instead: a missing
@@ -42,8 +43,8 @@ import numpy as np
 
 from ..errors import ScorewrightError
 from .offsets import with_offset
-from ..model import (TRANSFORM_OPS, CategoricalFeature, DesignColumn, FrozenModel, Head,
-                     NumericFeature, ScalingStep, in_domain)
+from ..model import (SPLINE, SPLINE_DEGREES, TRANSFORM_OPS, CategoricalFeature, DesignColumn,
+                     FrozenModel, Head, NumericFeature, ScalingStep, in_domain)
 
 # model class -> (task, link) for the models whose link does not come from a family
 DISCRETE = {"Logit": ("binary", "logit"), "Probit": ("binary", "probit"),
@@ -235,9 +236,13 @@ def _from_formula(spec, names, params):
     factor varies fastest over the columns."""
     if list(spec.column_names) != list(names):
         raise Unsupported("the formula's design columns are not the model's exog columns")
-    terms = []
+    terms, splines = [], []
     for term, subterms in spec.term_codings.items():
         factors = []
+        if len(term.factors) == 1 and _is_bs(spec.factor_infos[term.factors[0]]):
+            splines.append(_bs_term(term, spec.factor_infos[term.factors[0]],
+                                    params[spec.term_slices[term]]))
+            continue
         for factor in term.factors:
             info = spec.factor_infos[factor]
             if info.type == "numerical":
@@ -252,7 +257,75 @@ def _from_formula(spec, names, params):
                                                    dtype=np.float64)
                                      for f in sub.contrast_matrices}) for sub in subterms]
         terms.append((term.name(), factors, subs, params[spec.term_slices[term]]))
-    return _design_of_terms(terms)
+    features, design, coefs, intercept, inputs = _design_of_terms(terms)
+    by_name = {f.name: f for f in features}
+    for feat, columns in splines:
+        _add_feature(by_name, feat, f"bs({feat.name}, ...)")
+        if feat.name not in inputs:
+            features.append(feat)
+            inputs.append(feat.name)
+        for j, c in columns:
+            design.append(DesignColumn(feat.name, basis=j, scaling=()))
+            coefs.append(c)
+    return features, design, coefs, intercept, inputs
+
+
+def _is_bs(info) -> bool:
+    state = info.state if isinstance(info.state, dict) else {}
+    objs = list(state.get("transforms", {}).values())
+    return info.type == "numerical" and len(objs) == 1 and type(objs[0]).__name__ == "BS" \
+        and type(objs[0]).__module__ == "patsy.splines"
+
+
+def _bs_term(term, info, params):
+    """patsy's bs(x, ...): the B-spline basis on the knot vector it memorized (boundary
+    knots repeated degree + 1 times), the first column left out without
+    include_intercept; outside the boundary knots patsy raises. The frozen spline step
+    (format version 3) takes distinct knots, so the basis is re-expressed on the same
+    inner knots with the ends extended by the end intervals' widths, which spans the same
+    piecewise polynomials on [lower, upper]: each patsy basis function is a combination
+    of the extended ones (solved by least squares on 20 points per interval, checked to
+    1e-13), and the coefficients move through that map. Outside [lower, upper] the
+    extrapolation is 'error': treated as missing, the term then adds nothing (the frozen
+    model's rule for what statsmodels cannot score)."""
+    from scipy.interpolate import BSpline
+
+    obj = next(iter(info.state["transforms"].values()))
+    tree = _parse_expr(info.state["eval_code"], term.name())
+    if not (isinstance(tree, ast.Call) and len(tree.args) == 1
+            and isinstance(tree.args[0], ast.Name)):
+        raise Unsupported(f"term {term.name()!r}: bs() of a column is frozen, not of an "
+                          "expression")
+    options = {k.arg: ast.literal_eval(k.value) for k in tree.keywords}
+    include_intercept = bool(options.get("include_intercept", False))
+    k = int(obj._degree)
+    if k not in SPLINE_DEGREES:
+        raise Unsupported(f"term {term.name()!r}: degree {k}; degrees "
+                          f"{', '.join(map(str, SPLINE_DEGREES))} are frozen")
+    clamped = np.asarray(obj._all_knots, dtype=np.float64)
+    lo, hi = float(clamped[0]), float(clamped[-1])
+    inner = [float(v) for v in clamped[k + 1:len(clamped) - k - 1]]
+    cuts = [lo, *inner, hi]
+    if any(not a < b for a, b in zip(cuts, cuts[1:])):
+        raise Unsupported(f"term {term.name()!r}: repeated inner knots are not frozen")
+    h_lo, h_hi = cuts[1] - cuts[0], cuts[-1] - cuts[-2]
+    knots = tuple([lo - h_lo * i for i in range(k, 0, -1)] + cuts
+                  + [hi + h_hi * i for i in range(1, k + 1)])
+    n = len(clamped) - k - 1
+    x = np.concatenate([np.linspace(a, b, 20) for a, b in zip(cuts, cuts[1:])])
+    old = BSpline.design_matrix(x, clamped, k).toarray()
+    new = BSpline.design_matrix(x, np.asarray(knots), k).toarray()
+    m, *_ = np.linalg.lstsq(new, old, rcond=None)   # old = new @ m
+    if np.max(np.abs(new @ m - old)) > 1e-13:
+        raise Unsupported(f"term {term.name()!r}: its basis could not be re-expressed on "
+                          "distinct knots to 1e-13")
+    beta = np.zeros(n)
+    beta[(0 if include_intercept else 1):] = np.asarray(params, dtype=np.float64)
+    columns = [(i, math.fsum(float(m[i, j]) * float(beta[j]) for j in range(n)))
+               for i in range(n)]
+    step = ScalingStep(SPLINE, knots=knots, degree=k, extrapolation="error")
+    return (NumericFeature(tree.args[0].id, None, (step,)),
+            [(i, c) for i, c in columns if c != 0.0])
 
 
 def _from_formulaic(spec, names, params):
@@ -507,6 +580,8 @@ class ResultsSource:
                       if getattr(results.model.data, "k_constant", 0) else None)
         self.transforms = [(f.name, f.scaling[0].op) for f in model.features
                            if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
+        self.splines = [(f.name, f.scaling[0].spline_range()) for f in model.features
+                        if getattr(f, "scaling", ()) and f.scaling[0].op == SPLINE]
 
     def _exog(self, frame):
         frame = frame.drop(columns=list(self.offsets.values()))
@@ -532,6 +607,12 @@ class ResultsSource:
             values = np.asarray(frame[name], dtype=np.float64)
             outside = ~np.isnan(values) & ~np.array([in_domain(op, v) for v in values])
             out = np.where(outside, np.nan, out)
+        # outside bs()'s boundary knots patsy raises for the row alone, but in a batch that
+        # also holds a missing value its bounds check sees NaN and lets splev extrapolate:
+        # no score either way; the frozen model treats the value as missing
+        for name, (lo, hi) in self.splines:
+            values = np.asarray(frame[name], dtype=np.float64)
+            out = np.where((values < lo) | (values > hi), np.nan, out)
         return out
 
     def predict_proba(self, frame):
