@@ -125,8 +125,8 @@ def _fair():
                      family=sm.families.Poisson()).fit(), "different transforms"),
     (lambda: smf.glm("affairs ~ C(occupation > 3)", data=_fair(),
                      family=sm.families.Poisson()).fit(), "'C(occupation > 3)'"),
-    (lambda: smf.glm("affairs ~ cr(age, df=4)", data=_fair(),
-                     family=sm.families.Poisson()).fit(), "'cr(age, df=4)'"),
+    (lambda: smf.glm("affairs ~ cc(age, df=4)", data=_fair(),
+                     family=sm.families.Poisson()).fit(), "'cc(age, df=4)'"),
     (lambda: smf.glm("affairs ~ np.exp(age / 10)", data=_fair(),
                      family=sm.families.Poisson()).fit(), "'np.exp(age / 10)'"),
     (lambda: sm.GLM(sm.datasets.spector.load_pandas().endog,
@@ -237,16 +237,18 @@ def test_cli_freezes_saved_results(tmp_path):
 
 BS = ["affairs ~ bs(age, df=4) + educ",
       "affairs ~ bs(yrs_married, knots=[3, 8, 15], include_intercept=True) - 1",
-      "affairs ~ bs(age, df=3, degree=1) + bs(educ, df=5, degree=2) + C(religious)"]
+      "affairs ~ bs(age, df=3, degree=1) + bs(educ, df=5, degree=2) + C(religious)",
+      "affairs ~ cr(age, df=4, constraints='center') + educ"]
 
 
 @pytest.mark.parametrize("formula", BS)
-def test_patsy_b_splines_agree_with_predict(formula):
+def test_patsy_splines_agree_with_predict(formula):
     """patsy's bs() (degrees 1 to 3, df or explicit knots, with and without its
-    intercept column) on Fair's affairs data (statsmodels ships it): the frozen spline,
+    intercept column) and cr() (a natural cubic regression spline with its centering
+    constraint) on Fair's affairs data (statsmodels ships it): the frozen spline,
     re-expressed on distinct knots, agrees with statsmodels' predict to 1e-12 through the
-    self-check and here, boundary knots included; outside them (patsy raises) the term adds
-    nothing."""
+    self-check and here, boundary knots included; outside them bs's term adds nothing
+    (patsy raises) and cr continues linearly, as patsy does."""
     data = _fair()
     results = smf.glm(formula, data=data, family=sm.families.Poisson()).fit()
     model, checked = freeze_checked(results, check_rows=data)
@@ -257,9 +259,12 @@ def test_patsy_b_splines_agree_with_predict(formula):
     lo, hi = data[name].min(), data[name].max()
     edge = data.head(2).assign(**{name: [lo, hi]})
     _agree(results, model, edge)
-    outside = data.head(1).assign(**{name: [hi + 1.0]})
-    inside = data.head(1).assign(**{name: [None]})
-    assert _frozen_outputs(model, outside)[0] == _frozen_outputs(model, inside)[0]
+    outside = data.head(2).assign(**{name: [lo - 7.0, hi + 9.0]})
+    if "cr(" in formula:
+        _agree(results, model, outside)
+    else:
+        missing = data.head(2).assign(**{name: [None, None]})
+        assert list(_frozen_outputs(model, outside)) == list(_frozen_outputs(model, missing))
 
 
 def test_a_patsy_spline_builds_and_verifies(tmp_path):

@@ -23,8 +23,9 @@ codings, never from the column names.
   (`a:b`, `a*b`) of any factors is, per combination of its categorical factors' levels,
   one product column, as the engine builds it (see `_design_of_terms`). A variable may
   appear in several terms with the same transform everywhere.
-- patsy's `bs(x, ...)` is a spline feature (format version 3; see `_bs_term`); `cr()`,
-  `cc()`, `te()` and other transforms are refused in one line naming the term.
+- patsy's `bs(x, ...)` and `cr(x, ...)` are spline features (format version 3; see
+  `_bs_term`); `cc()`, `te()` and other transforms are refused in one line naming the
+  term.
 
 statsmodels cannot score a row with a missing value (the prediction is NaN) or an
 unseen level (patsy raises). The frozen model states its rule instead: a missing
@@ -271,59 +272,63 @@ def _from_formula(spec, names, params):
 
 
 def _is_bs(info) -> bool:
+    """A patsy spline factor frozen as a spline feature: bs() or cr()."""
     state = info.state if isinstance(info.state, dict) else {}
     objs = list(state.get("transforms", {}).values())
-    return info.type == "numerical" and len(objs) == 1 and type(objs[0]).__name__ == "BS" \
-        and type(objs[0]).__module__ == "patsy.splines"
+    return info.type == "numerical" and len(objs) == 1 and type(objs[0]).__name__ in (
+        "BS", "CR") and type(objs[0]).__module__.startswith("patsy.")
 
 
 def _bs_term(term, info, params):
-    """patsy's bs(x, ...): the B-spline basis on the knot vector it memorized (boundary
-    knots repeated degree + 1 times), the first column left out without
-    include_intercept; outside the boundary knots patsy raises. The frozen spline step
-    (format version 3) takes distinct knots, so the basis is re-expressed on the same
-    inner knots with the ends extended by the end intervals' widths, which spans the same
-    piecewise polynomials on [lower, upper]: each patsy basis function is a combination
-    of the extended ones (solved by least squares on 20 points per interval, checked to
-    1e-13), and the coefficients move through that map. Outside [lower, upper] the
-    extrapolation is 'error': treated as missing, the term then adds nothing (the frozen
-    model's rule for what statsmodels cannot score)."""
+    """patsy's bs(x, ...) or cr(x, ...) as a spline feature (format version 3).
+
+    bs: the B-spline basis on the knot vector patsy memorized (boundary knots repeated
+    degree + 1 times), its first column left out without include_intercept; outside the
+    boundary knots patsy raises, so the extrapolation is 'error' (treated as missing: the
+    term adds nothing, the frozen model's rule for what statsmodels cannot score).
+    cr: mgcv's natural cubic regression spline (with any constraints= patsy applied), a
+    cubic spline on its knots that continues linearly beyond them: the extrapolation is
+    'linear'. The frozen spline step takes distinct knots, so the basis is re-expressed on
+    the same knots with the ends extended by the end intervals' widths, which spans the
+    same piecewise polynomials on [lower, upper]: each of patsy's columns is a combination
+    of the extended basis functions (least squares on 20 points per interval, patsy's own
+    transform evaluating its side, checked to 1e-13), and the coefficients move through
+    that map."""
     from scipy.interpolate import BSpline
 
     obj = next(iter(info.state["transforms"].values()))
     tree = _parse_expr(info.state["eval_code"], term.name())
     if not (isinstance(tree, ast.Call) and len(tree.args) == 1
             and isinstance(tree.args[0], ast.Name)):
-        raise Unsupported(f"term {term.name()!r}: bs() of a column is frozen, not of an "
+        raise Unsupported(f"term {term.name()!r}: a spline of a column is frozen, not of an "
                           "expression")
     options = {k.arg: ast.literal_eval(k.value) for k in tree.keywords}
-    include_intercept = bool(options.get("include_intercept", False))
-    k = int(obj._degree)
+    if type(obj).__name__ == "CR":
+        k, extrapolation = 3, "linear"
+        cuts = [float(v) for v in obj._all_knots]
+    else:
+        k, extrapolation = int(obj._degree), "error"
+        clamped = [float(v) for v in obj._all_knots]
+        cuts = [clamped[0], *clamped[k + 1:len(clamped) - k - 1], clamped[-1]]
     if k not in SPLINE_DEGREES:
         raise Unsupported(f"term {term.name()!r}: degree {k}; degrees "
                           f"{', '.join(map(str, SPLINE_DEGREES))} are frozen")
-    clamped = np.asarray(obj._all_knots, dtype=np.float64)
-    lo, hi = float(clamped[0]), float(clamped[-1])
-    inner = [float(v) for v in clamped[k + 1:len(clamped) - k - 1]]
-    cuts = [lo, *inner, hi]
-    if any(not a < b for a, b in zip(cuts, cuts[1:])):
-        raise Unsupported(f"term {term.name()!r}: repeated inner knots are not frozen")
+    if len(cuts) < 2 or any(not a < b for a, b in zip(cuts, cuts[1:])):
+        raise Unsupported(f"term {term.name()!r}: repeated knots are not frozen")
     h_lo, h_hi = cuts[1] - cuts[0], cuts[-1] - cuts[-2]
-    knots = tuple([lo - h_lo * i for i in range(k, 0, -1)] + cuts
-                  + [hi + h_hi * i for i in range(1, k + 1)])
-    n = len(clamped) - k - 1
+    knots = tuple([cuts[0] - h_lo * i for i in range(k, 0, -1)] + cuts
+                  + [cuts[-1] + h_hi * i for i in range(1, k + 1)])
     x = np.concatenate([np.linspace(a, b, 20) for a, b in zip(cuts, cuts[1:])])
-    old = BSpline.design_matrix(x, clamped, k).toarray()
+    old = np.asarray(obj.transform(x, **options), dtype=np.float64)
     new = BSpline.design_matrix(x, np.asarray(knots), k).toarray()
     m, *_ = np.linalg.lstsq(new, old, rcond=None)   # old = new @ m
-    if np.max(np.abs(new @ m - old)) > 1e-13:
+    if old.shape[1] != len(params) or np.max(np.abs(new @ m - old)) > 1e-13:
         raise Unsupported(f"term {term.name()!r}: its basis could not be re-expressed on "
                           "distinct knots to 1e-13")
-    beta = np.zeros(n)
-    beta[(0 if include_intercept else 1):] = np.asarray(params, dtype=np.float64)
-    columns = [(i, math.fsum(float(m[i, j]) * float(beta[j]) for j in range(n)))
-               for i in range(n)]
-    step = ScalingStep(SPLINE, knots=knots, degree=k, extrapolation="error")
+    beta = [float(b) for b in params]
+    columns = [(i, math.fsum(float(m[i, j]) * beta[j] for j in range(len(beta))))
+               for i in range(new.shape[1])]
+    step = ScalingStep(SPLINE, knots=knots, degree=k, extrapolation=extrapolation)
     return (NumericFeature(tree.args[0].id, None, (step,)),
             [(i, c) for i, c in columns if c != 0.0])
 
@@ -580,7 +585,8 @@ class ResultsSource:
                       if getattr(results.model.data, "k_constant", 0) else None)
         self.transforms = [(f.name, f.scaling[0].op) for f in model.features
                            if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
-        self.splines = [(f.name, f.scaling[0].spline_range()) for f in model.features
+        self.splines = [(f.name, f.scaling[0].spline_range(), f.scaling[0].extrapolation)
+                        for f in model.features
                         if getattr(f, "scaling", ()) and f.scaling[0].op == SPLINE]
 
     def _exog(self, frame):
@@ -610,7 +616,9 @@ class ResultsSource:
         # outside bs()'s boundary knots patsy raises for the row alone, but in a batch that
         # also holds a missing value its bounds check sees NaN and lets splev extrapolate:
         # no score either way; the frozen model treats the value as missing
-        for name, (lo, hi) in self.splines:
+        for name, (lo, hi), extrapolation in self.splines:
+            if extrapolation != "error":
+                continue
             values = np.asarray(frame[name], dtype=np.float64)
             out = np.where((values < lo) | (values > hi), np.nan, out)
         return out
