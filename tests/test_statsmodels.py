@@ -255,7 +255,7 @@ def test_patsy_splines_agree_with_predict(formula):
     assert any("spline" == getattr(f, "scaling", (None,))[0].op for f in model.features
                if getattr(f, "scaling", ()))
     _agree(results, model, data)
-    name = formula.split("bs(")[1].split(",")[0]
+    name = formula.split("(", 1)[1].split(",")[0]
     lo, hi = data[name].min(), data[name].max()
     edge = data.head(2).assign(**{name: [lo, hi]})
     _agree(results, model, edge)
