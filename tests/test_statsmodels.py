@@ -276,3 +276,33 @@ def test_a_patsy_spline_builds_and_verifies(tmp_path):
     report = build_targets(model, tmp_path, targets=["python", "c-double", "sql-sqlite",
                                                      "sql-duckdb", "onnx-double"], data=None)
     assert report.ok, [r.message for r in report.results]
+
+
+@pytest.mark.parametrize("formula", [
+    "affairs ~ bs(age, df=4) + educ",
+    "affairs ~ bs(age, df=5, degree=2, extrapolation='extend') + C(religious)",
+    "affairs ~ bs(yrs_married, knots=[3, 8, 15], include_intercept=True, "
+    "extrapolation='clip') - 1",
+])
+def test_formulaic_b_splines_agree_with_predict(formula):
+    """formulaic's bs() (its basis_spline, evaluated by formulaic itself when freezing) with
+    its extrapolations 'raise' (no score: the term adds nothing), 'extend' (the end
+    polynomials) and 'clip' (the boundary values): agreement with statsmodels' predict to
+    1e-12, outside the knots too where formulaic scores."""
+    import statsmodels.formula
+
+    pytest.importorskip("formulaic")
+    options = statsmodels.formula.options
+    before = options.formula_engine
+    options.formula_engine = "formulaic"
+    try:
+        data = _fair()
+        results = smf.glm(formula, data=data, family=sm.families.Poisson()).fit()
+        model, checked = freeze_checked(results, check_rows=data)
+        _agree(results, model, data)
+        if "extrapolation" in formula:
+            name = formula.split("(", 1)[1].split(",")[0]
+            lo, hi = data[name].min(), data[name].max()
+            _agree(results, model, data.head(2).assign(**{name: [lo - 5.0, hi + 5.0]}))
+    finally:
+        options.formula_engine = before

@@ -258,10 +258,15 @@ def _from_formula(spec, names, params):
                                                    dtype=np.float64)
                                      for f in sub.contrast_matrices}) for sub in subterms]
         terms.append((term.name(), factors, subs, params[spec.term_slices[term]]))
-    features, design, coefs, intercept, inputs = _design_of_terms(terms)
+    return _with_splines(_design_of_terms(terms), splines)
+
+
+def _with_splines(built, splines):
+    """The design of the other terms, with each spline feature's basis columns added."""
+    features, design, coefs, intercept, inputs = built
     by_name = {f.name: f for f in features}
     for feat, columns in splines:
-        _add_feature(by_name, feat, f"bs({feat.name}, ...)")
+        _add_feature(by_name, feat, f"a spline of {feat.name}")
         if feat.name not in inputs:
             features.append(feat)
             inputs.append(feat.name)
@@ -310,27 +315,75 @@ def _bs_term(term, info, params):
         k, extrapolation = int(obj._degree), "error"
         clamped = [float(v) for v in obj._all_knots]
         cuts = [clamped[0], *clamped[k + 1:len(clamped) - k - 1], clamped[-1]]
+    return _spline_feature(term.name(), tree.args[0].id, k, cuts, extrapolation,
+                           lambda x: obj.transform(x, **options), params)
+
+
+def _spline_feature(term: str, column: str, k: int, cuts, extrapolation: str, evaluate,
+                    params):
+    """The spline feature whose basis, on distinct knots, reproduces the formula engine's
+    spline columns (`evaluate`) on [cuts[0], cuts[-1]]; and its design columns."""
+    from scipy.interpolate import BSpline
+
     if k not in SPLINE_DEGREES:
-        raise Unsupported(f"term {term.name()!r}: degree {k}; degrees "
+        raise Unsupported(f"term {term!r}: degree {k}; degrees "
                           f"{', '.join(map(str, SPLINE_DEGREES))} are frozen")
     if len(cuts) < 2 or any(not a < b for a, b in zip(cuts, cuts[1:])):
-        raise Unsupported(f"term {term.name()!r}: repeated knots are not frozen")
+        raise Unsupported(f"term {term!r}: repeated knots are not frozen")
     h_lo, h_hi = cuts[1] - cuts[0], cuts[-1] - cuts[-2]
     knots = tuple([cuts[0] - h_lo * i for i in range(k, 0, -1)] + cuts
                   + [cuts[-1] + h_hi * i for i in range(1, k + 1)])
     x = np.concatenate([np.linspace(a, b, 20) for a, b in zip(cuts, cuts[1:])])
-    old = np.asarray(obj.transform(x, **options), dtype=np.float64)
+    old = np.asarray(evaluate(x), dtype=np.float64)
     new = BSpline.design_matrix(x, np.asarray(knots), k).toarray()
     m, *_ = np.linalg.lstsq(new, old, rcond=None)   # old = new @ m
     if old.shape[1] != len(params) or np.max(np.abs(new @ m - old)) > 1e-13:
-        raise Unsupported(f"term {term.name()!r}: its basis could not be re-expressed on "
+        raise Unsupported(f"term {term!r}: its basis could not be re-expressed on "
                           "distinct knots to 1e-13")
     beta = [float(b) for b in params]
     columns = [(i, math.fsum(float(m[i, j]) * beta[j] for j in range(len(beta))))
                for i in range(new.shape[1])]
     step = ScalingStep(SPLINE, knots=knots, degree=k, extrapolation=extrapolation)
-    return (NumericFeature(tree.args[0].id, None, (step,)),
+    return (NumericFeature(column, None, (step,)),
             [(i, c) for i, c in columns if c != 0.0])
+
+
+# formulaic's bs(extrapolation=...) -> the frozen rule: 'raise' and 'na' give no score
+# (the frozen model: missing, the term adds nothing), 'zero' basis values 0 (the same),
+# 'clip' the boundary values, 'extend' the end polynomials
+FORMULAIC_EXTRAPOLATION = {"raise": "error", "na": "error", "zero": "error",
+                           "clip": "constant", "extend": "continue"}
+
+
+def _formulaic_spline(spec, ets, params):
+    """formulaic's bs(x, ...) (its basis_spline) as a spline feature, or None."""
+    if len(ets.scoped_terms) != 1 or len(ets.scoped_terms[0].factors) != 1:
+        return None
+    expr = ets.scoped_terms[0].factors[0].factor.expr
+    state = spec.transform_state.get(expr)
+    tree = _parse_expr(expr, expr)
+    if not (isinstance(state, dict) and "knots" in state and isinstance(tree, ast.Call)
+            and isinstance(tree.func, ast.Name) and tree.func.id in ("bs", "basis_spline")):
+        return None
+    if len(tree.args) != 1 or not isinstance(tree.args[0], ast.Name):
+        raise Unsupported(f"term {expr!r}: a spline of a column is frozen, not of an "
+                          "expression")
+    from formulaic.transforms import basis_spline
+
+    options = {k.arg: ast.literal_eval(k.value) for k in tree.keywords}
+    k = int(options.get("degree", 3))
+    mode = str(getattr(options.get("extrapolation", "raise"), "value",
+                       options.get("extrapolation", "raise")))
+    if mode not in FORMULAIC_EXTRAPOLATION:
+        raise Unsupported(f"term {expr!r}: extrapolation {mode!r} is not frozen")
+    clamped = [float(v) for v in state["knots"]]
+    cuts = [clamped[0], *clamped[k + 1:len(clamped) - k - 1], clamped[-1]]
+
+    def evaluate(x):
+        return np.column_stack(list(basis_spline(x, _state=dict(state), **options).values()))
+
+    return _spline_feature(expr, tree.args[0].id, k, cuts, FORMULAIC_EXTRAPOLATION[mode],
+                           evaluate, params)
 
 
 def _from_formulaic(spec, names, params):
@@ -341,11 +394,15 @@ def _from_formulaic(spec, names, params):
     if list(spec.column_names) != list(names):
         raise Unsupported("the formula's design columns are not the model's exog columns")
     position = {name: j for j, name in enumerate(spec.column_names)}
-    terms = []
+    terms, splines = [], []
     for ets in spec.structure:
         start = position[ets.columns[0]] if ets.columns else 0
         beta = params[start:start + len(ets.columns)]
         name = str(ets.term)
+        spline = _formulaic_spline(spec, ets, beta)
+        if spline is not None:
+            splines.append(spline)
+            continue
         factors, subs, seen = [], [], {}
         for scoped in ets.scoped_terms:
             if scoped.scale != 1:
@@ -366,7 +423,7 @@ def _from_formulaic(spec, names, params):
             terms.append((name, [], [], beta))
             continue
         terms.append((name, factors, subs, beta))
-    return _design_of_terms(terms)
+    return _with_splines(_design_of_terms(terms), splines)
 
 
 def _formulaic_factor(spec, factor, term: str):
