@@ -135,7 +135,7 @@ def test_spector_probit_matches_the_published_fit_and_predicts_alike():
 
 
 @pytest.mark.parametrize("link, name", [("probit", "Probit"), ("cloglog", "CLogLog"),
-                                        ("cauchit", "Cauchy")])
+                                        ("cauchit", "Cauchy"), ("log", "Log")])
 def test_glm_binomial_links_freeze_and_agree(link, name):
     y, x, exog = _spector()
     family = sm.families.Binomial(getattr(sm.families.links, name)())
@@ -168,7 +168,7 @@ def _probit_model(link="probit"):
     y, x, exog = _spector()
     family = sm.families.Binomial(getattr(sm.families.links,
                                           {"probit": "Probit", "cloglog": "CLogLog",
-                                           "cauchit": "Cauchy"}[link])())
+                                           "cauchit": "Cauchy", "log": "Log"}[link])())
     return scorewright.freeze(sm.GLM(y, x, family=family).fit(), check_rows=exog)
 
 
@@ -188,7 +188,9 @@ def test_the_model_file_says_version_2_only_when_it_needs_to():
         parse_model(json.dumps(doc))
 
 
-@pytest.mark.parametrize("link", ["probit", "cloglog", "cauchit"])
+@pytest.mark.parametrize("link", ["probit", "cloglog",
+                                  pytest.param("cauchit", marks=pytest.mark.slow),
+                                  pytest.param("log", marks=pytest.mark.slow)])
 def test_links_verify_on_the_targets_that_render_the_program(link, tmp_path):
     """Python and the portable-exp C and Java builds bit-identical with the reference;
     C with glibc's exp bit-identical too; firmware (newlib's exp) within its profile."""
@@ -257,3 +259,23 @@ def test_the_inverse_link_near_zero_is_the_stated_value_on_every_target(tmp_path
                            targets=["python", "c-double", "c-float", "java", "onnx-double",
                                     "sql-sqlite", "sql-duckdb"])
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
+
+
+@pytest.mark.parametrize("link", ["cauchit", "log"])
+def test_the_newer_links_verify_on_a_target_of_each_kind(link, tmp_path):
+    """The cauchit and log-binomial links on CPython, gcc, SQLite and onnxruntime (every
+    target under --runslow, above)."""
+    from scorewright.verify.harness import build_targets
+
+    report = build_targets(_probit_model(link), tmp_path, data=None, n_random=300,
+                           targets=["python", "c-double", "sql-sqlite", "onnx-double"])
+    assert report.ok, [(r.profile.name, r.message) for r in report.results]
+
+
+def test_the_log_binomial_cut_and_its_ceiling():
+    """A log-binomial model's p1 = exp(m) is 1 for a margin above 0 (statsmodels' exp(m)
+    would exceed 1), and the cut is the largest margin with p1 <= 1/2 (near ln 1/2)."""
+    assert link_probability("log", 0.5) == 1.0 and link_probability("log", -0.0) == 1.0
+    assert link_probability("log", math.log(0.25)) == math.exp(math.log(0.25))
+    cut = half_cut("log")
+    assert link_probability("log", cut) <= 0.5 < link_probability("log", math.nextafter(cut, 1))

@@ -46,7 +46,7 @@ TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, Fal
 # multiclass "ovr_logit": one-vs-rest logistic, each class's sigmoid divided by their sum;
 # regression "log1p": the value is expm1(margin), "sqrt": the value is margin * margin,
 # "inverse": 1 / margin (statsmodels' InversePower); binary "cauchit": the Cauchy CDF
-TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit"),
+TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit", "log"),
               "multiclass": ("softmax", "ovr_logit"),
               "regression": ("identity", "log", "log1p", "sqrt", "inverse")}
 # links an older file version cannot hold
@@ -227,6 +227,8 @@ def needs_version(model: FrozenModel) -> tuple[int, str]:
                 return 3, f"the {step.op} step of feature {feat.name!r}"
     if model.head.link in LINK_VERSION:
         return LINK_VERSION[model.head.link], f"the {model.head.link} link"
+    if model.head.task == "binary" and model.head.link == "log":
+        return 3, "the log link of a binary head"
     for feat in model.features:
         for step in getattr(feat, "scaling", ()):
             if step.op in TRANSFORM_OPS or step.op == BINS:

@@ -814,8 +814,18 @@ def _lower_cauchit(b: _Builder, plan: Plan, m) -> tuple[str, str]:
     return b.emit("sub", Const(1.0), p1, hint="p"), p1
 
 
+def _lower_log_binary(b: _Builder, plan: Plan, m) -> tuple[str, str]:
+    """A log-binomial model's probability p1 = exp(m) (statsmodels' Binomial family with
+    the log link), m clamped to [-exp_guard, 0]: a margin above 0, where exp(m) would
+    exceed 1, gives 1; p0 = 1 - p1."""
+    g = b.emit("max", m, Const(-plan.precision.exp_guard))
+    g = b.emit("min", g, Const(0.0))
+    p1 = b.emit("exp", g, hint="p")
+    return b.emit("sub", Const(1.0), p1, hint="p"), p1
+
+
 _BINARY_LINKS = {"logit": _lower_logit, "probit": _lower_probit, "cloglog": _lower_cloglog,
-                 "cauchit": _lower_cauchit}
+                 "cauchit": _lower_cauchit, "log": _lower_log_binary}
 
 
 def link_probability(link: str, margin: float, precision=None, exp_kind: str = "libm") -> float:

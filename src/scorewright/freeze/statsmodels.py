@@ -58,6 +58,7 @@ GLM_LINKS = {("Binomial", "Logit"): ("binary", "logit"),
              ("Binomial", "Probit"): ("binary", "probit"),
              ("Binomial", "CLogLog"): ("binary", "cloglog"),
              ("Binomial", "Cauchy"): ("binary", "cauchit"),
+             ("Binomial", "Log"): ("binary", "log"),
              ("Gaussian", "Identity"): ("regression", "identity"),
              ("Gamma", "InversePower"): ("regression", "inverse"),
              ("Gaussian", "InversePower"): ("regression", "inverse")}
@@ -165,7 +166,7 @@ def _task_and_link(model, kind: str) -> tuple[str, str]:
     if fam in LOG_FAMILIES and lnk == "Log":
         return "regression", "log"
     raise Unsupported(f"GLM {fam} family with the {lnk} link is not supported; frozen links: "
-                      "Binomial with logit, probit, cloglog or cauchit, Gaussian/identity, "
+                      "Binomial with logit, probit, cloglog, cauchit or log, Gaussian/identity, "
                       "inverse for "
                       "Gamma and Gaussian, log for Poisson, Gamma, Tweedie, NegativeBinomial, "
                       "Gaussian and InverseGaussian")
@@ -174,13 +175,14 @@ def _task_and_link(model, kind: str) -> tuple[str, str]:
 def half_cut(link: str) -> float:
     """The decision cut of "probability > 0.5". The symmetric links cut at 0.0, the sign
     of the margin (p1 is exactly 0.5 there; margins within about 1e-16 above it round to
-    0.5 too). For cloglog: the largest margin whose positive-class probability, as the
-    scoring program computes it, is at most 0.5, found near ln(ln 2) a double at a time."""
+    0.5 too). For cloglog and log: the largest margin whose positive-class probability, as
+    the scoring program computes it, is at most 0.5, found near ln(ln 2) (cloglog) or
+    ln(1/2) (log) a double at a time."""
     if link in ("logit", "probit", "cauchit"):
         return 0.0
     from ..program import link_probability
 
-    cut = math.log(math.log(2.0))
+    cut = math.log(0.5) if link == "log" else math.log(math.log(2.0))
     while link_probability(link, cut) > 0.5:
         cut = math.nextafter(cut, -math.inf)
     while link_probability(link, math.nextafter(cut, math.inf)) <= 0.5:
@@ -642,6 +644,7 @@ class ResultsSource:
                       if getattr(results.model.data, "k_constant", 0) else None)
         self.transforms = [(f.name, f.scaling[0].op) for f in model.features
                            if getattr(f, "scaling", ()) and f.scaling[0].op in TRANSFORM_OPS]
+        self.log_binomial = model.head.task == "binary" and model.head.link == "log"
         self.splines = [(f.name, f.scaling[0].spline_range(), f.scaling[0].extrapolation)
                         for f in model.features
                         if getattr(f, "scaling", ()) and f.scaling[0].op == SPLINE]
@@ -673,6 +676,9 @@ class ResultsSource:
         # outside bs()'s boundary knots patsy raises for the row alone, but in a batch that
         # also holds a missing value its bounds check sees NaN and lets splev extrapolate:
         # no score either way; the frozen model treats the value as missing
+        if self.log_binomial:
+            # statsmodels' exp(m) above 1 is no probability: no score; the frozen model's is 1
+            out = np.where(out > 1.0, np.nan, out)
         for name, (lo, hi), extrapolation in self.splines:
             if extrapolation != "error":
                 continue
