@@ -124,8 +124,10 @@ def test_model_file_holds_power_steps_in_version_3():
             parse_model(resealed(bad))
 
 
+@pytest.mark.slow
 def test_power_transforms_verify_on_python(tmp_path):
-    """Python by default; every family under --runslow."""
+    """The Python target alone (every family: the test below); both under --runslow (the
+    default tier holds the transform and the predictions to scikit-learn above)."""
     from scorewright.verify.harness import build_targets
 
     x, y = _frame()

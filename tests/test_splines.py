@@ -100,9 +100,9 @@ def test_basis_values_are_scipys_bits(rule, degree):
         assert np.array_equal(got, want), (knots, np.argwhere(got != want)[:3])
 
 
-# the default tier: degree 3 with every rule, degree 2 with three; --runslow: all
+# the default tier: degree 3 with every rule, degree 2 with two; --runslow: all
 AGREEMENT = [pytest.param(rule, degree, id=f"{degree}-{rule}", marks=() if degree == 3 or (
-    degree == 2 and rule in ("error", "linear", "periodic")) else pytest.mark.slow)
+    degree == 2 and rule in ("linear", "periodic")) else pytest.mark.slow)
     for degree in (1, 2, 3) for rule in RULES]
 
 
@@ -235,7 +235,7 @@ def test_model_file_holds_splines_in_version_3():
             parse_model(_resealed(bad))
 
 
-def test_splines_verify_on_python_and_sqlite(tmp_path):
+def test_splines_verify_on_python(tmp_path):
     """Verify's edge rows hold every knot and one double either side, and rows far
     outside the knots; the random rows reach past both ends."""
     from scorewright.verify.harness import build_targets
@@ -247,8 +247,7 @@ def test_splines_verify_on_python_and_sqlite(tmp_path):
         ("l", SplineTransformer(n_knots=4, degree=2, extrapolation="linear"), ["load_pct"])]),
         LogisticRegression(max_iter=2000)).fit(x, y)
     model = scorewright.freeze(pipe, check_rows=x)
-    report = build_targets(model, tmp_path, data=None, n_random=300,
-                           targets=["python", "sql-sqlite"])
+    report = build_targets(model, tmp_path, data=None, n_random=150, targets=["python"])
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
 
 
