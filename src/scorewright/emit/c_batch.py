@@ -59,6 +59,8 @@ def batch_spelling(row: Spelling, prec: CPrecision) -> Spelling:
 BATCH_BLOCK = 16
 BLOCK_SLOTS = 16
 BLOCK_BYTES = 2560
+# Chunks per function of a wide model's batch scorer (see batch_code).
+PART_CHUNKS = 8
 
 
 def block_shape(program: Program, prec: CPrecision) -> tuple[int, int]:
@@ -83,27 +85,35 @@ def batch_code(program: Program, spelling: Spelling, link_spelling: Spelling,
     block, positions = block_shape(program, prec)
     split = split_margins(program, positions)
     decls: list[str] = []
-    lines: list[str] = []
-    uses_j = False
+    chunks = []   # per chunk: its statements, its slots, whether it loops on j
     n_runs = 0
-    slots = 0
-    sums = []
     for first in range(0, len(split.groups), positions):
         chunk = split.groups[first:first + positions]
         body, order, n_runs = _chunk_terms(program, chunk, spelling, prec, prefix, tables,
                                            decls, n_runs)
-        slots = max(slots, len(order))
-        uses_j |= any(line.startswith("for (j") for line in body)
+        uses_j = any(line.startswith("for (j") for line in body)
         reads = "x[" in "\n".join(body)
-        lines += ["for (r = 0; r < n; r++) {"]
+        lines = ["for (r = 0; r < n; r++) {"]
         lines += [f"    const double *x = rows + (size_t)r * {len(plan.inputs)};"] if reads else []
         lines += [f"    {line}" for line in body] + ["}"]
         add, used = _chunk_sums(order, K, R)
-        uses_j |= used
-        lines += add
+        chunks.append((lines + add, len(order), uses_j or used))
+    # a wide model's chunks go to functions of PART_CHUNKS chunks each (the same
+    # statements in the same order): GCC's time grows faster than a function's length
+    parts = []
+    if len(chunks) > PART_CHUNKS:
+        for i in range(0, len(chunks), PART_CHUNKS):
+            group = chunks[i:i + PART_CHUNKS]
+            parts.append({"name": f"{prefix}_batch_part{len(parts)}",
+                          "lines": _locals(group, block, R) + ["(void)rows;", "(void)m;"] + [
+                              line for lines, _, _ in group for line in lines]})
+        lines = [f"{part['name']}(rows, n, m);" for part in parts]
+        chunk_locals = []
+    else:
+        lines = [line for body, _, _ in chunks for line in body]
+        chunk_locals = _locals(chunks, block, R)
     intercepts = Renderer(program, spelling, {}, tables=tables)
-    top = [f"{R} m[{K}][{block}];", "int r;"] + (["int j;"] if uses_j else [])
-    top = ([f"{R} t[{block}][{slots}];"] if slots else []) + top
+    top = [f"{R} m[{K}][{block}];"] + (chunk_locals or ["int r;"])
     top += ["(void)rows; /* a model whose weights are all zero reads no input */",
             "(void)m; /* a margin of no terms is its intercept, a constant */",
             "for (r = 0; r < n; r++) {"]
@@ -120,7 +130,15 @@ def batch_code(program: Program, spelling: Spelling, link_spelling: Spelling,
     body += [f"out[(size_t)r * {len(outputs)} + {j}] = (double){link.outputs[o]};"
              for j, o in enumerate(outputs)]
     lines += ["for (r = 0; r < n; r++) {"] + [f"    {line}" for line in body] + ["}"]
-    return {"batch_tables": decls, "batch_lines": lines, "batch_block": block}
+    return {"batch_tables": decls, "batch_lines": lines, "batch_block": block,
+            "batch_parts": parts}
+
+
+def _locals(chunks, block: int, R: str) -> list[str]:
+    """The terms table (as long as the chunks' longest), r, and j where a chunk loops."""
+    slots = max((n for _, n, _ in chunks), default=0)
+    out = [f"{R} t[{block}][{slots}];"] if slots else []
+    return out + ["int r;"] + (["int j;"] if any(j for _, _, j in chunks) else [])
 
 
 def _chunk_terms(program: Program, chunk, spelling: Spelling, prec: CPrecision, prefix: str,
