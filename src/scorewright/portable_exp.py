@@ -133,9 +133,10 @@ def expf(x: float) -> float:
 _C_BINARY = {"add": "+", "sub": "-", "mul": "*", "div": "/"}
 
 
-def c_statement(dest: str, op: str, args: list[str], pow2: str) -> str:
+def c_statement(dest: str, op: str, args: list[str], pow2: str, pick: str | None = None) -> str:
     """One step as a C statement on locals named as in STEPS (constants as literals);
-    `pow2` names the C function that builds 2^k from its bits."""
+    `pow2` names the C function that builds 2^k from its bits; `pick(f, a, b)`, if
+    named, selects a's or b's bits without a branch (the same value as f ? a : b)."""
     def operand(name):
         return CONSTANTS[name] if name in CONSTANTS else name
 
@@ -143,13 +144,13 @@ def c_statement(dest: str, op: str, args: list[str], pow2: str) -> str:
     b = operand(args[1]) if len(args) > 1 else None
     if op in _C_BINARY:
         return f"{dest} = {a} {_C_BINARY[op]} {b};"
-    if op == "max":
-        return f"{dest} = ({a} < {b}) ? {b} : {a};"
-    if op == "min":
-        return f"{dest} = ({a} > {b}) ? {b} : {a};"
-    if op == "half_away":
-        half = CONSTANTS["HALF"]
-        return f"{dest} = ({a} >= 0.0) ? {half} : -{half};"
+    if op in ("max", "min", "half_away"):
+        test, yes, no = {"max": (f"{a} < {b}", b, a), "min": (f"{a} > {b}", b, a),
+                         "half_away": (f"{a} >= 0.0", CONSTANTS["HALF"],
+                                       "-" + CONSTANTS["HALF"])}[op]
+        if pick is not None:
+            return f"{dest} = {pick}({test}, {yes}, {no});"
+        return f"{dest} = ({test}) ? {yes} : {no};"
     if op == "trunc":
         return f"{dest} = (int){a};"
     if op == "real":
@@ -159,9 +160,9 @@ def c_statement(dest: str, op: str, args: list[str], pow2: str) -> str:
     raise ValueError(f"unknown step {op!r}")
 
 
-def c_lines(pow2: str) -> list[str]:
+def c_lines(pow2: str, pick: str | None = None) -> list[str]:
     """The routine's body statements in C, in STEPS order."""
-    return [c_statement(dest, op, list(args), pow2) for dest, op, *args in STEPS]
+    return [c_statement(dest, op, list(args), pow2, pick) for dest, op, *args in STEPS]
 
 
 def c_locals() -> list[str]:

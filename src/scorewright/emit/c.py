@@ -18,6 +18,7 @@ by the command line, which measures the artifact (verify/firmware_size.py).
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 from ..errors import ScorewrightError
@@ -79,10 +80,12 @@ def driver_source(model: FrozenModel, prefix: str | None = None,
 
 
 def exp_routine(prefix: str) -> dict:
-    """The portable exp's C function names, locals and statements."""
+    """The portable exp's C function names, locals and statements (its selections as
+    selections of bits, so a loop that calls it vectorizes)."""
     pow2 = f"{prefix}_pow2"
     return {"pow2": pow2, "name": f"{prefix}_exp", "float_name": f"{prefix}_expf",
-            "locals": portable_exp.c_locals(), "lines": portable_exp.c_lines(pow2)}
+            "locals": portable_exp.c_locals(),
+            "lines": portable_exp.c_lines(pow2, pick=f"{prefix}_pick")}
 
 
 def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
@@ -114,6 +117,8 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
     tables = _table_names(plan, prefix)
     return {
         "prefix": prefix,
+        "pick": pick_name(prefix, PRECISIONS["double"]),
+        "pickf": pick_name(prefix, PRECISIONS["float"]),
         "decision_only": decision_only,
         "portable_exp": routine,
         "exp_fn": exp_fn,
@@ -130,10 +135,39 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         "batch_width": plan.n_outputs if plan.task == "multiclass" else 1,
         "tables": _tables(plan, prec, prefix),
         **program_code(program, split, spelling, names, prefix, tables, decision_only),
-        # the batch scorer is one function: its margins in one part
-        **batch_code(program, split_margins(program), batch_spelling(spelling, prec), prec,
-                     prefix, tables),
+        **({} if decision_only else _batch(program, spelling, prec, prefix, tables)),
     }
+
+
+def _batch(program: Program, spelling: Spelling, prec: CPrecision, prefix: str,
+           tables: dict) -> dict:
+    """The batch scorer's passes (c_batch): it writes the probabilities (the value of a
+    regression); a binary model's batch row holds the probability of class 1 alone."""
+    plan = program.plan
+    outputs = [o for o in output_names(plan) if o.startswith(("probability_", "value"))]
+    if plan.task == "binary":
+        outputs = outputs[-1:]
+    margin_part = {op.dest for cone, _ in split_margins(program).groups for op in cone}
+    margin_part |= {m for m in split_margins(program).margins if isinstance(m, str)}
+    return batch_code(program, batch_spelling(spelling, prec), block_spelling(spelling, prec, prefix),
+                      prec, prefix, tables, outputs, margin_part)
+
+
+def pick_name(prefix: str, prec: CPrecision) -> str:
+    """The selection of bits (template: `pick`) for reals of this precision."""
+    return f"{prefix}_pick" + ("f" if prec.real == "float" else "")
+
+
+def block_spelling(row: Spelling, prec: CPrecision, prefix: str) -> Spelling:
+    """The link over a block of rows: each selection of reals (a select, a min or max) is a
+    selection of bits, no branch, so the loop over the block vectorizes."""
+    pick = pick_name(prefix, prec)
+    return dataclasses.replace(row, ops={
+        **row.ops,
+        "select:real": pick + "({0}, {1}, {2})",
+        "max": pick + "({1} > {0}, {1}, {0})",
+        "min": pick + "({1} < {0}, {1}, {0})",
+    })
 
 
 def _tables(plan: Plan, prec: CPrecision, prefix: str) -> list[dict]:

@@ -5,8 +5,9 @@ A language is data: a `Spelling` of literals, names, the assignment forms and on
 per primitive (`{0}`, `{1}`... are the operands, already spelled; `{src}` the text a
 read takes its raw value from; `{n}` a read's number of levels; `{table}` the name the
 renderer gave a lookup table; for the ordered sum, the text that joins its operands
-left to right). The walk over the program is written once here; a primitive a
-language has no spelling for is one error that names both.
+left to right; a key "op:type" spells the op for that result type alone, before
+"op"). The walk over the program is written once here; a primitive a language has
+no spelling for is one error that names both.
 """
 
 from __future__ import annotations
@@ -64,7 +65,8 @@ class Renderer:
             if op.op == "output":
                 self.outputs[op.attr] = args[0]
                 continue
-            text = self.spelling.ops.get(op.op)
+            # a spelling of the op for its result type ("select:real") comes first
+            text = self.spelling.ops.get(f"{op.op}:{op.type}") or self.spelling.ops.get(op.op)
             if text is None:
                 raise ScorewrightError(
                     f"target {self.spelling.language} cannot express op {op.op}")
