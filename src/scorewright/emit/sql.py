@@ -283,7 +283,7 @@ def scoring_query(plan: Plan, s: Settings) -> str:
         q = build_query(plan, d, sources)
         cols = ["t.*"]
         open_, close = f"FROM {table} AS t CROSS JOIN LATERAL (", ") AS s"
-    elif d.passthrough == "row":
+    elif d.passthrough == "row" and not wide:
         q = build_query(plan, d, sources, f"{table} AS t", [("rw", d.row_value)])
         cols = [d.row_columns]
         open_, close = "FROM (", ") AS s"

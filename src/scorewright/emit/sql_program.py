@@ -27,13 +27,14 @@ it gives.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Callable
 
 from ..errors import ScorewrightError
 from ..plan import Plan
 from ..program import Const, Op, lower, prune
-from . import sql_guards, sql_reading, sql_sqlite_text
+from . import sql_guards, sql_ordinary, sql_reading, sql_sqlite_text
 from .sql_dialects import DBL_MAX, Dialect, literal
 
 # An inlined expression deeper than this becomes a column (engines parse expressions
@@ -191,6 +192,9 @@ class Renderer:
         self.ops, self.block = _order(ops, self.n_blocks)
         self.table = spellings(d)
         self.risky = sql_guards.risky(self.ops) if d.raises_on_underflow else set()
+        self.by_dest = {op.dest: op for op in self.ops}
+        self.position = {op.dest: j for j, op in enumerate(self.ops)}
+        self.general = sql_guards.intervals(self.ops)
 
     def _template(self, op: Op):
         d = self.d
@@ -235,6 +239,9 @@ class Renderer:
             if isinstance(a, Const):
                 text = str(a.value) if isinstance(a.value, int) else literal(self.d, a.value)
                 return f"({text})" if text.startswith("-") else text
+            same = (known or {}).get(a)
+            if isinstance(same, sql_ordinary.Same):
+                return operand(same.name, ref, known)
             if a in inline:
                 return f"({inline[a](ref, known or {})})"
             return f"{ref}.{alias[a]}"
@@ -248,10 +255,13 @@ class Renderer:
                 # Inside an arm the flag's value is known: a select on the same flag
                 # there is its arm (the same name, so the same value).
                 known = known or {}
-                if flag in known:
-                    return operand(yes if known[flag] else no, ref, known)
-                return tmpl([operand(flag, ref, known), operand(yes, ref, {**known, flag: True}),
-                             operand(no, ref, {**known, flag: False})])
+                f = flag
+                while isinstance(known.get(f), sql_ordinary.Same):
+                    f = known[f].name
+                if known.get(f) in (True, False):
+                    return operand(yes if known[f] else no, ref, known)
+                return tmpl([operand(flag, ref, known), operand(yes, ref, {**known, f: True}),
+                             operand(no, ref, {**known, f: False})])
             return select
 
         for op in self.ops:
@@ -272,7 +282,8 @@ class Renderer:
                     uses.get(op.dest, 0) > 1 and not atomic):
                 level = 1 + max([cols[a].level for a in reads_] + [-1])
                 alias[op.dest] = "q" + op.dest
-                cols["q" + op.dest] = Column(level, expression(op, templates[op.dest]), reads_)
+                expr = self._ordinary(op, expression(op, templates[op.dest]), inline, operand)
+                cols["q" + op.dest] = Column(level, expr, reads_)
                 depth[op.dest] = 0
                 if op.op == "sum" and op.attr:
                     reached[b] = max(reached.get(b, -1), level)
@@ -281,6 +292,48 @@ class Renderer:
                 leaves[op.dest] = reads_
                 depth[op.dest] = dp
         return self._outputs(cols, alias, inline, leaves, operand)
+
+    def _ordinary(self, op: Op, expr, inline, operand):
+        """The column's expression, with an ordinary-row arm first where one is shorter
+        (sql_ordinary)."""
+        cone, leaves, seen = [], set(), set()
+        stack = [a for a in op.args if isinstance(a, str)]
+        while stack:
+            a = stack.pop()
+            if a in seen:
+                continue
+            seen.add(a)
+            if a in inline:
+                cone.append(self.by_dest[a])
+                stack += [b for b in self.by_dest[a].args if isinstance(b, str)]
+            else:
+                leaves.add(a)
+        assumed = {}
+        for a in leaves:
+            read = self.by_dest[a]
+            if read.op == "read_real" and math.isfinite(self.plan.inputs[read.attr].bound):
+                assumed[a] = self.plan.inputs[read.attr].bound
+        if not assumed:
+            return expr
+        cone.sort(key=lambda o: self.position[o.dest])
+        known = sql_ordinary.facts(cone + [op], assumed, self.general)
+        if not known:
+            return expr
+        names = sorted(assumed, key=lambda a: self.by_dest[a].attr)
+        d = self.d
+        sum_list = d.sum_list if self.flat else None
+
+        def split(ref):
+            general = expr(ref)
+            same = known.get(op.dest)
+            quick = operand(same.name, ref, known) if isinstance(same, sql_ordinary.Same) \
+                else expr(ref, known)
+            if quick == general:
+                return general
+            test = sql_ordinary.test(d, [f"abs({operand(a, ref)})" for a in names],
+                                     [assumed[a] for a in names], literal, sum_list)
+            return f"CASE WHEN {test} THEN {quick} ELSE {general} END"
+        return split
 
     def _read(self, op: Op, stages, start: int, cols) -> str:
         """The read's stages as columns from level `start`; returns its value's alias."""
