@@ -43,6 +43,23 @@ class Same:
     name: object
 
 
+def bounds(cone: list[Op], reads: set) -> dict[str, float]:
+    """read -> the bound the test holds it to: the largest constant a max or min of
+    `cone` (in program order) holds a value of that read alone to (the program's
+    clamp of the input), else the largest double (the missing tests still go)."""
+    deps: dict = {}
+    found: dict = {a: [] for a in reads}
+    for op in cone:
+        names = [a for a in op.args if isinstance(a, str)]
+        deps[op.dest] = frozenset().union(*[deps.get(a, {a}) for a in names])
+        if op.op in ("max", "min") and len(names) == 1 and len(deps[op.dest]) == 1:
+            (read,) = deps[op.dest]
+            const = [float(a.value) for a in op.args if isinstance(a, Const)][0]
+            if read in found and const != 0.0:
+                found[read].append(abs(const))
+    return {a: max(found[a], default=sql_guards.DBL_MAX) for a in reads}
+
+
 def facts(cone: list[Op], assumed: dict[str, float], general: dict) -> dict:
     """name -> True/False (a flag's value) or Same(operand), for the ops of `cone`
     (in program order) on rows where each read in `assumed` (name -> bound) is a

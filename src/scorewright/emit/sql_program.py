@@ -27,7 +27,6 @@ it gives.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass
 from typing import Callable
 
@@ -308,14 +307,11 @@ class Renderer:
                 stack += [b for b in self.by_dest[a].args if isinstance(b, str)]
             else:
                 leaves.add(a)
-        assumed = {}
-        for a in leaves:
-            read = self.by_dest[a]
-            if read.op == "read_real" and math.isfinite(self.plan.inputs[read.attr].bound):
-                assumed[a] = self.plan.inputs[read.attr].bound
-        if not assumed:
+        reads = {a for a in leaves if self.by_dest[a].op == "read_real"}
+        if not reads:
             return expr
         cone.sort(key=lambda o: self.position[o.dest])
+        assumed = sql_ordinary.bounds(cone, reads)
         known = sql_ordinary.facts(cone + [op], assumed, self.general)
         if not known:
             return expr
