@@ -279,6 +279,10 @@ def scoring_query(plan: Plan, s: Settings) -> str:
         q = build_query(plan, d, sources, f"{table} AS t", extra, rejoin=rejoin)
         cols = [f"s.k{j} AS {d.quote(c)}" for j, c in enumerate(s.keep)]
         open_, close = "FROM (", ") AS s"
+    elif d.passthrough == "lateral" and not wide and lateral_fits(plan, d, sources):
+        q = build_query(plan, d, sources)
+        cols = ["t.*"]
+        open_, close = f"FROM {table} AS t CROSS JOIN LATERAL (", ") AS s"
     elif d.passthrough == "row" and not wide:
         q = build_query(plan, d, sources, f"{table} AS t", [("rw", d.row_value)])
         cols = [d.row_columns]
@@ -296,6 +300,13 @@ def scoring_query(plan: Plan, s: Settings) -> str:
         with_lines = q.layers.render_with(lambda i: f"{prefix}l{i}", d.fence, f"{table} AS t")
         return "\n".join(with_lines + lines + [open_[:-1] + f"{prefix}l{last}" + close[1:]])
     return "\n".join(lines + [open_] + indent(q.body) + [close])
+
+
+def lateral_fits(plan: Plan, d: Dialect, sources) -> bool:
+    """The query is shallow enough for the dialect's LATERAL passthrough."""
+    if d.lateral_layers is None:
+        return True
+    return len(build_query(plan, d, sources, layers=Layers()).layers.layers) <= d.lateral_layers
 
 
 def layer_prefix(table: str) -> str:

@@ -46,8 +46,10 @@ class Dialect:
     least: str                  # two-argument minimum, ties keep {a}
     nan_test: str | None        # is {x} (a number) NaN; None: the engine cannot hold NaN
     text_collate: str           # appended to text comparisons: byte-wise equality
-    passthrough: str            # how all input columns ride along: "rowid" (joined back)
-                                # or "row" (the whole row as one composite value)
+    passthrough: str            # how all input columns ride along: "rowid" (joined back),
+                                # "row" (the whole row as one composite value) or
+                                # "lateral" (t.* beside a LATERAL subquery: no dialect
+                                # now; test_sql_layouts shows PostgreSQL's trap with it)
     fence: str                  # appended to each subquery so no layer is inlined twice
     raises_on_underflow: bool   # x * c or x / c that rounds to 0 raises an error
     fold_identifiers: bool      # quoted identifiers match case-insensitively
