@@ -151,6 +151,12 @@ class Dialect:
     # bound; "each", one comparison per input, where a sum past the double range
     # raises instead of giving infinity (PostgreSQL).
     range_test: str = "sum"
+    # The ordinary arm a layer below the general one, instead of both in one CASE:
+    # Spark compiles a layer into one Java method, and with both arms in it the method
+    # outgrew what the JVM compiles to machine code (1,000,000 rows x 30 features:
+    # 2.4 s; 0.45 s with the ordinary arm alone). Apart, the method holding the general
+    # arm runs interpreted but only tests a value on an ordinary row.
+    ordinary_layer: bool = False
 
     def quote(self, name: str) -> str:
         q = self.identifier_quote
@@ -367,6 +373,7 @@ SPARK = Dialect(
                  "ELSE {zero} END"),
     code_list="array_position(array({levels}), {value})",
     sum_list="aggregate(array({rest}), {start}, (acc, x) -> acc + x)",
+    ordinary_layer=True,
     terms_per_join=1_000,
 )
 

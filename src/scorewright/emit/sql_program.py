@@ -281,8 +281,24 @@ class Renderer:
                     uses.get(op.dest, 0) > 1 and not atomic):
                 level = 1 + max([cols[a].level for a in reads_] + [-1])
                 alias[op.dest] = "q" + op.dest
-                expr = self._ordinary(op, expression(op, templates[op.dest]), inline, operand)
-                cols["q" + op.dest] = Column(level, expr, reads_)
+                expr = expression(op, templates[op.dest])
+                arms = self._ordinary(op, expr, inline, operand)
+                if arms is None:
+                    cols["q" + op.dest] = Column(level, expr, reads_)
+                elif not self.d.ordinary_layer:
+                    cols["q" + op.dest] = Column(level, _case(arms, expr), reads_)
+                else:
+                    # The ordinary arm (NULL where the test fails: no value of the
+                    # program is NULL) a layer below the general one.
+                    test, quick = arms
+                    cols["q" + op.dest + "_o"] = Column(
+                        level, lambda ref, t=test, q=quick: f"CASE WHEN {t(ref)} THEN {q(ref)} END",
+                        reads_)
+                    level += 1
+                    cols["q" + op.dest] = Column(
+                        level, lambda ref, a="q" + op.dest + "_o", e=expr:
+                        f"COALESCE({ref}.{a}, {e(ref)})",
+                        reads_ | {"q" + op.dest + "_o"})
                 depth[op.dest] = 0
                 if op.op == "sum" and op.attr:
                     reached[b] = max(reached.get(b, -1), level)
@@ -293,8 +309,8 @@ class Renderer:
         return self._outputs(cols, alias, inline, leaves, operand)
 
     def _ordinary(self, op: Op, expr, inline, operand):
-        """The column's expression, with an ordinary-row arm first where one is shorter
-        (sql_ordinary)."""
+        """(test, ordinary arm) of the column, each a function of the layer's alias, or
+        None where the ordinary arm would be the same expression (sql_ordinary)."""
         cone, leaves, seen = [], set(), set()
         stack = [a for a in op.args if isinstance(a, str)]
         while stack:
@@ -309,27 +325,28 @@ class Renderer:
                 leaves.add(a)
         reads = {a for a in leaves if self.by_dest[a].op == "read_real"}
         if not reads:
-            return expr
+            return None
         cone.sort(key=lambda o: self.position[o.dest])
         assumed = sql_ordinary.bounds(cone, reads)
         known = sql_ordinary.facts(cone + [op], assumed, self.general)
         if not known:
-            return expr
+            return None
         names = sorted(assumed, key=lambda a: self.by_dest[a].attr)
         d = self.d
         sum_list = d.sum_list if self.flat else None
 
-        def split(ref):
-            general = expr(ref)
+        def quick(ref):
             same = known.get(op.dest)
-            quick = operand(same.name, ref, known) if isinstance(same, sql_ordinary.Same) \
-                else expr(ref, known)
-            if quick == general:
-                return general
-            test = sql_ordinary.test(d, [f"abs({operand(a, ref)})" for a in names],
+            if isinstance(same, sql_ordinary.Same):
+                return operand(same.name, ref, known)
+            return expr(ref, known)
+
+        def test(ref):
+            return sql_ordinary.test(d, [f"abs({operand(a, ref)})" for a in names],
                                      [assumed[a] for a in names], literal, sum_list)
-            return f"CASE WHEN {test} THEN {quick} ELSE {general} END"
-        return split
+        if quick("l0") == expr("l0"):
+            return None
+        return test, quick
 
     def _read(self, op: Op, stages, start: int, cols) -> str:
         """The read's stages as columns from level `start`; returns its value's alias."""
@@ -386,6 +403,11 @@ class Renderer:
             cols[a] = Column(top, value(arg, label), reads_)
         out = dict(shown + [(column, a) for column, a, *_ in pending])
         return cols, [(c, out[c]) for c, _ in sql_outputs(self.plan)], top
+
+
+def _case(arms, expr):
+    test, quick = arms
+    return lambda ref: f"CASE WHEN {test(ref)} THEN {quick(ref)} ELSE {expr(ref)} END"
 
 
 def _stage_expr(text: str, i: int, t: int):
