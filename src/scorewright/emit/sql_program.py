@@ -289,7 +289,10 @@ class Renderer:
                     cols["q" + op.dest] = Column(level, _case(arms, expr), reads_)
                 else:
                     # The ordinary arm (NULL where the test fails: no value of the
-                    # program is NULL) a layer below the general one.
+                    # program is NULL) a layer below the general one, named twice
+                    # above: Spark merges a layer into the one above where each of its
+                    # columns is named once (a COALESCE of the two ran 6.2x the
+                    # minimal expression, as one CASE does).
                     test, quick = arms
                     cols["q" + op.dest + "_o"] = Column(
                         level, lambda ref, t=test, q=quick: f"CASE WHEN {t(ref)} THEN {q(ref)} END",
@@ -297,7 +300,7 @@ class Renderer:
                     level += 1
                     cols["q" + op.dest] = Column(
                         level, lambda ref, a="q" + op.dest + "_o", e=expr:
-                        f"COALESCE({ref}.{a}, {e(ref)})",
+                        f"CASE WHEN {ref}.{a} IS NOT NULL THEN {ref}.{a} ELSE {e(ref)} END",
                         reads_ | {"q" + op.dest + "_o"})
                 depth[op.dest] = 0
                 if op.op == "sum" and op.attr:
