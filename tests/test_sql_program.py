@@ -25,7 +25,7 @@ from scorewright.errors import ScorewrightError
 from scorewright.plan import build_plan
 from scorewright.program import Const, Op
 from scorewright.reference import encode_rows
-from test_sql import bits, edge_rows, run_sql
+from test_sql import assert_agrees, bits, edge_rows, run_sql
 
 SQL_FILES = sorted((Path(program.__file__).parent / "emit").glob("sql*.py"))
 
@@ -159,14 +159,16 @@ def test_underflow_guards_give_ieee_bits_on_postgres(postgres_dsn):
 def test_too_deep_for_duckdbs_lateral_function_call_is_one_error(monkeypatch):
     """DuckDB's plan of a LATERAL call doubles with each layer (sql_dialects); the
     function form, which has no rowid to join by instead, refuses a query past the
-    limit in one line (the select form joins by rowid there, test_sql.py runs it)."""
+    limit in one line (the select form carries the row through its layers, with no
+    LATERAL and no join; test_sql.py runs it)."""
     shallow = dataclasses.replace(DIALECTS["duckdb"], lateral_layers=3)
     monkeypatch.setitem(sql_dialects.DIALECTS, "duckdb", shallow)
     model = models.build("fault_binary").model
     with pytest.raises(ScorewrightError, match=r"^--form function: this model's query is "
                                                r"\d+ layers deep, and duckdb plans"):
         emit(model, {"dialect": "duckdb", "form": "function"})
-    assert "JOIN (" in emit(model, {"dialect": "duckdb"})[0].content.decode()
+    select = emit(model, {"dialect": "duckdb"})[0].content.decode()
+    assert "LATERAL" not in select and "JOIN" not in select
 
 
 def test_an_expression_too_large_for_spark_is_one_error(monkeypatch):
@@ -176,3 +178,34 @@ def test_an_expression_too_large_for_spark_is_one_error(monkeypatch):
     with pytest.raises(ScorewrightError, match=r"^--form expressions: output 'margin' would "
                                                r"be one expression of [0-9,]+ characters"):
         emit(models.build("fault_binary").model, {"dialect": "spark", "form": "expressions"})
+
+
+@pytest.mark.parametrize("dialect", ["sqlite", "duckdb", "postgres"])
+def test_the_ordinary_row_arm_gives_the_same_bits_at_its_edges(tmp_path, postgres_dsn,
+                                                                dialect):
+    """sql_ordinary spells a column for rows whose real inputs are all within their
+    bounds, tested by one sum of magnitudes (one comparison each on PostgreSQL): rows
+    at each bound, one ULP inside and outside it, every input at its bound at once (the
+    sum passes the bound, so the general arm runs on ordinary values), and an input
+    missing beside bounded ones agree with the reference evaluator bit for bit."""
+    name = "fault_binary"
+    tm = models.build(name)
+    plan = build_plan(tm.model)
+    base = dict(tm.frame.to_dict("records")[0])
+    numeric = [inp for inp in plan.inputs if inp.kind == "numeric"]
+    rows = []
+    for inp in numeric:
+        b = inp.bound
+        for v in (b, -b, math.nextafter(b, 0.0), math.nextafter(-b, 0.0),
+                  math.nextafter(b, math.inf), math.nextafter(-b, -math.inf)):
+            rows.append(dict(base, **{inp.name: v}))
+    for sign in (1.0, -1.0):
+        rows.append(dict(base, **{inp.name: sign * inp.bound for inp in numeric}))
+        rows.append(dict(base, **{inp.name: sign * inp.bound / len(numeric)
+                                  for inp in numeric}))
+    rows.append(dict(base, **{numeric[0].name: None, numeric[-1].name: numeric[-1].bound}))
+    rows.append(dict(base, **{numeric[0].name: math.nan, numeric[-1].name: -1e-310}))
+    text = emit(tm.model, {"dialect": dialect})[0].content.decode()
+    assert "CASE WHEN abs(" in text  # the arm is there to be tested
+    got = run_sql(tmp_path, tm.model, rows, {"dialect": dialect}, postgres_dsn)
+    assert_agrees(tm.model, rows, got)

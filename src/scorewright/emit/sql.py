@@ -283,7 +283,7 @@ def scoring_query(plan: Plan, s: Settings) -> str:
         q = build_query(plan, d, sources)
         cols = ["t.*"]
         open_, close = f"FROM {table} AS t CROSS JOIN LATERAL (", ") AS s"
-    elif d.passthrough == "row":
+    elif d.passthrough == "row" and not wide:
         q = build_query(plan, d, sources, f"{table} AS t", [("rw", d.row_value)])
         cols = [d.row_columns]
         open_, close = "FROM (", ") AS s"
@@ -297,7 +297,6 @@ def scoring_query(plan: Plan, s: Settings) -> str:
     if d.flat_layers:
         prefix = layer_prefix(s.table)
         last = len(q.layers.layers) - 1
-        # (A lateral passthrough reads t from outside the layers: no flat form.)
         with_lines = q.layers.render_with(lambda i: f"{prefix}l{i}", d.fence, f"{table} AS t")
         return "\n".join(with_lines + lines + [open_[:-1] + f"{prefix}l{last}" + close[1:]])
     return "\n".join(lines + [open_] + indent(q.body) + [close])

@@ -46,8 +46,10 @@ class Dialect:
     least: str                  # two-argument minimum, ties keep {a}
     nan_test: str | None        # is {x} (a number) NaN; None: the engine cannot hold NaN
     text_collate: str           # appended to text comparisons: byte-wise equality
-    passthrough: str            # how all input columns ride along: "lateral", "rowid" or
-                                # "row" (the whole row as one composite value)
+    passthrough: str            # how all input columns ride along: "rowid" (joined back),
+                                # "row" (the whole row as one composite value) or
+                                # "lateral" (t.* beside a LATERAL subquery: no dialect
+                                # now; test_sql_layouts shows PostgreSQL's trap with it)
     fence: str                  # appended to each subquery so no layer is inlined twice
     raises_on_underflow: bool   # x * c or x / c that rounds to 0 raises an error
     fold_identifiers: bool      # quoted identifiers match case-insensitively
@@ -135,8 +137,8 @@ class Dialect:
     flat_layers: bool = False
     # A header note for a model summed over more than one layer (engine advice).
     large_query_note: str | None = None
-    # At most this many layers under a LATERAL passthrough; a deeper query is joined
-    # back by rowid. DuckDB decorrelates a LATERAL subquery into a plan that doubles
+    # At most this many layers under a LATERAL call (the function form's call); a
+    # deeper query is refused there in one line. DuckDB decorrelates a LATERAL subquery into a plan that doubles
     # with each layer reading a column of the layer below twice (measured on a chain
     # of such layers over 1,000,000 rows: 10 layers 0.24 s, 12 layers 2.0 s, 16 layers
     # 21 s; the same chain joined by rowid 0.3 s).
@@ -144,6 +146,18 @@ class Dialect:
     # Spellings of primitives that differ from sql_program.spellings (a function of the
     # spelled operands); None: the dialect cannot express that op.
     ops: dict = field(default_factory=dict)
+    # How the ordinary-row arm tests that every real input a column reads is within
+    # its bound (sql_ordinary): "sum", the sum of magnitudes against the smallest
+    # bound; "each", one comparison per input, where a sum past the double range
+    # raises instead of giving infinity (PostgreSQL).
+    range_test: str = "sum"
+    # The ordinary arm a layer below the general one, instead of both in one CASE:
+    # Spark compiles a layer into one Java method, and with both arms in it the method
+    # outgrew what the JVM compiles to machine code (1,000,000 rows x 30 features:
+    # 2.4 s; 0.45 s with the ordinary arm alone). Apart, the method holding the general
+    # arm runs interpreted but only tests a value on an ordinary row (1.6x the
+    # minimal expression, from 6.2x).
+    ordinary_layer: bool = False
 
     def quote(self, name: str) -> str:
         q = self.identifier_quote
@@ -235,6 +249,7 @@ POSTGRES = Dialect(
     reserved_columns=("t",),
     fence=" OFFSET 0",
     raises_on_underflow=True,
+    range_test="each",
     fold_identifiers=False,
     identifier_max_bytes=63,
     view="CREATE OR REPLACE VIEW {name} AS",
@@ -276,7 +291,15 @@ DUCKDB = Dialect(
     least="LEAST({a}, {b})",
     nan_test="isnan({x})",
     text_collate="",
-    passthrough="lateral",
+    # The whole row as one struct value, unpacked by unnest: a LATERAL subquery
+    # (t.* beside it) cost half the query though its plan showed no join (43-53 ms
+    # of 97, 1,000,000 rows x 30 features), and DuckDB plans a chain of LATERAL
+    # layers in time that doubles with each layer (lateral_layers).
+    passthrough="row",
+    row_value="t",
+    row_columns="unnest(s.rw)",
+    # A column named t would be read where the query means the whole row t.
+    reserved_columns=("t",),
     lateral_layers=10,
     rowid="rowid",
     fence="",
@@ -351,6 +374,7 @@ SPARK = Dialect(
                  "ELSE {zero} END"),
     code_list="array_position(array({levels}), {value})",
     sum_list="aggregate(array({rest}), {start}, (acc, x) -> acc + x)",
+    ordinary_layer=True,
     terms_per_join=1_000,
 )
 

@@ -115,16 +115,20 @@ def intervals(ops) -> dict:
     for op in ops:
         if op.type != "real" or op.op == "output":
             continue
-        a = [_const(float(x.value)) if isinstance(x, Const) else env.get(x) for x in op.args]
-        consts = [float(x.value) if isinstance(x, Const) else None for x in op.args]
-        if op.op == "sum":
-            r = a[0]
-            for v, c in zip(a[1:], consts[1:]):
-                r = _add(r, v, c)
-        else:
-            r = _step(op, a, *(consts + [None, None])[:2])
-        env[op.dest] = r
+        env[op.dest] = interval(op, env.get)
     return env
+
+
+def interval(op: Op, known) -> tuple:
+    """The interval of one real op, `known(name)` giving its operands' intervals."""
+    a = [_const(float(x.value)) if isinstance(x, Const) else known(x) for x in op.args]
+    consts = [float(x.value) if isinstance(x, Const) else None for x in op.args]
+    if op.op == "sum":
+        r = a[0]
+        for v, c in zip(a[1:], consts[1:]):
+            r = _add(r, v, c)
+        return r
+    return _step(op, a, *(consts + [None, None])[:2])
 
 
 def risky(ops) -> set[str]:

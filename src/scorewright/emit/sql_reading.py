@@ -48,7 +48,8 @@ def stages(d: Dialect, x: str, literal, boolean: bool = False) -> list[list[tupl
     naming the one below's values as sql_sqlite_text.P + name. One layer, except
     where the engine's own text conversion is inexact (SQLite: sql_sqlite_text)."""
     if d.text_double_rule == "staged":
-        return sql_sqlite_text.stages(x, d.number_cast, lambda v: literal(d, v), boolean)
+        return [[("n", sql_sqlite_text.lazy(x, d.number_cast, lambda v: literal(d, v),
+                                            boolean))]]
     return [[("n", number(d, x, literal, boolean))]]
 
 

@@ -132,3 +132,25 @@ def stages(x: str, number_cast: str, literal_of, boolean: bool) -> list[list[tup
     out.append([("n", f"CASE WHEN {p}q IS NULL THEN {p}r WHEN {p}w % 2 = 1 THEN -({value}) "
                       f"ELSE {value} END")])
     return out
+
+
+def lazy(x: str, number_cast: str, literal_of, boolean: bool) -> str:
+    """The value {x} of any type read to a double (or NULL) in one expression: a number
+    cast at once, text through the stages in a correlated subquery that SQLite runs
+    only for a row whose value is text. As layers of the whole query the stages cost
+    every row their 13 layers of 30 to 200 values (200,000 rows x 30 REAL features:
+    9.9 s, 1.4 s without them); each stage is fenced (LIMIT -1 OFFSET 0) so SQLite does
+    not fold them into one expression that spells each name many times over."""
+    layers = stages(x, number_cast, literal_of, boolean)
+    parts = []
+    for t, layer in enumerate(layers):
+        below = f"sw_text{t - 1}"
+        cols = ", ".join((text if t == 0 else text.replace(P, f"{below}."))
+                         + f" AS {name}" for name, text in layer)
+        source = f" FROM {below}" if t else ""
+        parts.append(f"sw_text{t} AS (SELECT {cols}{source} LIMIT -1 OFFSET 0)")
+    text = f"(WITH {', '.join(parts)} SELECT n FROM sw_text{len(layers) - 1})"
+    # A real value is itself (the cast of it is): one typeof call for the usual case,
+    # against two and a cast (200,000 rows x 30 features: 0.81 s against 1.17 s).
+    return (f"CASE typeof({x}) WHEN 'real' THEN {x} WHEN 'text' THEN {text} "
+            f"ELSE {number_cast.format(x=x)} END")
