@@ -288,7 +288,7 @@ class _Renderer:
         self.dtype = g.elem.numpy
         self.at: dict[str, tuple[_Vec, int]] = {}   # program name -> (tensor, lane)
         self._cached: dict = {}
-        self.ops = self._constant_margins(lower(plan).ops)
+        self.ops = _one_comparison_per_tie(self._constant_margins(lower(plan).ops), self.dtype)
         self.by_dest = {op.dest: op for op in self.ops}
         self.consumers: dict[str, list[Op]] = {}
         for op in self.ops:
@@ -872,6 +872,68 @@ class _Renderer:
             self._cached["rows", width] = g.op(
                 "Concat", [count, g.const("c", [width], np.int64)], "shape", axis=0)
         return g.op("Expand", [tensor, self._cached["rows", width]], f"{tensor}_rows")
+
+
+def _one_comparison_per_tie(ops: list[Op], dtype) -> list[Op]:
+    """select(ge(a, c), x, y) as select(gt(a, c), x, y) where the program also computes
+    gt(a, c) and x and y have the same bits at a == c (+0.0 and -0.0 when c is 0), the
+    only values where ge and gt differ (a NaN makes both false): one comparison node
+    serves both, the same bits on every row. The stable sigmoid's select is one: at a
+    margin of +-0 both branches are 1 / (1 + exp(-0)) = 0.5, and the class index compares
+    the margin with a cut of 0."""
+    strict = {(op.args, op.type): op for op in ops if op.op == "gt"}
+    uses: dict[str, int] = {}
+    for op in ops:
+        for a in op.args:
+            if isinstance(a, str):
+                uses[a] = uses.get(a, 0) + 1
+    by_dest = {op.dest: op for op in ops}
+    swap: dict[str, Op] = {}   # the ge's dest -> the gt it becomes
+    for i, op in enumerate(ops):
+        if op.op != "select" or not isinstance(op.args[0], str):
+            continue
+        flag = by_dest.get(op.args[0])
+        if flag is None or flag.op != "ge" or uses[flag.dest] != 1 \
+                or (flag.args, flag.type) not in strict:
+            continue
+        a, c = flag.args
+        if not isinstance(a, str) or not isinstance(c, Const) or c.type != REAL:
+            continue
+        ties = (0.0, -0.0) if c.value == 0 else (c.value,)
+        if all(_same_bits(_fold_with_exp_of_zero(ops[:i], {a: dtype(t)}, dtype), op.args[1:],
+                          dtype) for t in ties):
+            swap[flag.dest] = strict[flag.args, flag.type]
+    out, placed = [], set()
+    for op in ops:
+        if op.dest in swap:
+            op = swap[op.dest]   # the gt, where the ge was: its operands are ready there
+        elif op.op == "select" and op.args[0] in swap:
+            op = Op(op.dest, op.op, (swap[op.args[0]].dest, *op.args[1:]), op.type, op.attr)
+        if op.dest not in placed:
+            placed.add(op.dest)
+            out.append(op)
+    return out
+
+
+def _fold_with_exp_of_zero(ops: list[Op], env: dict, dtype) -> dict:
+    """`fold`, and exp(+-0) = 1: exact in IEEE 754 (C99 Annex F), in onnxruntime's Exp
+    for double and float and in numpy's (tests/test_onnx.py checks both evaluators)."""
+    while True:
+        values = fold(ops, env, dtype)
+        more = {op.dest: dtype(1.0) for op in ops if op.op == "exp" and op.dest not in values
+                and _known(values, op.args[0], dtype) == 0}
+        if not more:
+            return values
+        env = {**values, **more}
+
+
+def _known(values: dict, arg, dtype):
+    return dtype(arg.value) if isinstance(arg, Const) else values.get(arg)
+
+
+def _same_bits(values: dict, args, dtype) -> bool:
+    x, y = (_known(values, a, dtype) for a in args)
+    return x is not None and y is not None and dtype(x).tobytes() == dtype(y).tobytes()
 
 
 def _code_domain(inp) -> list[int]:
