@@ -192,8 +192,9 @@ def test_node_count_of_a_standardized_all_numeric_binary_model(tmp_path):
     ops = [n.op_type for n in graph.node]
     print(f"\nspector (3 numeric inputs, binary): {len(ops)} nodes: {' '.join(ops)}")
     # 11 nodes stack, guard and weight the inputs and sum the margin in the plan's order;
-    # 13 make the stable sigmoid, both probabilities and the class index.
-    assert len(ops) <= 24
+    # 12 make the stable sigmoid, both probabilities and the class index (the sigmoid's
+    # select and the class index share one comparison).
+    assert len(ops) <= 23
     assert "MatMul" not in ops  # its kernels may reorder the plan's summation
 
 
@@ -686,3 +687,51 @@ def test_a_model_without_terms_scores_its_intercepts_on_every_row(name, before, 
     assert len(onnx.load_from_string(art.content).graph.node) <= before
     out, _ = _agrees_with_the_program(model, model_rows(name, 50), tmp_path)
     assert out.margins.shape[0] == len(model_rows(name, 50))
+
+
+@pytest.mark.parametrize("precision", ["double", "float"])
+def test_the_sigmoid_shares_the_class_index_comparison_with_the_same_bits(precision,
+                                                                         monkeypatch):
+    """The stable sigmoid's select(ge(m, 0), 1/d, t/d) is rendered with the class index's
+    gt(m, 0) (one Greater, no GreaterOrEqual): the two comparisons differ only at m = +-0,
+    where both branches are 1 / (1 + exp(-0)) = 0.5. Margins of exactly +0.0 and -0.0
+    (intercept -0.0, inputs of either zero), the smallest subnormals, NaN, +-inf and huge
+    inputs, one row and many: the same bytes as the graph with a node per comparison on
+    onnxruntime and on the reference evaluator (outside checks: both evaluators' own
+    Greater, GreaterOrEqual and Exp), the program's margins and class indexes (double), 0.5
+    exactly at the ties (+0.0 and -0.0 alike, as the stated ULP distances take them)."""
+    doc = build("spector").model.to_document()
+    doc["head"]["intercepts"] = [-0.0]
+    model = edited(doc)
+    plan = build_plan(model, precision)
+    ties = [{"GPA": 0.0, "TUCE": 0.0, "PSI": 0.0}, {"GPA": -0.0, "TUCE": -0.0, "PSI": -0.0},
+            {}]
+    rows = ties + [{"GPA": v} for v in (5e-324, -5e-324, 1e-300, -1e-300, math.nan, math.inf,
+                                        -math.inf, 1e308, -1e308, 300.0, -300.0)]
+    rows += model_rows("spector", 100)
+    want = _program_outputs(build_plan(model), rows)
+    assert want["margin_0"][0].tobytes() == np.float64(0.0).tobytes()
+    assert want["margin_0"][1].tobytes() == np.float64(-0.0).tobytes()
+    graphs = [emitter("onnx")(model, {"precision": precision})[0].content]
+    monkeypatch.setattr(onnx_emitter, "_one_comparison_per_tie", lambda ops, dtype: ops)
+    graphs.append(emitter("onnx")(model, {"precision": precision})[0].content)
+    ops = [[n.op_type for n in onnx.load_from_string(c).graph.node] for c in graphs]
+    assert "GreaterOrEqual" not in ops[0] and "GreaterOrEqual" in ops[1]
+    assert len(ops[0]) == len(ops[1]) - 1
+    feeds = input_feeds(plan, rows, "per-feature")
+    for n in (1, 2, len(rows)):
+        part = {k: v[:n] for k, v in feeds.items()}
+        outputs = []
+        for content in graphs:
+            session = onnxruntime.InferenceSession(content, providers=["CPUExecutionProvider"])
+            names = [o.name for o in session.get_outputs()]
+            reference = ReferenceEvaluator(onnx.load_from_string(content))
+            got = session.run(names, part), reference.run(names, part)
+            outputs.append([x.tobytes() for pair in got for x in pair])
+            for margin, probability, class_index in got:
+                assert (probability[:min(n, len(ties))] == 0.5).all()
+                if precision == "double":  # the float graph is held to its tolerance
+                    # equal as numbers: onnxruntime's Where gives +0.0 for a chosen -0.0
+                    assert np.array_equal(margin[:, 0], want["margin_0"][:n])
+                    assert list(class_index) == list(want["class_index"][:n])
+        assert outputs[0] == outputs[1]
