@@ -24,13 +24,21 @@ categorical input alone are folded at emit time (`program.fold`, in the graph's
 element type) for every code the read can give, into one table gathered by code;
 the value a missing numeric input ends with is folded the same way, so one Where
 replaces a second pass; the same op on every class is one node over [N, K]; and a
-few op patterns are one node with the same bits (`_find_fusions`). Anything else
-is one node per op. Ordered sums are variadic Sum nodes, which both evaluators add
-left to right, never a MatMul, whose kernels may reorder or fuse the products.
+few op patterns are one node with the same bits (`_find_fusions`), and a select on
+ge(a, c) takes the program's gt(a, c) where its branches agree at a == c
+(`_one_comparison_per_tie`). Anything else is one node per op. Ordered sums are
+variadic Sum nodes, which both evaluators add left to right, never a MatMul, whose
+kernels may reorder or fuse the products, nor a ReduceSum: onnxruntime 1.32 adds the
+rows of an [F, N] block in order, but the reference evaluator's numpy sums the 9 or
+more lanes of a single row pairwise (measured: 72 of 200 random rows of 9 lanes and
+107 of 200 of 30 lanes differ from the ordered sum; none with 2 rows or more).
 
 Every constant has the rank of the tensor it meets: in onnxruntime 1.32 an Add of
 [N, 1] and a [] constant ran ~40x slower than of [N, 1] and [1, 1], and [N, F]
-against [F] ~4x slower than [F, N] against [F, 1] (measured, 1e6 rows).
+against [F] ~4x slower than [F, N] against [F, 1] (measured, 1e6 rows). So the
+matrix input is transposed to [F, N] once: the whole graph kept [N, F] (constants
+[1, F], Split on axis 1, no Transpose or margin Reshape) gave the same bits in 22
+nodes instead of 24 but took 1.45x as long at 1e6 rows (bench/bench_onnx.py's model).
 """
 
 from __future__ import annotations
