@@ -37,8 +37,9 @@ Every constant has the rank of the tensor it meets: in onnxruntime 1.32 an Add o
 [N, 1] and a [] constant ran ~40x slower than of [N, 1] and [1, 1], and [N, F]
 against [F] ~4x slower than [F, N] against [F, 1] (measured, 1e6 rows). So the
 matrix input is transposed to [F, N] once: the whole graph kept [N, F] (constants
-[1, F], Split on axis 1, no Transpose or margin Reshape) gave the same bits in 22
-nodes instead of 24 but took 1.45x as long at 1e6 rows (bench/bench_onnx.py's model).
+[1, F], Split on axis 1, no Transpose or margin Reshape) gave the same bits in two
+nodes fewer but took 1.15x to 1.45x as long at 1e6 rows, for 0.93x at one row
+(bench/bench_onnx.py's model, two runs on a loaded machine).
 """
 
 from __future__ import annotations
