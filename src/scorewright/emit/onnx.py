@@ -178,6 +178,9 @@ COMMUTATIVE = ("add", "mul")  # bitwise, so a constant on the left is one on the
 
 TYPES = {CODE: (TensorProto.INT64, np.int64), FLAG: (TensorProto.BOOL, np.bool_)}
 
+# The fewest lanes whose ordered sum is a CumSum rather than a Split and a Sum.
+RUNNING_SUM_LANES = 3
+
 
 # ---------------------------------------------------------------- graph building
 
@@ -477,7 +480,7 @@ class _Renderer:
             if self.by_dest[r].op == "read_code":
                 self._code_table(self.by_dest[r], cone)
         for cone in cones.values():
-            if any(op.dest in self.at for op in cone):
+            if any(op.dest in self.at or op.dest in self.absorbed for op in cone):
                 self.absorbed |= {op.dest for op in cone if op.dest not in self.at}
 
     def _cones(self) -> dict[str, list[Op]]:
@@ -584,6 +587,8 @@ class _Renderer:
         c = g.const("c", consts)
         node, first = lanes[0].node
         products = g.op(node, [c, v] if first else [v, c], "terms")
+        if self._running_sums(lanes, products, width):
+            return
         parts = [products] if f == 1 else g.op("Split", [products], "term", outputs=f,
                                                axis=0, num_outputs=f)
         for lane, part in zip(lanes, parts):
@@ -591,6 +596,45 @@ class _Renderer:
             vec = _Vec(part, "row" if width == 1 else "slab", names, REAL)
             for k, name in enumerate(names):
                 self.at[name] = (vec, k)
+
+    def _running_sums(self, lanes: list[_Lane], products: str, width: int) -> bool:
+        """Sums of the block's lanes in block order, then constants, as the last row of a
+        CumSum over the lanes' axis plus the constants. A running sum is defined by its
+        prefixes, so both evaluators add the lanes one by one in the program's order (a
+        ReduceSum is not; see the module's doc string); one CumSum, Gather and Add took
+        less time than a Split and a Sum, at one row as at 1e6 (bench/bench_onnx.py).
+        Only where the lanes' values are used by those sums alone."""
+        f = len(lanes)
+        if f < RUNNING_SUM_LANES:
+            return False
+        sums = []
+        for k in range(width):
+            names = tuple(lane.fanout[k][0].dest for lane in lanes)
+            users = [u for n in names for u in self.consumers.get(n, [])]
+            if len(users) != f or len({u.dest for u in users}) != 1:
+                return False
+            total = users[0]
+            if total.op != "sum" or total.args[:f] != names \
+                    or not all(isinstance(a, Const) and a.type == REAL for a in total.args[f:]):
+                return False
+            sums.append(total)
+        if len({len(t.args) for t in sums}) != 1 or len({t.dest for t in sums}) != width:
+            return False
+        g = self.g
+        running = g.op("CumSum", [products, g.const("lanes_axis", 0, np.int64)], "running")
+        total = g.op("Gather", [running, g.const("c", [f - 1], np.int64)], "lane_sums",
+                     axis=0)
+        layout = "row" if width == 1 else "slab"
+        consts = [self._const([t.args[q].value for t in sums], REAL, width, layout)
+                  for q in range(f, len(sums[0].args))]
+        if consts:
+            total = g.op("Sum" if len(consts) > 1 else "Add", [total, *consts], "margin_rows")
+        cols = self._as_cols(_Vec(total, layout, tuple(t.dest for t in sums), REAL))
+        for k, t in enumerate(sums):
+            self.at[t.dest] = (cols, k)
+        for lane in lanes:
+            self.absorbed |= {op.dest for op, _ in lane.fanout}
+        return True
 
     def _const_rows(self, values: list) -> str:
         """Per-lane constants as an [F, 1] column, to meet the [F, N] block."""
