@@ -27,11 +27,13 @@ replaces a second pass; the same op on every class is one node over [N, K]; and 
 few op patterns are one node with the same bits (`_find_fusions`), and a select on
 ge(a, c) takes the program's gt(a, c) where its branches agree at a == c
 (`_one_comparison_per_tie`). Anything else is one node per op. Ordered sums are
-variadic Sum nodes, which both evaluators add left to right, never a MatMul, whose
-kernels may reorder or fuse the products, nor a ReduceSum: onnxruntime 1.32 adds the
-rows of an [F, N] block in order, but the reference evaluator's numpy sums the 9 or
-more lanes of a single row pairwise (measured: 72 of 200 random rows of 9 lanes and
-107 of 200 of 30 lanes differ from the ordered sum; none with 2 rows or more).
+the last row of a CumSum over the block's lanes (`_running_sums`: a running sum is
+defined by its prefixes) or variadic Sum nodes, which both evaluators add left to
+right; never a MatMul, whose kernels may reorder or fuse the products, nor a
+ReduceSum: onnxruntime 1.32 adds the rows of an [F, N] block in order, but the
+reference evaluator's numpy sums the 9 or more lanes of a single row pairwise
+(measured: 72 of 200 random rows of 9 lanes and 107 of 200 of 30 lanes differ from
+the ordered sum; none with 2 rows or more).
 
 Every constant has the rank of the tensor it meets: in onnxruntime 1.32 an Add of
 [N, 1] and a [] constant ran ~40x slower than of [N, 1] and [1, 1], and [N, F]
