@@ -312,6 +312,7 @@ class _Renderer:
         self.absorbed: set[str] = set()   # computed inside another op's fused node
         self.fused: dict = {}              # program name -> the method that renders it
         self.renamed: dict[str, str] = {}  # tensor -> the graph output it became
+        self._block_rank = 2                # of the numeric block: [F, N] or [F, N, 1]
 
     def _constant_margins(self, ops) -> list[Op]:
         """A program without terms has constants for margins: they are given a row each
@@ -562,8 +563,13 @@ class _Renderer:
 
     def _numeric_block(self, lanes: list[_Lane]) -> None:
         g, f = self.g, len(lanes)
+        width = len(lanes[0].fanout)
+        sums = self._lane_sums(lanes, width)
+        # Per-feature inputs of one value each stack as [F, N, 1] where the lanes' values
+        # go to their sum alone: the sum is then gathered as the [N, 1] column itself.
+        self._block_rank = 3 if sums and self.layout != "matrix" and width == 1 else 2
         x = self._stack([lane.read.attr for lane in lanes])
-        finite = None if lanes[0].flag is None else self._finite(x)
+        finite = None if lanes[0].flag is None else self._finite(x, self._block_rank)
         v = x
         merged = self._aligned(lanes)
         j = 0
@@ -581,15 +587,17 @@ class _Renderer:
         if finite is not None:
             v = g.op("Where", [finite, v,
                                self._const_rows([lane.missing for lane in lanes])], "design")
-        width = len(lanes[0].fanout)
         consts = np.asarray([[c for _, c in lane.fanout] for lane in lanes], dtype=self.dtype)
         if width > 1:
             v = g.op("Unsqueeze", [v, g.axes(1)], f"{v}_3d")
             consts = consts[..., None]   # [F, W, 1] against [F, 1, N]
+        elif self._block_rank == 3:
+            consts = consts[..., None]   # [F, 1, 1] against [F, N, 1]
         c = g.const("c", consts)
         node, first = lanes[0].node
         products = g.op(node, [c, v] if first else [v, c], "terms")
-        if self._running_sums(lanes, products, width):
+        if sums:
+            self._running_sums(lanes, sums, products, width)
             return
         parts = [products] if f == 1 else g.op("Split", [products], "term", outputs=f,
                                                axis=0, num_outputs=f)
@@ -599,34 +607,40 @@ class _Renderer:
             for k, name in enumerate(names):
                 self.at[name] = (vec, k)
 
-    def _running_sums(self, lanes: list[_Lane], products: str, width: int) -> bool:
-        """Sums of the block's lanes in block order, then constants, as the last row of a
-        CumSum over the lanes' axis plus the constants. A running sum is defined by its
-        prefixes, so both evaluators add the lanes one by one in the program's order (a
-        ReduceSum is not; see the module's doc string); one CumSum, Gather and Add took
-        less time than a Split and a Sum, at one row as at 1e6 (bench/bench_onnx.py).
-        Only where the lanes' values are used by those sums alone."""
+    def _lane_sums(self, lanes: list[_Lane], width: int) -> list[Op] | None:
+        """The sums, one per fanout position, of every lane's value in block order then
+        constants, where the lanes' values are used by those sums alone."""
         f = len(lanes)
         if f < RUNNING_SUM_LANES:
-            return False
+            return None
         sums = []
         for k in range(width):
             names = tuple(lane.fanout[k][0].dest for lane in lanes)
             users = [u for n in names for u in self.consumers.get(n, [])]
             if len(users) != f or len({u.dest for u in users}) != 1:
-                return False
+                return None
             total = users[0]
             if total.op != "sum" or total.args[:f] != names \
                     or not all(isinstance(a, Const) and a.type == REAL for a in total.args[f:]):
-                return False
+                return None
             sums.append(total)
         if len({len(t.args) for t in sums}) != 1 or len({t.dest for t in sums}) != width:
-            return False
-        g = self.g
+            return None
+        return sums
+
+    def _running_sums(self, lanes: list[_Lane], sums: list[Op], products: str,
+                      width: int) -> None:
+        """The lanes' sums as the last row of a CumSum over the lanes' axis plus the
+        constants. A running sum is defined by its prefixes, so both evaluators add the
+        lanes one by one in the program's order (a ReduceSum is not; see the module's doc
+        string); one CumSum, Gather and Add took less time than a Split and a Sum, at one
+        row as at 1e6 (bench/bench_onnx.py)."""
+        g, f = self.g, len(lanes)
         running = g.op("CumSum", [products, g.const("lanes_axis", 0, np.int64)], "running")
-        total = g.op("Gather", [running, g.const("c", [f - 1], np.int64)], "lane_sums",
-                     axis=0)
-        layout = "row" if width == 1 else "slab"
+        deep = self._block_rank == 3   # [F, N, 1]: the last lane is the [N, 1] column
+        last = g.const("c", f - 1 if deep else [f - 1], np.int64)
+        total = g.op("Gather", [running, last], "lane_sums", axis=0)
+        layout = "col" if deep else "row" if width == 1 else "slab"
         consts = [self._const([t.args[q].value for t in sums], REAL, width, layout)
                   for q in range(f, len(sums[0].args))]
         if consts:
@@ -636,11 +650,12 @@ class _Renderer:
             self.at[t.dest] = (cols, k)
         for lane in lanes:
             self.absorbed |= {op.dest for op, _ in lane.fanout}
-        return True
 
     def _const_rows(self, values: list) -> str:
-        """Per-lane constants as an [F, 1] column, to meet the [F, N] block."""
-        return self.g.const("c", np.asarray(values, dtype=self.dtype).reshape(-1, 1))
+        """Per-lane constants as an [F, 1] column, to meet the [F, N] block (or [F, 1, 1],
+        to meet [F, N, 1])."""
+        shape = (-1,) + (1,) * (self._block_rank - 1)
+        return self.g.const("c", np.asarray(values, dtype=self.dtype).reshape(shape))
 
     def _stack(self, indices: list[int]) -> str:
         """The inputs' raw values as one feature-major [F, N] block."""
@@ -653,12 +668,14 @@ class _Renderer:
             return x
         names = [self.plan.inputs[i].name for i in indices]
         stacked = names[0] if f == 1 else g.op("Concat", names, "raw_stacked", axis=0)
-        return g.op("Reshape", [stacked, g.const("block_shape", [f, -1], np.int64)], "raw")
+        shape = [f, -1] + [1] * (self._block_rank - 2)
+        return g.op("Reshape", [stacked, g.const("block_shape", shape, np.int64)], "raw")
 
-    def _finite(self, x: str) -> str:
+    def _finite(self, x: str, rank: int = 2) -> str:
         """The negation of is_missing: |x| < inf is false for exactly NaN and +-inf."""
         size = self.g.op("Abs", [x], f"{x}_abs")
-        return self.g.op("Less", [size, self.g.const("inf", [[np.inf]])], f"{x}_finite")
+        inf = self.g.const("inf", np.full((1,) * rank, np.inf, dtype=self.dtype))
+        return self.g.op("Less", [size, inf], f"{x}_finite")
 
     def _aligned(self, lanes: list[_Lane]) -> list[tuple[str, list]]:
         """Every lane's steps laid on one sequence of nodes (a shortest common
