@@ -191,8 +191,10 @@ def test_node_count_of_a_standardized_all_numeric_binary_model(tmp_path):
     graph = onnx.load(emitted(build("spector").model, tmp_path)).graph
     ops = [n.op_type for n in graph.node]
     print(f"\nspector (3 numeric inputs, binary): {len(ops)} nodes: {' '.join(ops)}")
-    # 11 nodes stack, guard and weight the inputs and sum the margin in the plan's order;
-    # 13 make the stable sigmoid, both probabilities and the class index.
+    # 12 nodes stack, guard and weight the inputs and sum the margin in the plan's order
+    # (a CumSum, its last row and the intercept: one node more than a Split and a Sum, and
+    # faster, bench/bench_onnx.py); 12 make the stable sigmoid, both probabilities and the
+    # class index (the sigmoid's select and the class index share one comparison).
     assert len(ops) <= 24
     assert "MatMul" not in ops  # its kernels may reorder the plan's summation
 
@@ -631,7 +633,9 @@ def test_the_emitter_spells_no_semantics_of_the_plan():
 
 
 # Node counts of the emitter before it rendered the program (measured on this tree, double,
-# per-feature inputs); rendering the program must not add nodes.
+# per-feature inputs); rendering the program must not add nodes, but one: an ordered sum of
+# three lanes or more is a CumSum, its last row and the constants (3 nodes for the Split and
+# the Sum's 2), which took less time at one row and at 1e6 rows (bench/bench_onnx.py).
 NODES_BEFORE = {"fault_binary": 33, "fault_type": 26, "iris": 22, "wine": 23,
                 "alarms_poisson": 18, "diabetes_ridge": 15, "spector": 24,
                 "mixed_scalers": 33, "hostile": 30}
@@ -641,7 +645,8 @@ NODES_BEFORE = {"fault_binary": 33, "fault_type": 26, "iris": 22, "wine": 23,
 @pytest.mark.parametrize("name", sorted(NODES_BEFORE))
 def test_no_more_nodes_than_before(name, precision):
     (art,) = emitter("onnx")(build(name).model, {"precision": precision})
-    assert len(onnx.load_from_string(art.content).graph.node) <= NODES_BEFORE[name]
+    ops = [n.op_type for n in onnx.load_from_string(art.content).graph.node]
+    assert len(ops) <= NODES_BEFORE[name] + ops.count("CumSum")
 
 
 @pytest.mark.parametrize("precision", ["double", "float"])
@@ -686,3 +691,101 @@ def test_a_model_without_terms_scores_its_intercepts_on_every_row(name, before, 
     assert len(onnx.load_from_string(art.content).graph.node) <= before
     out, _ = _agrees_with_the_program(model, model_rows(name, 50), tmp_path)
     assert out.margins.shape[0] == len(model_rows(name, 50))
+
+
+@pytest.mark.parametrize("precision", ["double", "float"])
+def test_the_sigmoid_shares_the_class_index_comparison_with_the_same_bits(precision,
+                                                                         monkeypatch):
+    """The stable sigmoid's select(ge(m, 0), 1/d, t/d) is rendered with the class index's
+    gt(m, 0) (one Greater, no GreaterOrEqual): the two comparisons differ only at m = +-0,
+    where both branches are 1 / (1 + exp(-0)) = 0.5. Margins of exactly +0.0 and -0.0
+    (intercept -0.0, inputs of either zero), the smallest subnormals, NaN, +-inf and huge
+    inputs, one row and many: the same bytes as the graph with a node per comparison on
+    onnxruntime and on the reference evaluator (outside checks: both evaluators' own
+    Greater, GreaterOrEqual and Exp), the program's margins and class indexes (double), 0.5
+    exactly at the ties (+0.0 and -0.0 alike, as the stated ULP distances take them)."""
+    doc = build("spector").model.to_document()
+    doc["head"]["intercepts"] = [-0.0]
+    model = edited(doc)
+    plan = build_plan(model, precision)
+    ties = [{"GPA": 0.0, "TUCE": 0.0, "PSI": 0.0}, {"GPA": -0.0, "TUCE": -0.0, "PSI": -0.0},
+            {}]
+    rows = ties + [{"GPA": v} for v in (5e-324, -5e-324, 1e-300, -1e-300, math.nan, math.inf,
+                                        -math.inf, 1e308, -1e308, 300.0, -300.0)]
+    rows += model_rows("spector", 100)
+    want = _program_outputs(build_plan(model), rows)
+    assert want["margin_0"][0].tobytes() == np.float64(0.0).tobytes()
+    assert want["margin_0"][1].tobytes() == np.float64(-0.0).tobytes()
+    graphs = [emitter("onnx")(model, {"precision": precision})[0].content]
+    monkeypatch.setattr(onnx_emitter, "_one_comparison_per_tie", lambda ops, dtype: ops)
+    graphs.append(emitter("onnx")(model, {"precision": precision})[0].content)
+    ops = [[n.op_type for n in onnx.load_from_string(c).graph.node] for c in graphs]
+    assert "GreaterOrEqual" not in ops[0] and "GreaterOrEqual" in ops[1]
+    assert len(ops[0]) == len(ops[1]) - 1
+    feeds = input_feeds(plan, rows, "per-feature")
+    for n in (1, 2, len(rows)):
+        part = {k: v[:n] for k, v in feeds.items()}
+        outputs = []
+        for content in graphs:
+            session = onnxruntime.InferenceSession(content, providers=["CPUExecutionProvider"])
+            names = [o.name for o in session.get_outputs()]
+            reference = ReferenceEvaluator(onnx.load_from_string(content))
+            got = session.run(names, part), reference.run(names, part)
+            outputs.append([x.tobytes() for pair in got for x in pair])
+            for margin, probability, class_index in got:
+                assert (probability[:min(n, len(ties))] == 0.5).all()
+                if precision == "double":  # the float graph is held to its tolerance
+                    # equal as numbers: onnxruntime's Where gives +0.0 for a chosen -0.0
+                    assert np.array_equal(margin[:, 0], want["margin_0"][:n])
+                    assert list(class_index) == list(want["class_index"][:n])
+        assert outputs[0] == outputs[1]
+
+
+def _lanes_model(f: int):
+    """f numeric inputs read as they are (missing: 0), weights of either sign and both
+    scales, so the order of the margin's additions shows in its bits."""
+    doc = build("spector").model.to_document()
+    names = [f"x{j}" for j in range(f)]
+    doc["features"] = [dict(doc["features"][0], name=n) for n in names]
+    doc["design"] = [{"feature": n} for n in names]
+    weights = [(-1.0) ** j * (1.0 + j / 7) for j in range(f)]
+    doc["head"] = dict(doc["head"], intercepts=[0.375], coefficients=[weights])
+    return edited(doc)
+
+
+@pytest.mark.parametrize("precision", ["double", "float"])
+@pytest.mark.parametrize("f", [3, 9, 30])
+def test_the_running_sum_adds_the_lanes_in_the_program_order(f, precision, monkeypatch):
+    """An ordered sum of the block's lanes is the last row of a CumSum (then the intercept):
+    on values whose sum depends on the order (magnitudes 1e-8 to 1e16 of either sign), with
+    NaN, +-inf, huge and -0.0 inputs, for one row, two and many, both evaluators give the
+    program's margins bit for bit (double) and the same bytes as the graph of a Split and a
+    Sum (outside checks: onnxruntime's CumSum and Sum, numpy's cumsum in the reference
+    evaluator; its ReduceSum would sum one row of 9 lanes or more pairwise)."""
+    model = _lanes_model(f)
+    plan = build_plan(model, precision)
+    rng = np.random.default_rng(f)
+    values = rng.choice([-1.0, 1.0], (300, f)) * 10.0 ** rng.integers(-8, 17, (300, f))
+    rows = [{f"x{j}": float(v) for j, v in enumerate(r)} for r in values]
+    rows += [{"x0": v, "x1": 1.0} for v in (math.nan, math.inf, -math.inf, 1e308, -1e308,
+                                            -0.0, 5e-324)]
+    rows.append({f"x{j}": -0.0 for j in range(f)})
+    graphs = [emitter("onnx")(model, {"precision": precision})[0].content]
+    monkeypatch.setattr(onnx_emitter, "RUNNING_SUM_LANES", 10**9)
+    graphs.append(emitter("onnx")(model, {"precision": precision})[0].content)
+    ops = [[n.op_type for n in onnx.load_from_string(c).graph.node] for c in graphs]
+    assert "CumSum" in ops[0] and "Split" not in ops[0] and "CumSum" not in ops[1]
+    want = _program_outputs(build_plan(model), rows)["margin_0"]
+    feeds = input_feeds(plan, rows, "per-feature")
+    evaluators = [(onnxruntime.InferenceSession(c, providers=["CPUExecutionProvider"]),
+                   ReferenceEvaluator(onnx.load_from_string(c))) for c in graphs]
+    for part in [slice(i, i + 1) for i in range(20)] + [slice(0, 2), slice(0, len(rows))]:
+        chunk = {k: v[part] for k, v in feeds.items()}
+        outputs = []
+        for session, reference in evaluators:
+            margins = [session.run(["margin"], chunk)[0], reference.run(["margin"], chunk)[0]]
+            if precision == "double":
+                for got in margins:
+                    assert got[:, 0].tobytes() == want[part].tobytes()
+            outputs.append([m.tobytes() for m in margins])
+        assert outputs[0] == outputs[1]

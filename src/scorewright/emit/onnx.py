@@ -24,13 +24,24 @@ categorical input alone are folded at emit time (`program.fold`, in the graph's
 element type) for every code the read can give, into one table gathered by code;
 the value a missing numeric input ends with is folded the same way, so one Where
 replaces a second pass; the same op on every class is one node over [N, K]; and a
-few op patterns are one node with the same bits (`_find_fusions`). Anything else
-is one node per op. Ordered sums are variadic Sum nodes, which both evaluators add
-left to right, never a MatMul, whose kernels may reorder or fuse the products.
+few op patterns are one node with the same bits (`_find_fusions`), and a select on
+ge(a, c) takes the program's gt(a, c) where its branches agree at a == c
+(`_one_comparison_per_tie`). Anything else is one node per op. Ordered sums are
+the last row of a CumSum over the block's lanes (`_running_sums`: a running sum is
+defined by its prefixes) or variadic Sum nodes, which both evaluators add left to
+right; never a MatMul, whose kernels may reorder or fuse the products, nor a
+ReduceSum: onnxruntime 1.32 adds the rows of an [F, N] block in order, but the
+reference evaluator's numpy sums the 9 or more lanes of a single row pairwise
+(measured: 72 of 200 random rows of 9 lanes and 107 of 200 of 30 lanes differ from
+the ordered sum; none with 2 rows or more).
 
 Every constant has the rank of the tensor it meets: in onnxruntime 1.32 an Add of
 [N, 1] and a [] constant ran ~40x slower than of [N, 1] and [1, 1], and [N, F]
-against [F] ~4x slower than [F, N] against [F, 1] (measured, 1e6 rows).
+against [F] ~4x slower than [F, N] against [F, 1] (measured, 1e6 rows). So the
+matrix input is transposed to [F, N] once: the whole graph kept [N, F] (constants
+[1, F], Split on axis 1, no Transpose or margin Reshape) gave the same bits in two
+nodes fewer but took 1.15x to 1.45x as long at 1e6 rows, for 0.93x at one row
+(bench/bench_onnx.py's model, two runs on a loaded machine).
 """
 
 from __future__ import annotations
@@ -169,6 +180,11 @@ COMMUTATIVE = ("add", "mul")  # bitwise, so a constant on the left is one on the
 
 TYPES = {CODE: (TensorProto.INT64, np.int64), FLAG: (TensorProto.BOOL, np.bool_)}
 
+# The fewest lanes whose ordered sum is a CumSum rather than a Split and a Sum: its time
+# over theirs was 1.04 (1e6 rows) and 0.99 (one row) for 2 lanes, 0.99 and 0.95 for 3,
+# 0.97 and 0.87 for 7 (onnxruntime 1.32, one thread's CPU time, medians of 9).
+RUNNING_SUM_LANES = 3
+
 
 # ---------------------------------------------------------------- graph building
 
@@ -288,7 +304,7 @@ class _Renderer:
         self.dtype = g.elem.numpy
         self.at: dict[str, tuple[_Vec, int]] = {}   # program name -> (tensor, lane)
         self._cached: dict = {}
-        self.ops = self._constant_margins(lower(plan).ops)
+        self.ops = _one_comparison_per_tie(self._constant_margins(lower(plan).ops), self.dtype)
         self.by_dest = {op.dest: op for op in self.ops}
         self.consumers: dict[str, list[Op]] = {}
         for op in self.ops:
@@ -298,6 +314,7 @@ class _Renderer:
         self.absorbed: set[str] = set()   # computed inside another op's fused node
         self.fused: dict = {}              # program name -> the method that renders it
         self.renamed: dict[str, str] = {}  # tensor -> the graph output it became
+        self._block_rank = 2                # of the numeric block: [F, N] or [F, N, 1]
 
     def _constant_margins(self, ops) -> list[Op]:
         """A program without terms has constants for margins: they are given a row each
@@ -468,7 +485,7 @@ class _Renderer:
             if self.by_dest[r].op == "read_code":
                 self._code_table(self.by_dest[r], cone)
         for cone in cones.values():
-            if any(op.dest in self.at for op in cone):
+            if any(op.dest in self.at or op.dest in self.absorbed for op in cone):
                 self.absorbed |= {op.dest for op in cone if op.dest not in self.at}
 
     def _cones(self) -> dict[str, list[Op]]:
@@ -548,8 +565,13 @@ class _Renderer:
 
     def _numeric_block(self, lanes: list[_Lane]) -> None:
         g, f = self.g, len(lanes)
+        width = len(lanes[0].fanout)
+        sums = self._lane_sums(lanes, width)
+        # Per-feature inputs of one value each stack as [F, N, 1] where the lanes' values
+        # go to their sum alone: the sum is then gathered as the [N, 1] column itself.
+        self._block_rank = 3 if sums and self.layout != "matrix" and width == 1 else 2
         x = self._stack([lane.read.attr for lane in lanes])
-        finite = None if lanes[0].flag is None else self._finite(x)
+        finite = None if lanes[0].flag is None else self._finite(x, self._block_rank)
         v = x
         merged = self._aligned(lanes)
         j = 0
@@ -567,14 +589,18 @@ class _Renderer:
         if finite is not None:
             v = g.op("Where", [finite, v,
                                self._const_rows([lane.missing for lane in lanes])], "design")
-        width = len(lanes[0].fanout)
         consts = np.asarray([[c for _, c in lane.fanout] for lane in lanes], dtype=self.dtype)
         if width > 1:
             v = g.op("Unsqueeze", [v, g.axes(1)], f"{v}_3d")
             consts = consts[..., None]   # [F, W, 1] against [F, 1, N]
+        elif self._block_rank == 3:
+            consts = consts[..., None]   # [F, 1, 1] against [F, N, 1]
         c = g.const("c", consts)
         node, first = lanes[0].node
         products = g.op(node, [c, v] if first else [v, c], "terms")
+        if sums:
+            self._running_sums(lanes, sums, products, width)
+            return
         parts = [products] if f == 1 else g.op("Split", [products], "term", outputs=f,
                                                axis=0, num_outputs=f)
         for lane, part in zip(lanes, parts):
@@ -583,9 +609,55 @@ class _Renderer:
             for k, name in enumerate(names):
                 self.at[name] = (vec, k)
 
+    def _lane_sums(self, lanes: list[_Lane], width: int) -> list[Op] | None:
+        """The sums, one per fanout position, of every lane's value in block order then
+        constants, where the lanes' values are used by those sums alone."""
+        f = len(lanes)
+        if f < RUNNING_SUM_LANES:
+            return None
+        sums = []
+        for k in range(width):
+            names = tuple(lane.fanout[k][0].dest for lane in lanes)
+            users = [u for n in names for u in self.consumers.get(n, [])]
+            if len(users) != f or len({u.dest for u in users}) != 1:
+                return None
+            total = users[0]
+            if total.op != "sum" or total.args[:f] != names \
+                    or not all(isinstance(a, Const) and a.type == REAL for a in total.args[f:]):
+                return None
+            sums.append(total)
+        if len({len(t.args) for t in sums}) != 1 or len({t.dest for t in sums}) != width:
+            return None
+        return sums
+
+    def _running_sums(self, lanes: list[_Lane], sums: list[Op], products: str,
+                      width: int) -> None:
+        """The lanes' sums as the last row of a CumSum over the lanes' axis plus the
+        constants. A running sum is defined by its prefixes, so both evaluators add the
+        lanes one by one in the program's order (a ReduceSum is not; see the module's doc
+        string); one CumSum, Gather and Add took less time than a Split and a Sum, at one
+        row as at 1e6 (bench/bench_onnx.py)."""
+        g, f = self.g, len(lanes)
+        running = g.op("CumSum", [products, g.const("lanes_axis", 0, np.int64)], "running")
+        deep = self._block_rank == 3   # [F, N, 1]: the last lane is the [N, 1] column
+        last = g.const("c", f - 1 if deep else [f - 1], np.int64)
+        total = g.op("Gather", [running, last], "lane_sums", axis=0)
+        layout = "col" if deep else "row" if width == 1 else "slab"
+        consts = [self._const([t.args[q].value for t in sums], REAL, width, layout)
+                  for q in range(f, len(sums[0].args))]
+        if consts:
+            total = g.op("Sum" if len(consts) > 1 else "Add", [total, *consts], "margin_rows")
+        cols = self._as_cols(_Vec(total, layout, tuple(t.dest for t in sums), REAL))
+        for k, t in enumerate(sums):
+            self.at[t.dest] = (cols, k)
+        for lane in lanes:
+            self.absorbed |= {op.dest for op, _ in lane.fanout}
+
     def _const_rows(self, values: list) -> str:
-        """Per-lane constants as an [F, 1] column, to meet the [F, N] block."""
-        return self.g.const("c", np.asarray(values, dtype=self.dtype).reshape(-1, 1))
+        """Per-lane constants as an [F, 1] column, to meet the [F, N] block (or [F, 1, 1],
+        to meet [F, N, 1])."""
+        shape = (-1,) + (1,) * (self._block_rank - 1)
+        return self.g.const("c", np.asarray(values, dtype=self.dtype).reshape(shape))
 
     def _stack(self, indices: list[int]) -> str:
         """The inputs' raw values as one feature-major [F, N] block."""
@@ -598,12 +670,14 @@ class _Renderer:
             return x
         names = [self.plan.inputs[i].name for i in indices]
         stacked = names[0] if f == 1 else g.op("Concat", names, "raw_stacked", axis=0)
-        return g.op("Reshape", [stacked, g.const("block_shape", [f, -1], np.int64)], "raw")
+        shape = [f, -1] + [1] * (self._block_rank - 2)
+        return g.op("Reshape", [stacked, g.const("block_shape", shape, np.int64)], "raw")
 
-    def _finite(self, x: str) -> str:
+    def _finite(self, x: str, rank: int = 2) -> str:
         """The negation of is_missing: |x| < inf is false for exactly NaN and +-inf."""
         size = self.g.op("Abs", [x], f"{x}_abs")
-        return self.g.op("Less", [size, self.g.const("inf", [[np.inf]])], f"{x}_finite")
+        inf = self.g.const("inf", np.full((1,) * rank, np.inf, dtype=self.dtype))
+        return self.g.op("Less", [size, inf], f"{x}_finite")
 
     def _aligned(self, lanes: list[_Lane]) -> list[tuple[str, list]]:
         """Every lane's steps laid on one sequence of nodes (a shortest common
@@ -872,6 +946,68 @@ class _Renderer:
             self._cached["rows", width] = g.op(
                 "Concat", [count, g.const("c", [width], np.int64)], "shape", axis=0)
         return g.op("Expand", [tensor, self._cached["rows", width]], f"{tensor}_rows")
+
+
+def _one_comparison_per_tie(ops: list[Op], dtype) -> list[Op]:
+    """select(ge(a, c), x, y) as select(gt(a, c), x, y) where the program also computes
+    gt(a, c) and x and y have the same bits at a == c (+0.0 and -0.0 when c is 0), the
+    only values where ge and gt differ (a NaN makes both false): one comparison node
+    serves both, the same bits on every row. The stable sigmoid's select is one: at a
+    margin of +-0 both branches are 1 / (1 + exp(-0)) = 0.5, and the class index compares
+    the margin with a cut of 0."""
+    strict = {(op.args, op.type): op for op in ops if op.op == "gt"}
+    uses: dict[str, int] = {}
+    for op in ops:
+        for a in op.args:
+            if isinstance(a, str):
+                uses[a] = uses.get(a, 0) + 1
+    by_dest = {op.dest: op for op in ops}
+    swap: dict[str, Op] = {}   # the ge's dest -> the gt it becomes
+    for i, op in enumerate(ops):
+        if op.op != "select" or not isinstance(op.args[0], str):
+            continue
+        flag = by_dest.get(op.args[0])
+        if flag is None or flag.op != "ge" or uses[flag.dest] != 1 \
+                or (flag.args, flag.type) not in strict:
+            continue
+        a, c = flag.args
+        if not isinstance(a, str) or not isinstance(c, Const) or c.type != REAL:
+            continue
+        ties = (0.0, -0.0) if c.value == 0 else (c.value,)
+        if all(_same_bits(_fold_with_exp_of_zero(ops[:i], {a: dtype(t)}, dtype), op.args[1:],
+                          dtype) for t in ties):
+            swap[flag.dest] = strict[flag.args, flag.type]
+    out, placed = [], set()
+    for op in ops:
+        if op.dest in swap:
+            op = swap[op.dest]   # the gt, where the ge was: its operands are ready there
+        elif op.op == "select" and op.args[0] in swap:
+            op = Op(op.dest, op.op, (swap[op.args[0]].dest, *op.args[1:]), op.type, op.attr)
+        if op.dest not in placed:
+            placed.add(op.dest)
+            out.append(op)
+    return out
+
+
+def _fold_with_exp_of_zero(ops: list[Op], env: dict, dtype) -> dict:
+    """`fold`, and exp(+-0) = 1: exact in IEEE 754 (C99 Annex F), in onnxruntime's Exp
+    for double and float and in numpy's (tests/test_onnx.py checks both evaluators)."""
+    while True:
+        values = fold(ops, env, dtype)
+        more = {op.dest: dtype(1.0) for op in ops if op.op == "exp" and op.dest not in values
+                and _known(values, op.args[0], dtype) == 0}
+        if not more:
+            return values
+        env = {**values, **more}
+
+
+def _known(values: dict, arg, dtype):
+    return dtype(arg.value) if isinstance(arg, Const) else values.get(arg)
+
+
+def _same_bits(values: dict, args, dtype) -> bool:
+    x, y = (_known(values, a, dtype) for a in args)
+    return x is not None and y is not None and dtype(x).tobytes() == dtype(y).tobytes()
 
 
 def _code_domain(inp) -> list[int]:
