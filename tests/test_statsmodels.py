@@ -206,18 +206,20 @@ def test_frozen_formula_model_builds_and_verifies(tmp_path):
     assert report.ok, [r.message for r in report.results]
 
 
-def test_a_formula_with_interactions_builds_and_verifies(tmp_path):
-    """Products of levels and numbers from a formula, on the real runtimes (CPython, gcc,
-    SQLite, DuckDB, onnxruntime)."""
-    data = _fair()
-    data = data.assign(children=data.children.round())
-    results = smf.glm(INTERACTIONS[3], data=data, family=sm.families.Poisson()).fit()
+def _builds(formula, data, tmp_path):
+    """The formula's frozen model on CPython, gcc, SQLite, DuckDB and onnxruntime."""
+    results = smf.glm(formula, data=data, family=sm.families.Poisson()).fit()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         model = scorewright.freeze(results, check_rows=data.head(200))
     report = build_targets(model, tmp_path, targets=["python", "c-double", "sql-sqlite",
                                                      "sql-duckdb", "onnx-double"], data=None)
     assert report.ok, [r.message for r in report.results]
+
+
+def test_a_formula_with_interactions_builds_and_verifies(tmp_path):
+    """Products of levels and numbers from a formula, on the real runtimes."""
+    _builds(INTERACTIONS[3], _fair().assign(children=lambda d: d.children.round()), tmp_path)
 
 
 def test_cli_freezes_saved_results(tmp_path):
@@ -268,14 +270,7 @@ def test_patsy_splines_agree_with_predict(formula):
 
 
 def test_a_patsy_spline_builds_and_verifies(tmp_path):
-    data = _fair()
-    results = smf.glm(BS[0], data=data, family=sm.families.Poisson()).fit()
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        model = scorewright.freeze(results, check_rows=data.head(200))
-    report = build_targets(model, tmp_path, targets=["python", "c-double", "sql-sqlite",
-                                                     "sql-duckdb", "onnx-double"], data=None)
-    assert report.ok, [r.message for r in report.results]
+    _builds(BS[0], _fair(), tmp_path)
 
 
 @pytest.mark.parametrize("formula", [

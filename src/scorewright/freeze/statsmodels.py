@@ -433,15 +433,7 @@ def _formulaic_factor(spec, factor, term: str):
     kind, state = spec.encoder_state.get(expr, (None, {}))
     if getattr(kind, "value", kind) == "categorical":
         tree = _parse_expr(expr, term)
-        if isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name) and \
-                tree.func.id == "C" and tree.args and isinstance(tree.args[0], ast.Name):
-            column = tree.args[0].id
-        elif isinstance(tree, ast.Name):
-            column = tree.id
-        else:
-            raise Unsupported(f"term {term!r}: a categorical factor must be C(column, ...) or "
-                              "a text column")
-        return CategoricalFeature(column, tuple(_level(v, term)
+        return CategoricalFeature(_categorical_column(tree, term), tuple(_level(v, term)
                                                 for v in state["contrasts"].levels))
     tree = _parse_expr(expr, term)
     if (isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name)
@@ -597,15 +589,19 @@ def _stateful_steps(obj, options: dict, factor) -> list[ScalingStep]:
 
 def _categorical_factor(factor, info) -> CategoricalFeature:
     tree = _parse_expr(factor.code, factor.name())
+    return CategoricalFeature(_categorical_column(tree, factor.name()),
+                              tuple(_level(v, factor.name()) for v in info.categories))
+
+
+def _categorical_column(tree, term: str) -> str:
+    """The column of a categorical factor: C(column, ...) or the column itself."""
     if isinstance(tree, ast.Call) and isinstance(tree.func, ast.Name) and tree.func.id == "C" \
             and tree.args and isinstance(tree.args[0], ast.Name):
-        name = tree.args[0].id
-    elif isinstance(tree, ast.Name):
-        name = tree.id
-    else:
-        raise Unsupported(f"term {factor.name()!r}: a categorical term must be C(column, ...) "
-                          "or a text column")
-    return CategoricalFeature(name, tuple(_level(v, factor.name()) for v in info.categories))
+        return tree.args[0].id
+    if isinstance(tree, ast.Name):
+        return tree.id
+    raise Unsupported(f"term {term!r}: a categorical term must be C(column, ...) or a text "
+                      "column")
 
 
 def _level(value, term: str):
