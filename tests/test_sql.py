@@ -310,9 +310,10 @@ def test_trap_postgres_jit_gives_the_same_bits(tmp_path, postgres_dsn, request):
             "postgres", name, settings=FORCED_JIT), text_pass=False), postgres_dsn)
         assert "jit_optimize_above_cost=0" in got.runtime, got.runtime
         assert_agrees(tm.model, rows, got)
-    # Compiling is slow (260 features: 19 s wide, 95 s long), so the long layout runs
-    # on a model of one layer.
-    for n, layout in ((260, "wide"), (40, "long")):
+    # Compiling is slow (260 features: 19 s wide, 95 s long; more since each column has an
+    # ordinary-row arm), so the long layout runs on a model of one layer, and the default
+    # tier's wide model has 100 features (two layers; 260 under --runslow).
+    for n, layout in ((260 if slow else 100, "wide"), (40, "long")):
         wide = models.wide_model(n, prefix="jit", spread=0.3)
         rows = random_rows(build_plan(wide), 12, seed=n)
         got = run_sql(tmp_path, wide, rows, {"dialect": "postgres", "layout": layout,
