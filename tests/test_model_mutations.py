@@ -111,16 +111,7 @@ def _version_2_corpus():
     transform, missing indicators, bins, products, an ordinal encoding): each refused;
     a few name a neighbouring field, so no needle."""
     good = json.loads(models.build("compressor_terms").model.to_json())
-    for path, value in _paths(good):
-        if path == ("sha256",):
-            continue
-        if isinstance(path[-1], str):
-            d = copy.deepcopy(good)
-            _set(d, path, delete=True)
-            yield f"format 2: removed {path}", _sealed(d), None
-        d = copy.deepcopy(good)
-        _set(d, path, _wrong_type(value))
-        yield f"format 2: wrong type at {path}", _sealed(d), None
+    yield from _removed_and_mistyped(good, "format 2")
 
 
 def _version_3_corpus():
@@ -143,16 +134,21 @@ def _version_3_corpus():
                         StandardScaler(), LogisticRegression()).fit(x, y)
     good = json.loads(scorewright.freeze(est, check_rows=x).to_json())
     assert good["format_version"] == 3
+    yield from _removed_and_mistyped(good, "format 3")
+
+
+def _removed_and_mistyped(good: dict, label: str):
+    """Every key of `good` removed, and every value given the wrong type, resealed."""
     for path, value in _paths(good):
         if path == ("sha256",):
             continue
         if isinstance(path[-1], str):
             d = copy.deepcopy(good)
             _set(d, path, delete=True)
-            yield f"format 3: removed {path}", _sealed(d), None
+            yield f"{label}: removed {path}", _sealed(d), None
         d = copy.deepcopy(good)
         _set(d, path, _wrong_type(value))
-        yield f"format 3: wrong type at {path}", _sealed(d), None
+        yield f"{label}: wrong type at {path}", _sealed(d), None
 
 
 CASES = list(corpus())

@@ -321,9 +321,7 @@ def _bins(kb, chains, path):
     out = []
     for i, chain in enumerate(chains):
         _require_raw(chain, path, "KBinsDiscretizer")
-        if chain.steps or chain.clip is not None or isinstance(chain.fill, str):
-            raise Unsupported(f"KBinsDiscretizer at {path} comes after scaling; put it first "
-                              "(after any SimpleImputer)")
+        _require_first(chain, path, "KBinsDiscretizer")
         inner = tuple(float(e) for e in np.asarray(kb.bin_edges_[i], dtype=np.float64)[1:-1])
         if not inner:
             raise Unsupported(f"KBinsDiscretizer at {path}: feature column {i} has a single "
@@ -356,9 +354,7 @@ def _splines(st, chains, path):
     out = []
     for i, chain in enumerate(chains):
         _require_raw(chain, path, "SplineTransformer")
-        if chain.steps or chain.clip is not None or isinstance(chain.fill, str):
-            raise Unsupported(f"SplineTransformer at {path} comes after scaling; put it first "
-                              "(after any SimpleImputer)")
+        _require_first(chain, path, "SplineTransformer")
         spl = st.bsplines_[i]
         knots = tuple(float(v) for v in np.asarray(spl.t, dtype=np.float64))
         if any(not a < b for a, b in itertools.pairwise(knots)):
@@ -389,9 +385,7 @@ def _power(pt, chains, path):
     scaler = getattr(pt, "_scaler", None) if pt.standardize else None
     for i, chain in enumerate(chains):
         _require_raw(chain, path, "PowerTransformer")
-        if chain.steps or chain.clip is not None or isinstance(chain.fill, str):
-            raise Unsupported(f"PowerTransformer at {path} comes after scaling; put it first "
-                              "(after any SimpleImputer)")
+        _require_first(chain, path, "PowerTransformer")
         if chain.fill is not None and op in TRANSFORM_DOMAIN and not in_domain(
                 op, float(chain.fill)):
             raise Unsupported(f"PowerTransformer(method='box-cox') at {path}: the imputed "
@@ -549,6 +543,13 @@ def _factor(chain, path) -> DesignColumn:
 def _named(chain, **fields) -> DesignColumn:
     # the feature's name is set when the design is read out (raw names are known there)
     return DesignColumn(str(chain.feature), **fields)
+
+
+def _require_first(chain, path, what):
+    """A transformer that must take the raw value (after any SimpleImputer's fill)."""
+    if chain.steps or chain.clip is not None or isinstance(chain.fill, str):
+        raise Unsupported(f"{what} at {path} comes after scaling; put it first "
+                          "(after any SimpleImputer)")
 
 
 def _require_raw(chain, path, what):
