@@ -27,8 +27,9 @@ FORMAT = "scorewright-frozen-model"
 # missing indicators, products and encodings; version 3 adds splines (SPLINE). A model is
 # written in the lowest version that can say it, so every model an older version could
 # hold is written as before (its file and sha256 unchanged); this scorewright reads all.
-FORMAT_VERSION = 3
-READS_VERSIONS = (1, 2, 3)
+# Version 4 adds calibrated heads (the "calibrated" link and the head's "calibration").
+FORMAT_VERSION = 4
+READS_VERSIONS = (1, 2, 3, 4)
 
 SCALING_OPS = ("subtract", "divide", "multiply", "add")
 # Transforms: a numeric feature's first step (after the missing-value fill), no value. A raw
@@ -46,12 +47,13 @@ TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, Fal
 # multiclass "ovr_logit": one-vs-rest logistic, each class's sigmoid divided by their sum;
 # regression "log1p": the value is expm1(margin), "sqrt": the value is margin * margin,
 # "inverse": 1 / margin (statsmodels' InversePower); binary "cauchit": the Cauchy CDF
-TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit", "log"),
-              "multiclass": ("softmax", "ovr_logit"),
+# binary and multiclass "calibrated": the head's `calibration` (format version 4)
+TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit", "log", "calibrated"),
+              "multiclass": ("softmax", "ovr_logit", "calibrated"),
               "regression": ("identity", "log", "log1p", "sqrt", "inverse")}
 # links an older file version cannot hold
 LINK_VERSION = {"probit": 2, "cloglog": 2, "ovr_logit": 3, "log1p": 3, "sqrt": 3,
-                "inverse": 3, "cauchit": 3}
+                "inverse": 3, "cauchit": 3, "calibrated": 4}
 
 Level = Union[str, int]
 
@@ -166,6 +168,47 @@ class DesignColumn:
 
 
 @dataclass(frozen=True)
+class Calibrator:
+    """How one decision value becomes a class's probability, as scikit-learn's
+    CalibratedClassifierCV calibrates it: "sigmoid", expit(-(a f + b)); "isotonic",
+    the piecewise-linear interpolation of `values` over the increasing `thresholds`, f
+    first clipped to [thresholds[0], thresholds[-1]] (one threshold: its value)."""
+
+    method: str
+    a: float | None = None
+    b: float | None = None
+    thresholds: tuple[float, ...] | None = None
+    values: tuple[float, ...] | None = None
+
+    def slopes(self) -> tuple[float, ...]:
+        """Each isotonic segment's slope, as numpy's interp computes it (one IEEE division;
+        inf where it overflows, which Python's float division would raise on)."""
+        import numpy as np
+
+        t, v = np.asarray(self.thresholds), np.asarray(self.values)
+        with np.errstate(all="ignore"):
+            return tuple(map(float, (v[1:] - v[:-1]) / (t[1:] - t[:-1])))
+
+
+CALIBRATION_METHODS = ("sigmoid", "isotonic")
+
+
+@dataclass(frozen=True)
+class Calibration:
+    """A calibrated head (format version 4, link "calibrated"): `members` linear models
+    over the same design, each with one decision value per class (binary: one, of the
+    positive class), the head's coefficient rows member by member. Each decision value
+    has its calibrator (same order); a member's probabilities are normalised (binary:
+    p0 = 1 - p1; multiclass: divided by their sum, uniform when the sum is 0), the
+    probabilities averaged over the members (added from 0.0 in member order, then
+    divided by `members`), and the class is the one of the largest average (lowest index
+    on ties)."""
+
+    members: int
+    calibrators: tuple[Calibrator, ...]
+
+
+@dataclass(frozen=True)
 class Head:
     task: str
     link: str
@@ -173,6 +216,7 @@ class Head:
     intercepts: tuple[float, ...]
     coefficients: tuple[tuple[float, ...], ...]
     cut: float | None  # binary only: predict the positive class when margin > cut
+    calibration: Calibration | None = None  # link "calibrated" only (format version 4)
 
 
 @dataclass(frozen=True)
@@ -225,6 +269,8 @@ def needs_version(model: FrozenModel) -> tuple[int, str]:
         for step in getattr(feat, "scaling", ()):
             if step.op == SPLINE or step.op in POWER_OPS:
                 return 3, f"the {step.op} step of feature {feat.name!r}"
+    if model.head.calibration is not None:
+        return 4, "the calibrated head"
     if model.head.link in LINK_VERSION:
         return LINK_VERSION[model.head.link], f"the {model.head.link} link"
     if model.head.task == "binary" and model.head.link == "log":
@@ -282,9 +328,18 @@ def _document_body(model: FrozenModel) -> dict:
             "intercepts": list(head.intercepts),
             "coefficients": [list(row) for row in head.coefficients],
             "cut": head.cut,
+            **({} if head.calibration is None else
+               {"calibration": _calibration_entry(head.calibration)}),
         },
         "provenance": model.provenance,
     }
+
+
+def _calibration_entry(cal: Calibration) -> dict:
+    return {"members": cal.members,
+            "calibrators": [{"method": c.method, "a": c.a, "b": c.b} if c.method == "sigmoid"
+                            else {"method": c.method, "thresholds": list(c.thresholds),
+                                  "values": list(c.values)} for c in cal.calibrators]}
 
 
 def _steps_entry(steps) -> list:
@@ -805,7 +860,8 @@ def outside_text(op: str) -> str:
 
 def _read_head(value, n_design) -> Head:
     r = _Reader
-    r.obj(value, "head", ("task", "link", "classes", "intercepts", "coefficients", "cut"))
+    r.obj(value, "head", ("task", "link", "classes", "intercepts", "coefficients", "cut"),
+          optional=("calibration",))
     task = value["task"]
     if not isinstance(task, str) or task not in TASK_LINKS:
         raise ModelFileError(f"head.task: expected binary, multiclass or regression, got {task!r}")
@@ -831,6 +887,15 @@ def _read_head(value, n_design) -> Head:
         if task == "multiclass" and len(classes) < 3:
             raise ModelFileError("head.classes: a multiclass head has at least 3 classes")
         n_rows = 1 if task == "binary" else len(classes)
+    calibration = None
+    if link == "calibrated":
+        if "calibration" not in value:
+            raise ModelFileError("head: missing key 'calibration' for the calibrated link")
+        calibration = _read_calibration(value["calibration"], n_rows)
+        n_rows *= calibration.members
+    elif "calibration" in value:
+        raise ModelFileError("head: unexpected key 'calibration' (only the calibrated link "
+                             "has one)")
     intercepts = tuple(r.number(v, f"head.intercepts[{i}]")
                        for i, v in enumerate(r.array(value["intercepts"], "head.intercepts")))
     if len(intercepts) != n_rows:
@@ -846,8 +911,54 @@ def _read_head(value, n_design) -> Head:
                                  f"design column), got {len(row)}")
         coefs.append(tuple(r.number(v, f"head.coefficients[{k}][{j}]") for j, v in enumerate(row)))
     cut = value["cut"]
-    if task == "binary":
+    if task == "binary" and calibration is None:
         cut = r.number(cut, "head.cut")
     elif cut is not None:
-        raise ModelFileError(f"head.cut: only a binary head has a decision cut (null for {task})")
-    return Head(task, link, classes, intercepts, tuple(coefs), cut)
+        what = "a calibrated head" if calibration is not None else task
+        raise ModelFileError(f"head.cut: only a binary head has a decision cut (null for {what})")
+    return Head(task, link, classes, intercepts, tuple(coefs), cut, calibration)
+
+
+def _read_calibration(value, per_member: int) -> Calibration:
+    r = _Reader
+    path = "head.calibration"
+    r.obj(value, path, ("members", "calibrators"))
+    members = value["members"]
+    if type(members) is not int or members < 1:
+        raise ModelFileError(f"{path}.members: expected a positive integer, got "
+                             f"{_kind(members)}")
+    items = r.array(value["calibrators"], f"{path}.calibrators")
+    if len(items) != members * per_member:
+        raise ModelFileError(f"{path}.calibrators: expected {members * per_member} (one per "
+                             f"decision value of each member), got {len(items)}")
+    return Calibration(members, tuple(_read_calibrator(c, f"{path}.calibrators[{i}]")
+                                      for i, c in enumerate(items)))
+
+
+def _read_calibrator(value, path) -> Calibrator:
+    r = _Reader
+    method = value.get("method") if isinstance(value, dict) else None
+    if method == "sigmoid":
+        r.obj(value, path, ("method", "a", "b"))
+        return Calibrator(method, r.number(value["a"], f"{path}.a"),
+                          r.number(value["b"], f"{path}.b"))
+    if method != "isotonic":
+        r.obj(value, path, ("method",), optional=("a", "b", "thresholds", "values"))
+        raise ModelFileError(f"{path}.method: expected one of "
+                             f"{', '.join(CALIBRATION_METHODS)}, got {method!r}")
+    r.obj(value, path, ("method", "thresholds", "values"))
+    xs = tuple(r.number(x, f"{path}.thresholds[{i}]")
+               for i, x in enumerate(r.array(value["thresholds"], f"{path}.thresholds")))
+    ys = tuple(r.number(y, f"{path}.values[{i}]")
+               for i, y in enumerate(r.array(value["values"], f"{path}.values")))
+    if not xs or any(not a < b for a, b in zip(xs, xs[1:])):
+        raise ModelFileError(f"{path}.thresholds: expected increasing numbers")
+    if len(ys) != len(xs):
+        raise ModelFileError(f"{path}.values: expected one value per threshold ({len(xs)})")
+    cal = Calibrator(method, thresholds=xs, values=ys)
+    bad = next((j for j, s in enumerate(cal.slopes()) if not math.isfinite(s)), None)
+    if bad is not None:
+        raise ModelFileError(f"{path}.thresholds: thresholds {bad} and {bad + 1} are too close "
+                             "for a finite slope")
+    return cal
+

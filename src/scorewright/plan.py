@@ -152,6 +152,9 @@ class Plan:
     intercepts: tuple[float, ...]
     cut: float | None
     exp_kind: str = "libm"  # libm | portable
+    # link "calibrated": the head's Calibration (the margins are its members' decision
+    # values, member by member; program._lower_calibrated)
+    calibration: object = None
 
     @property
     def n_outputs(self) -> int:
@@ -281,6 +284,7 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
         intercepts=head.intercepts,
         cut=head.cut,
         exp_kind=exp,
+        calibration=head.calibration,
     )
 
 

@@ -592,6 +592,8 @@ def _lower_code(b: _Builder, inp: CategoricalInput) -> str:
 def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
     """The output values in `output_columns` order."""
     guard = plan.precision.exp_guard
+    if plan.link == "calibrated":
+        return [*margins, *_lower_calibrated(b, plan, margins)]
     if plan.task == "binary":
         m = margins[0]
         p0, p1 = _BINARY_LINKS[plan.link](b, plan, m)
@@ -628,6 +630,113 @@ def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
     if plan.link == "inverse":
         return [m, _lower_inverse(b, plan, m)]
     return [m, m]
+
+
+# scikit-learn's CalibratedClassifierCV leaves a probability above 1.0 + 1e-5 alone and sets
+# one in (1.0, 1.0 + 1e-5] to 1.0 (after normalising)
+CALIBRATED_SNAP = 1.0 + 1e-5
+
+
+def _lower_calibrated(b: _Builder, plan: Plan, margins: list) -> list:
+    """A calibrated head's class probabilities and class index, as scikit-learn's
+    CalibratedClassifierCV.predict_proba and predict compute them: per member (its
+    decision values are margins[m R .. m R + R - 1], R = 1 binary, else one per class),
+    each decision value through its calibrator (`_lower_calibrator`); binary: p0 = 1 -
+    p1; multiclass: each divided by their sum (numpy's sum, `_numpy_row_sum`), 1/K
+    each where the sum is 0; then a value in (1, CALIBRATED_SNAP] is 1.0. The mean over
+    the members is 0.0 plus each member's probability in member order, divided by the
+    number of members (sklearn's mean_proba += proba; mean_proba /= n); the class is
+    the first of the largest mean (numpy's argmax). A NaN margin (which the input guards
+    rule out) would give NaN probabilities, as in scikit-learn, and class 0."""
+    cal = plan.calibration
+    n_classes = len(plan.classes)
+    per = 1 if plan.task == "binary" else n_classes
+    members = []
+    for m in range(cal.members):
+        raw = [_lower_calibrator(b, plan, margins[m * per + k], cal.calibrators[m * per + k])
+               for k in range(per)]
+        if plan.task == "binary":
+            probs = [b.emit("sub", Const(1.0), raw[0], hint="p"), raw[0]]
+        else:
+            total = _numpy_row_sum(b, raw)
+            zero = b.emit("eq", total, Const(0.0), hint="f")
+            d = b.emit("select", zero, Const(1.0), total)
+            probs = [b.emit("select", zero, Const(1 / n_classes), b.emit("div", p, d), hint="p")
+                     for p in raw]
+        snapped = []
+        for p in probs:
+            keep = b.emit("select", b.emit("ge", Const(CALIBRATED_SNAP), p, hint="f"),
+                          Const(1.0), p)
+            snapped.append(b.emit("select", b.emit("gt", p, Const(1.0), hint="f"), keep, p,
+                                  hint="p"))
+        members.append(snapped)
+    mean = [b.emit("div", b.emit("sum", Const(0.0), *(probs[j] for probs in members)),
+                   Const(float(cal.members)), hint="p") for j in range(n_classes)]
+    top, best = mean[0], Const(0)
+    for k in range(1, n_classes):
+        higher = b.emit("gt", mean[k], top)
+        top = b.emit("select", higher, mean[k], top)
+        best = b.emit("select", higher, Const(k), best, hint="k")
+    return [*mean, best]
+
+
+def _numpy_row_sum(b: _Builder, xs: list):
+    """numpy's sum of a row of reals (np.sum(a, axis=1) on a C-ordered array): 0.0 plus
+    its pairwise sum of the row (`_pairwise_sum`)."""
+    if len(xs) < 8:  # ((0.0 + x0) + x1) + ...: the outer 0.0 + changes nothing
+        return b.emit("sum", Const(0.0), *xs)
+    return b.emit("add", Const(0.0), _pairwise_sum(b, xs))
+
+
+def _pairwise_sum(b: _Builder, xs: list):
+    """numpy's pairwise_sum: below 8 values a left fold from 0.0; up to 128, eight running
+    sums combined in pairs, then the rest added in order; past 128, the two halves (the
+    first a multiple of 8) summed apart and added."""
+    n = len(xs)
+    if n < 8:
+        return b.emit("sum", Const(0.0), *xs)
+    if n > 128:
+        half = n // 2
+        half -= half % 8
+        return b.emit("add", _pairwise_sum(b, xs[:half]), _pairwise_sum(b, xs[half:]))
+    acc = list(xs[:8])
+    i = 8
+    while i < n - n % 8:
+        acc = [b.emit("add", acc[j], xs[i + j]) for j in range(8)]
+        i += 8
+    pair = [b.emit("add", acc[j], acc[j + 1]) for j in range(0, 8, 2)]
+    total = b.emit("add", b.emit("add", pair[0], pair[1]), b.emit("add", pair[2], pair[3]))
+    return b.emit("sum", total, *xs[i:]) if i < n else total
+
+
+def _lower_calibrator(b: _Builder, plan: Plan, f, cal):
+    """One class's calibrated probability from its decision value f. Sigmoid: scikit-
+    learn's expit(-(a f + b)) (the stable sigmoid of the program, its exp guarded).
+    Isotonic: scikit-learn clips f to [t_0, t_n], then numpy's interp gives, on the
+    segment t_j <= f < t_j+1 (found by comparisons, as `_select_by_bin`), slope_j * (f -
+    t_j) + v_j with slope_j = (v_j+1 - v_j) / (t_j+1 - t_j) (the model's constants, one
+    IEEE division each), and v_n at f = t_n exactly; at f = t_j the product is 0 and the
+    value v_j, which is interp's own special case."""
+    if cal.method == "sigmoid":
+        z = b.emit("neg", b.emit("add", b.emit("mul", Const(cal.a), f), Const(cal.b)))
+        return _lower_logit(b, plan, z)[1]
+    xs, ys = cal.thresholds, cal.values
+    if len(xs) == 1:  # scikit-learn's constant prediction
+        return Const(ys[0])
+    c = b.emit("min", b.emit("max", f, Const(xs[0])), Const(xs[-1]), hint="v")
+    flags = [b.emit("ge", c, Const(x), hint="f") for x in xs[1:-1]]
+
+    def by_segment(values):
+        v = Const(values[0])
+        for flag, value in zip(flags, values[1:]):
+            v = b.emit("select", flag, Const(value), v, hint="v")
+        return v
+
+    slopes = cal.slopes()
+    inner = b.emit("add", b.emit("mul", by_segment(slopes), b.emit("sub", c, by_segment(xs))),
+                   by_segment(ys), hint="v")
+    return b.emit("select", b.emit("ge", c, Const(xs[-1]), hint="f"), Const(ys[-1]), inner,
+                  hint="p")
 
 
 # expm1(r) = r + r^2/2! + ... on |r| <= ln2/2 (+ rounding): 16 terms, the first one left

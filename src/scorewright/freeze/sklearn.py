@@ -20,7 +20,7 @@ import numpy as np
 
 from ..errors import ScorewrightError
 from ..model import (BINS, SPLINE, SPLINE_DEGREES, TRANSFORM_DOMAIN, TRANSFORM_OPS,
-                     CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
+                     Calibration, Calibrator, CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
                      ScalingStep, in_domain, outside_text)
 from .provenance import provenance
 
@@ -808,21 +808,18 @@ def _calibrated_estimator(est):
 
 
 def _calibrated_head(est, path) -> Head:
-    """CalibratedClassifierCV(method='sigmoid', ensemble=False) over a linear classifier:
-    per class, expit(-(a f + b)) of its decision function f = w.x + c, which is the
-    sigmoid of the margin (-a w).x - (a c + b); binary: that sigmoid (the logit link),
-    multiclass: the sigmoids divided by their sum (the ovr_logit link)."""
+    """CalibratedClassifierCV over a linear classifier. method='sigmoid' with
+    ensemble=False: per class, expit(-(a f + b)) of its decision function f = w.x + c,
+    which is the sigmoid of the margin (-a w).x - (a c + b); binary: that sigmoid (the
+    logit link), multiclass: the sigmoids divided by their sum (the ovr_logit link).
+    method='isotonic', or ensemble=True (one fitted model and calibrators per fold): a
+    calibrated head (`_calibrated_members`)."""
     from sklearn.pipeline import Pipeline
 
     fitted = est.calibrated_classifiers_
-    if len(fitted) != 1:
-        raise Unsupported(f"CalibratedClassifierCV(ensemble=True) at {path} averages "
-                          f"{len(fitted)} folds' probabilities, which is not one margin per "
-                          "class through a link; refit it with ensemble=False")
     cc = fitted[0]
-    if cc.method != "sigmoid":
-        raise Unsupported(f"CalibratedClassifierCV(method={cc.method!r}) at {path}: only "
-                          "method='sigmoid' is frozen")
+    if len(fitted) > 1 or cc.method != "sigmoid":
+        return _calibrated_members(est, path)
     inner = cc.estimator[-1] if isinstance(cc.estimator, Pipeline) else cc.estimator
     where = f"{path} > estimator"
     classes, intercepts, rows = _decision_function(inner, where)
@@ -837,6 +834,64 @@ def _calibrated_head(est, path) -> Head:
         return Head("binary", "logit", classes, (margins[0][0],), (margins[0][1],), 0.0)
     return Head("multiclass", "ovr_logit", classes, tuple(m[0] for m in margins),
                 tuple(m[1] for m in margins), None)
+
+
+def _calibrated_members(est, path) -> Head:
+    """The calibrated head: each fold's linear model (its decision values, one per class;
+    binary: one) and calibrators (sigmoid: a, b; isotonic: its thresholds and values),
+    member by member, as CalibratedClassifierCV.predict_proba averages them."""
+    from sklearn.isotonic import IsotonicRegression
+    from sklearn.pipeline import Pipeline
+
+    fitted = est.calibrated_classifiers_
+    classes = tuple(_class_label(c, path) for c in est.classes_)
+    intercepts, rows, calibrators = [], [], []
+    for m, cc in enumerate(fitted):
+        where = f"{path} > calibrated classifier {m}"
+        if cc.method not in ("sigmoid", "isotonic"):
+            raise Unsupported(f"CalibratedClassifierCV(method={cc.method!r}) at {path}: only "
+                              "method='sigmoid' and 'isotonic' are frozen")
+        if isinstance(cc.estimator, Pipeline) and len(fitted) > 1:
+            raise Unsupported(f"CalibratedClassifierCV(ensemble=True) at {path} calibrates a "
+                              "Pipeline, whose transforms each fold fits anew; put the "
+                              "transforms in a Pipeline before the CalibratedClassifierCV, or "
+                              "refit it with ensemble=False")
+        inner = cc.estimator[-1] if isinstance(cc.estimator, Pipeline) else cc.estimator
+        own, b0, w = _decision_function(inner, f"{where} > estimator")
+        if own != classes:
+            raise Unsupported(f"CalibratedClassifierCV at {path}: the classes of fold {m}'s "
+                              "estimator differ from the calibrated classifier's (a fold "
+                              "without some class); refit with folds that hold every class")
+        if len(cc.calibrators) != len(w):
+            raise Unsupported(f"{where}: {len(cc.calibrators)} calibrators for {len(w)} "
+                              "decision values")
+        for k, cal in enumerate(cc.calibrators):
+            if type(cal) is IsotonicRegression:
+                calibrators.append(_isotonic(cal, f"{where} > calibrator {k}"))
+            else:
+                calibrators.append(Calibrator("sigmoid", float(cal.a_), float(cal.b_)))
+        intercepts += b0
+        rows += w
+    task = "binary" if len(classes) == 2 else "multiclass"
+    return Head(task, "calibrated", classes, tuple(intercepts), tuple(rows), None,
+                Calibration(len(fitted), tuple(calibrators)))
+
+
+def _isotonic(cal, where) -> Calibrator:
+    """A fitted IsotonicRegression as CalibratedClassifierCV leaves it: out_of_bounds=
+    'clip', its thresholds increasing, in double."""
+    xs = np.asarray(cal.X_thresholds_)
+    ys = np.asarray(cal.y_thresholds_)
+    if cal.out_of_bounds != "clip" or xs.dtype != np.float64 or ys.dtype != np.float64 or \
+            float(cal.X_min_) != float(xs[0]) or float(cal.X_max_) != float(xs[-1]):
+        raise Unsupported(f"{where}: only an IsotonicRegression with out_of_bounds='clip' "
+                          "over doubles is frozen")
+    out = Calibrator("isotonic", thresholds=tuple(map(float, xs)), values=tuple(map(float, ys)))
+    if not all(a < b for a, b in zip(out.thresholds, out.thresholds[1:])) or \
+            not all(map(math.isfinite, out.values + out.slopes())):
+        raise Unsupported(f"{where}: its thresholds are not increasing, or two are too close "
+                          "for a finite slope")
+    return out
 
 
 def _decision_function(est, path):
@@ -925,7 +980,7 @@ def _linear_head(est, path) -> Head:
         if kind is SGDClassifier and est.loss != "log_loss":
             raise Unsupported(f"SGDClassifier(loss={est.loss!r}) at {path}: only loss='log_loss' "
                               "gives probabilities; wrap it in CalibratedClassifierCV("
-                              "method='sigmoid', ensemble=False), which is frozen")
+                              "method='sigmoid' or 'isotonic'), which is frozen")
         classes = tuple(_class_label(c, path) for c in est.classes_)
         coef = np.asarray(est.coef_, dtype=np.float64)
         intercept = np.atleast_1d(np.asarray(est.intercept_, dtype=np.float64))
@@ -965,8 +1020,8 @@ def _linear_head(est, path) -> Head:
                          "PassiveAggressiveClassifier"):
         raise Unsupported(f"{kind.__name__} at {path} gives a decision function but no "
                           "probabilities, and every frozen classifier outputs probabilities; "
-                          "wrap it in CalibratedClassifierCV(method='sigmoid', "
-                          "ensemble=False), which is frozen")
+                          "wrap it in CalibratedClassifierCV(method='sigmoid' or "
+                          "'isotonic'), which is frozen")
     raise Unsupported(f"unsupported estimator {kind.__name__} at {path}")
 
 
