@@ -490,9 +490,12 @@ def lookup_terms(plan: Plan) -> list[tuple[int, Term]]:
 def output_columns(plan: Plan) -> tuple[str, ...]:
     """The output columns every tabular target appends, in order."""
     if plan.task == "binary":
-        return ("margin", "probability", "predicted_class")
+        # a calibrated head of several members: each member's decision value
+        margins = ("margin",) if plan.n_outputs == 1 else tuple(
+            f"margin_{j}" for j in range(plan.n_outputs))
+        return margins + ("probability", "predicted_class")
     if plan.task == "multiclass":
-        k = plan.n_outputs
-        return (tuple(f"margin_{j}" for j in range(k)) + tuple(f"probability_{j}" for j in range(k))
+        return (tuple(f"margin_{j}" for j in range(plan.n_outputs))
+                + tuple(f"probability_{j}" for j in range(len(plan.classes)))
                 + ("predicted_class",))
     return ("margin", "predicted_value")

@@ -646,7 +646,9 @@ def _lower_calibrated(b: _Builder, plan: Plan, margins: list) -> list:
     each where the sum is 0; then a value in (1, CALIBRATED_SNAP] is 1.0. The mean over
     the members is 0.0 plus each member's probability in member order, divided by the
     number of members (sklearn's mean_proba += proba; mean_proba /= n); the class is
-    the first of the largest mean (numpy's argmax). A NaN margin (which the input guards
+    the first of the largest mean (numpy's argmax). A binary head outputs p1 and 1 - p1,
+    as every binary link (scikit-learn's mean of the members' p0 may differ from it in
+    the last bit); its class is decided on scikit-learn's two means. A NaN margin (which the input guards
     rule out) would give NaN probabilities, as in scikit-learn, and class 0."""
     cal = plan.calibration
     n_classes = len(plan.classes)
@@ -677,6 +679,8 @@ def _lower_calibrated(b: _Builder, plan: Plan, margins: list) -> list:
         higher = b.emit("gt", mean[k], top)
         top = b.emit("select", higher, mean[k], top)
         best = b.emit("select", higher, Const(k), best, hint="k")
+    if plan.task == "binary":  # as for every binary link, the output p0 is 1 - p1
+        return [b.emit("sub", Const(1.0), mean[1], hint="p"), mean[1], best]
     return [*mean, best]
 
 

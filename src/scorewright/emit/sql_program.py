@@ -101,13 +101,15 @@ class Query:
 
 def sql_outputs(plan: Plan) -> list[tuple[str, str]]:
     """(output column of the query, the program output it shows)."""
-    if plan.task == "binary":
+    if plan.task == "binary" and plan.n_outputs == 1:
         return [("margin", "margin_0"), ("probability", "probability_1"),
                 ("predicted_class", "class_index")]
+    if plan.task == "binary":  # a calibrated head of several members
+        return ([(f"margin_{j}", f"margin_{j}") for j in range(plan.n_outputs)]
+                + [("probability", "probability_1"), ("predicted_class", "class_index")])
     if plan.task == "multiclass":
-        k = plan.n_outputs
-        return ([(f"margin_{j}", f"margin_{j}") for j in range(k)]
-                + [(f"probability_{j}", f"probability_{j}") for j in range(k)]
+        return ([(f"margin_{j}", f"margin_{j}") for j in range(plan.n_outputs)]
+                + [(f"probability_{j}", f"probability_{j}") for j in range(len(plan.classes))]
                 + [("predicted_class", "class_index")])
     return [("margin", "margin_0"), ("predicted_value", "value")]
 

@@ -143,7 +143,11 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
 
 
 def _near_decision(expected: dict, tol: Tolerance) -> np.ndarray:
-    """Rows whose decision is within the target's stated margin tolerance of flipping."""
+    """Rows whose decision is within the target's stated margin tolerance of flipping (a
+    calibrated head decides on its probabilities: within their stated tolerance)."""
+    if expected.get("link") == "calibrated":
+        return _near_tie(expected["probabilities"], tol.probability_abs,
+                         tol.probability_ulps, tol.precision)
     margins = expected["margins"]
     slack = np.maximum(tol.margin_abs, 0.0)
     if tol.margin_ulps:
@@ -155,4 +159,15 @@ def _near_decision(expected: dict, tol: Tolerance) -> np.ndarray:
         cut = expected.get("cut", 0.0)
         return np.abs(margins[:, 0] - cut) <= slack
     top2 = np.sort(margins, axis=1)[:, -2:]
+    return (top2[:, 1] - top2[:, 0]) <= 2 * slack
+
+
+def _near_tie(values: np.ndarray, abs_ok: float, ulps_ok: float, precision: str) -> np.ndarray:
+    """Rows whose two largest values are within twice the stated tolerance of a tie."""
+    slack = np.full(values.shape[0], max(abs_ok, 0.0))
+    if ulps_ok:
+        dtype = np.float32 if precision == "float" else np.float64
+        spacing = np.spacing(np.abs(values).astype(dtype)).astype(np.float64)
+        slack = np.maximum(slack, ulps_ok * spacing.max(axis=1))
+    top2 = np.sort(values, axis=1)[:, -2:]
     return (top2[:, 1] - top2[:, 0]) <= 2 * slack

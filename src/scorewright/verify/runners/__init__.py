@@ -64,7 +64,7 @@ def outputs_from_table(plan, table, runtime: str, number=float, class_of=None) -
         m = np.array([number(r[0]) for r in table]).reshape(n, 1)
         return RunOutput(runtime, m, value=np.array([number(r[1]) for r in table]))
     class_of = class_of or class_by_label(plan)
-    width = 1 if plan.task == "binary" else k
+    width = 1 if plan.task == "binary" else len(plan.classes)
     m = np.array([[number(x) for x in r[:k]] for r in table]).reshape(n, k)
     p = np.array([[number(x) for x in r[k:k + width]] for r in table]).reshape(n, width)
     if plan.task == "binary":
