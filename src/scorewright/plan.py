@@ -259,6 +259,12 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
                                 * pair[1]) for k in range(n_out))
                 if any(v != 0.0 for t in tables for v in t):
                     terms.append(Term(i, "missing", tables=tables))
+    if prec.name == "float" and head.calibration is not None and any(
+            c.method == "isotonic" for c in head.calibration.calibrators):
+        # measured: a float margin's error times an isotonic slope passes the float
+        # targets' stated probability tolerance
+        raise ScorewrightError("an isotonic calibrator is not scored in single precision; "
+                               "use a double target")
     term_of = {t.input: t for t in terms if t.kind == "numeric"}
     budgets = _term_budgets(terms, head.intercepts, prec)
     built = []

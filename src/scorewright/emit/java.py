@@ -183,6 +183,7 @@ def context(plan: Plan, name: str) -> dict:
         "output_columns": ", ".join(string(c) for c in output_columns(plan)),
         "outputs": ", ".join(string(o) for o in outputs),
         "n_outputs": plan.n_outputs,
+        "n_classes": plan.n_probabilities,
         "n_program_outputs": len(outputs),
         "levels": levels,
         "tables": [(t.split(".")[0], _array([literal(x) for x in values], "a level table"))

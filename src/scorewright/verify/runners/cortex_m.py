@@ -80,6 +80,11 @@ def measured_calls(plan: Plan, prefix: str, decision_only: bool) -> list[tuple[s
                  (f"{P}_probabilities", f"{P}_probabilities(&in, p)"),
                  (f"{P}_predict", f"c = {P}_predict(&in)")]
         batch = f"{P}_predict_batch(row, 1, b)"
+    elif plan.task == "binary" and plan.n_outputs > 1:  # a calibrated head's members
+        calls = [(f"{P}_margins", f"{P}_margins(&in, m)"),
+                 (f"{P}_probability", f"v = {P}_probability(&in)"),
+                 (f"{P}_predict", f"c = {P}_predict(&in)")]
+        batch = f"{P}_predict_batch(row, 1, &b)"
     elif plan.task == "binary":
         calls = [(f"{P}_margin", f"m = {P}_margin(&in)"),
                  (f"{P}_probability", f"v = {P}_probability(&in)"),
