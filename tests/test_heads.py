@@ -233,13 +233,13 @@ def test_sigmoid_calibration_over_a_linear_classifier(inner, data):
 
 
 @pytest.mark.parametrize("make, words", [
-    (lambda: make_pipeline(StandardScaler(), _calibrated(ensemble=True)),
-     "refit it with ensemble=False"),
-    (lambda: make_pipeline(StandardScaler(), _calibrated(method="isotonic")),
-     "only method='sigmoid'"),
+    (lambda: _calibrated(estimator=make_pipeline(StandardScaler(), _svc()), ensemble=True,
+                         cv=3), "whose transforms each fold fits anew"),
+    (lambda: make_pipeline(StandardScaler(), _calibrated(method="temperature")),
+     "only method='sigmoid' and 'isotonic'"),
     (lambda: make_pipeline(StandardScaler(), _svc()), "wrap it in CalibratedClassifierCV"),
     (lambda: make_pipeline(StandardScaler(), _sgd_hinge()), "wrap it in CalibratedClassifierCV"),
-], ids=["ensemble", "isotonic", "linear-svc", "sgd-hinge"])
+], ids=["ensemble-over-a-pipeline", "temperature", "linear-svc", "sgd-hinge"])
 def test_what_is_not_frozen_is_refused_in_one_line(make, words):
     from scorewright.errors import ScorewrightError
 
@@ -256,7 +256,7 @@ def _calibrated(**kw):
     from sklearn.calibration import CalibratedClassifierCV
     from sklearn.svm import LinearSVC
 
-    return CalibratedClassifierCV(LinearSVC(), **{"ensemble": False, **kw})
+    return CalibratedClassifierCV(**{"estimator": LinearSVC(), "ensemble": False, **kw})
 
 
 def _svc():

@@ -344,6 +344,8 @@ def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> N
     scored = scored & ~guarded
     result.compared += int(scored.sum())
     bad = scored & _differs(model, source, ref, work)
+    if classifier and not bad.any():
+        _check_decisions(estimator, model, frame, records, ref, scored, what)
     for i in np.flatnonzero(bad):
         cols = _none_spelling(estimator, model, frame.iloc[[int(i)]], ref[i], work[i],
                               classifier)
@@ -352,6 +354,48 @@ def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> N
                                                    source[i], ref[i]))
         for c in cols:
             result.none_rules.setdefault(c, _missing_rule(model.feature(c), model))
+
+
+def _check_decisions(estimator, model, frame, records, ref, scored, what) -> None:
+    """The source classifier's predict against the frozen model's class, exactly, on rows
+    both sides score where neither side's two largest probabilities are within twice
+    TOLERANCE of a tie (there the probabilities' agreement cannot decide the class)."""
+    classes = getattr(estimator, "classes_", None)
+    if classes is None or not hasattr(estimator, "predict"):
+        return
+    from ..plan import build_plan
+    from ..reference import encode_rows, score_matrix
+
+    rows = np.flatnonzero(scored)
+    if not len(rows):
+        return
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            part = frame.iloc[rows]
+            x = part if getattr(estimator, "feature_names_in_", None) is not None \
+                else part.to_numpy()
+            predicted = list(estimator.predict(x))
+    except Exception:  # a row predict refuses was scored by predict_proba: leave it
+        return
+    plan = build_plan(model)
+    index = score_matrix(plan, encode_rows(plan, [records[i] for i in rows]))["class_index"]
+    source_p = _source(estimator, frame.iloc[rows], True)
+    for j, i in enumerate(rows):
+        if _near_tie(ref[i]) or _near_tie(source_p[j]):
+            continue
+        mine = model.head.classes[int(index[j])]
+        if str(mine) != str(_plain(predicted[j])):
+            shown = ", ".join(f"{k}={v!r}" for k, v in list(records[i].items())[:8])
+            raise FreezeMismatch(
+                "self-check failed: the frozen model does not predict the source estimator's "
+                f"class at {what} {int(i) + 1} ({shown}{', ...' if len(records[i]) > 8 else ''})"
+                f": source {_plain(predicted[j])!r}, frozen {mine!r}; nothing was written")
+
+
+def _near_tie(probabilities) -> bool:
+    top = np.sort(np.asarray(probabilities, dtype=np.float64))[-2:]
+    return len(top) == 2 and top[1] - top[0] <= 2 * TOLERANCE
 
 
 def _none_spelling(estimator, model, row_frame, ref_row, work, classifier) -> list[str]:

@@ -126,16 +126,95 @@ def edge_rows(plan: Plan) -> list[tuple[str, dict]]:
             row[inp.name] = value
             out.append((f"{inp.name!r} = {value!r}", row))
     out.extend(_margin_rows(plan, base))
+    out.extend(_threshold_rows(plan, base))
     return out
 
 
-def _lever(plan: Plan):
-    """The numeric input that moves margin 0 the most per design unit (no clip)."""
+def _threshold_rows(plan: Plan, base: dict) -> list[tuple[str, dict]]:
+    """A calibrated head's isotonic thresholds: per decision value (margin k) and each of
+    its thresholds t, rows whose margin is t and one double either side as nearly as the
+    numeric input that moves margin k most can put it (the last value of that input whose
+    margin is at most the target, and the next one), and margins beyond both ends."""
+    import numpy as np
+
+    from ..program import Program, prune
+    from ..reference import encode_rows, program_of, run_matrix
+
+    cal = plan.calibration
+    if cal is None:
+        return []
+    goals = []  # (margin k, lever input, target)
+    for k, c in enumerate(cal.calibrators):
+        lever = _lever(plan, k)
+        if c.method != "isotonic" or lever is None:
+            continue
+        xs = c.thresholds
+        span = xs[-1] - xs[0] + 1.0
+        for t in xs:
+            goals += [(k, lever, v) for v in (math.nextafter(t, -math.inf), t,
+                                              math.nextafter(t, math.inf))]
+        goals += [(k, lever, xs[0] - span), (k, lever, xs[-1] + span)]
+    if not goals:
+        return []
+    program = program_of(plan)
+    names = sorted({f"margin_{k}" for k, _, _ in goals})
+    margins_only = Program(plan, prune(program, names), tuple(names))
+    row = encode_rows(plan, [base])[0]
+    n = len(goals)
+    cols = np.array([lever.index for _, lever, _ in goals])
+    which = [names.index(f"margin_{k}") for k, _, _ in goals]
+
+    def margins_at(xs):
+        matrix = np.tile(row, (n, 1))
+        matrix[np.arange(n), cols] = xs
+        out = run_matrix(margins_only, matrix)
+        return np.array([out[names[w]][i] for i, w in enumerate(which)])
+
+    bound = np.array([lever.bound for _, lever, _ in goals])
+    target = np.array([t for _, _, t in goals])
+    up = margins_at(bound) >= margins_at(-bound)  # the margin increases with the input
+    sign = np.where(up, 1.0, -1.0)
+    a, b = _to_ordered(-bound), _to_ordered(bound)
+    feasible = sign * margins_at(-bound) <= sign * target
+    for _ in range(66):
+        mid = (a >> 1) + (b >> 1) + (a & b & 1)  # the floor of the mean, without overflow
+        low = sign * margins_at(_from_ordered_array(mid)) <= sign * target
+        a, b = np.where(low, mid, a), np.where(low, b, mid)
+    out, seen = [], set()
+    for i in np.flatnonzero(feasible):
+        k, lever, t = goals[i]
+        for x in _from_ordered_array(np.array([a[i], b[i]])):
+            x = float(x)
+            if -lever.bound <= x <= lever.bound and (lever.index, x) not in seen:
+                seen.add((lever.index, x))
+                r = dict(base)
+                r[lever.name] = x
+                out.append((f"margin {k} near isotonic threshold {t!r} ({lever.name!r} = "
+                            f"{x!r})", r))
+    return out
+
+
+def _to_ordered(x):
+    import numpy as np
+
+    i = np.asarray(x, dtype=np.float64).view(np.int64)
+    return np.where(i >= 0, i, np.int64(-(1 << 63)) - i)
+
+
+def _from_ordered_array(i):
+    import numpy as np
+
+    i = np.asarray(i, dtype=np.int64)
+    return np.where(i >= 0, i, np.int64(-(1 << 63)) - i).view(np.float64)
+
+
+def _lever(plan: Plan, k: int = 0):
+    """The numeric input that moves margin k the most per design unit (no clip)."""
     best, best_w = None, 0.0
     for term in plan.terms:
         inp = plan.inputs[term.input]
-        if term.kind == "numeric" and inp.clip is None and abs(term.weights[0]) > best_w:
-            best, best_w = inp, abs(term.weights[0])
+        if term.kind == "numeric" and inp.clip is None and abs(term.weights[k]) > best_w:
+            best, best_w = inp, abs(term.weights[k])
     return best
 
 
