@@ -385,12 +385,20 @@ def _check_decisions(estimator, model, frame, records, ref, scored, what) -> Non
         if _near_tie(ref[i]) or _near_tie(source_p[j]):
             continue
         mine = model.head.classes[int(index[j])]
-        if str(mine) != str(_plain(predicted[j])):
+        if not _same_label(mine, _plain(predicted[j])):
             shown = ", ".join(f"{k}={v!r}" for k, v in list(records[i].items())[:8])
             raise FreezeMismatch(
                 "self-check failed: the frozen model does not predict the source estimator's "
                 f"class at {what} {int(i) + 1} ({shown}{', ...' if len(records[i]) > 8 else ''})"
                 f": source {_plain(predicted[j])!r}, frozen {mine!r}; nothing was written")
+
+
+def _same_label(frozen, source) -> bool:
+    """A frozen class label and the source's: numbers by value (1 and 1.0, True), text as
+    text."""
+    if isinstance(source, (bool, int, float)) and isinstance(frozen, (int, float)):
+        return float(frozen) == float(source)
+    return str(frozen) == str(source)
 
 
 def _near_tie(probabilities) -> bool:
