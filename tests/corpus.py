@@ -1,9 +1,9 @@
 """A practitioner corpus: pipelines of the kinds credit-risk, insurance-pricing, marketing and
 equipment teams fit, on invented data of four scenarios (no real people or companies).
 
-Each entry is (name, fitted estimator, the frame it was fitted on). Sixteen pipeline
+Each entry is (name, fitted estimator, the frame it was fitted on). Seventeen pipeline
 shapes (transforms, bins, splines, interactions, missing indicators, encoders, every linear
-head) times the four scenarios give 64 pipelines; `build(name)` is cached per process.
+head) times the four scenarios give 68 pipelines; `build(name)` is cached per process.
 """
 
 from __future__ import annotations
@@ -45,7 +45,8 @@ def _scenario(kind: str, n: int = 900):
 
 def _shapes(amount: str):
     from sklearn import compose, discriminant_analysis as da, impute, linear_model as lm
-    from sklearn import pipeline as pl, preprocessing as pp
+    from sklearn import pipeline as pl, preprocessing as pp, svm
+    from sklearn.calibration import CalibratedClassifierCV
     from sklearn.model_selection import KFold
 
     def cols(*parts, remainder="drop"):
@@ -116,6 +117,9 @@ def _shapes(amount: str):
                                              extrapolation="constant",
                                              handle_missing="zeros"), ["events"]),
                  num_logged, cats), lm.LogisticRegression(max_iter=3000))),
+        "isotonic_folds_svc": ("three", lambda: pl.make_pipeline(
+            cols(num_logged, num_plain, cats), CalibratedClassifierCV(
+                svm.LinearSVC(), method="isotonic", cv=3))),
         "huber_log_target": ("positive", lambda: pl.make_pipeline(
             cols(num_logged, num_plain, cats), compose.TransformedTargetRegressor(
                 lm.HuberRegressor(max_iter=2000), func=np.log, inverse_func=np.exp))),
