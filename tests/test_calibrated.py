@@ -289,3 +289,12 @@ def test_calibrated_ensembles_verify_on_every_family(tmp_path, postgres_dsn, met
     if method == "sigmoid":
         targets += ["c-float", "onnx-float"]
     _build(tmp_path, model, x, targets, {"sql": {"dsn": postgres_dsn}})
+
+
+def test_show_describes_each_fold_and_its_calibrator():
+    from scorewright.describe import describe_model
+
+    model, _ = freeze_checked(_identity_calibrated("isotonic", 2, True, "LinearSVC"))
+    text = describe_model(model)
+    assert "calibrated 3 fold(s), isotonic" in text and "cut " not in text
+    assert text.count("isotonic calibrator of") == 3

@@ -36,6 +36,14 @@ def _odds(x: float) -> str:
         return "inf"
 
 
+def _calibrator_text(cal) -> str:
+    if cal.method == "sigmoid":
+        return f"sigmoid calibrator expit(-({cal.a!r} f + {cal.b!r}))"
+    return (f"isotonic calibrator of {len(cal.thresholds)} thresholds from "
+            f"{cal.thresholds[0]!r} ({cal.values[0]!r}) to {cal.thresholds[-1]!r} "
+            f"({cal.values[-1]!r})")
+
+
 def describe_model(model: FrozenModel) -> str:
     head = model.head
     plan = build_plan(model)
@@ -43,7 +51,12 @@ def describe_model(model: FrozenModel) -> str:
            f"task      {head.task} (link {head.link})"]
     if head.classes is not None:
         out.append("classes   " + ", ".join(repr(c) for c in head.classes))
-    if head.task == "binary":
+    if head.calibration is not None:
+        methods = sorted({c.method for c in head.calibration.calibrators})
+        out.append(f"calibrated {head.calibration.members} fold(s), {', '.join(methods)}: each "
+                   "decision value through its calibrator, each fold's probabilities "
+                   "normalised, averaged over the folds; the class of the largest average")
+    elif head.task == "binary":
         p = 1.0 / (1.0 + math.exp(-head.cut)) if abs(head.cut) < 700 else float(head.cut > 0)
         out.append(f"cut       margin > {head.cut!r} predicts {head.classes[1]!r} "
                    f"(probability > {p:.6g})")
@@ -80,8 +93,14 @@ def describe_model(model: FrozenModel) -> str:
     out.append("")
     labels = ([repr(c) for c in head.classes] if head.task == "multiclass" else [None])
     logit = head.link == "logit"
-    for k, label in enumerate(labels):
-        title = "coefficients" if label is None else f"coefficients for class {label}"
+    titles = ["coefficients" if label is None else f"coefficients for class {label}"
+              for label in labels]
+    if head.calibration is not None:
+        titles = [f"decision value of fold {m}" + ("" if label is None else
+                                                   f" for class {label}") + ": "
+                  + _calibrator_text(head.calibration.calibrators[m * len(labels) + k])
+                  for m in range(head.calibration.members) for k, label in enumerate(labels)]
+    for k, title in enumerate(titles):
         out.append(title)
         cols = "  {:<40} {:>24} {:>24}".format("design column", "per design unit",
                                                "per original unit")
