@@ -648,8 +648,10 @@ def _lower_calibrated(b: _Builder, plan: Plan, margins: list) -> list:
     number of members (sklearn's mean_proba += proba; mean_proba /= n); the class is
     the first of the largest mean (numpy's argmax). A binary head outputs p1 and 1 - p1,
     as every binary link (scikit-learn's mean of the members' p0 may differ from it in
-    the last bit); its class is decided on scikit-learn's two means. A NaN margin (which the input guards
-    rule out) would give NaN probabilities, as in scikit-learn, and class 0."""
+    the last bit); its class is decided on scikit-learn's two means. A NaN margin (which
+    the input guards rule out) would give NaN probabilities, as in scikit-learn, and
+    class 0; an infinite one an isotonic calibrator's value at that end, as numpy's clip
+    and interp give."""
     cal = plan.calibration
     n_classes = len(plan.classes)
     per = 1 if plan.task == "binary" else n_classes

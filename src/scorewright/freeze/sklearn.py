@@ -20,8 +20,8 @@ import numpy as np
 
 from ..errors import ScorewrightError
 from ..model import (BINS, SPLINE, SPLINE_DEGREES, TRANSFORM_DOMAIN, TRANSFORM_OPS,
-                     Calibration, Calibrator, CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
-                     ScalingStep, in_domain, outside_text)
+                     Calibration, Calibrator, CategoricalFeature, DesignColumn, FrozenModel,
+                     Head, NumericFeature, ScalingStep, in_domain, outside_text)
 from .provenance import provenance
 
 
