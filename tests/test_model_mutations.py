@@ -104,6 +104,7 @@ def corpus():
     yield "a JSON array", "[]", "object"
     yield from _version_2_corpus()
     yield from _version_3_corpus()
+    yield from _version_4_corpus()
 
 
 def _version_2_corpus():
@@ -135,6 +136,25 @@ def _version_3_corpus():
     good = json.loads(scorewright.freeze(est, check_rows=x).to_json())
     assert good["format_version"] == 3
     yield from _removed_and_mistyped(good, "format 3")
+
+
+def _version_4_corpus():
+    """Every key removed and every value of the wrong type in format-4 models (calibrated
+    heads of two folds, isotonic and sigmoid): each refused."""
+    import numpy as np
+    from sklearn.calibration import CalibratedClassifierCV
+    from sklearn.svm import LinearSVC
+
+    import scorewright
+
+    rng = np.random.default_rng(7)
+    x = rng.normal(size=(60, 1))
+    y = (x[:, 0] + rng.logistic(size=60) > 0).astype(int)
+    for method in ("isotonic", "sigmoid"):
+        est = CalibratedClassifierCV(LinearSVC(), method=method, cv=2).fit(x, y)
+        good = json.loads(scorewright.freeze(est).to_json())
+        assert good["format_version"] == 4
+        yield from _removed_and_mistyped(good, f"format 4 ({method})")
 
 
 def _removed_and_mistyped(good: dict, label: str):
