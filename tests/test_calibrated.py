@@ -298,3 +298,20 @@ def test_show_describes_each_fold_and_its_calibrator():
     text = describe_model(model)
     assert "calibrated 3 fold(s), isotonic" in text and "cut " not in text
     assert text.count("isotonic calibrator of") == 3
+
+
+@pytest.mark.slow
+def test_a_calibrated_head_of_many_thresholds_verifies_on_every_family(tmp_path, postgres_dsn):
+    """Five folds of three classes, about 70 isotonic thresholds each (a thousand in all):
+    the selections are a balanced tree (SQLite's parser nests about 100 levels) and the
+    Java link is cut into methods (64 KB of bytecode a method)."""
+    from sklearn.datasets import make_classification
+
+    x, y = make_classification(n_samples=30000, n_features=8, n_informative=5, n_classes=3,
+                               random_state=0)
+    cc = _fit(CalibratedClassifierCV(LinearSVC(), method="isotonic", cv=5), x, y)
+    model, _ = freeze_checked(cc, check_rows=x[:2000])
+    assert sum(len(c.thresholds) for c in model.head.calibration.calibrators) > 900
+    _build(tmp_path, model, None, ["python", "c-double", "java", "onnx-double", "sql-sqlite",
+                                   "sql-duckdb", "sql-postgres", "sql-spark"],
+           {"sql": {"dsn": postgres_dsn}})

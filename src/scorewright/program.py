@@ -730,13 +730,18 @@ def _lower_calibrator(b: _Builder, plan: Plan, f, cal):
     if len(xs) == 1:  # scikit-learn's constant prediction
         return Const(ys[0])
     c = b.emit("min", b.emit("max", f, Const(xs[0])), Const(xs[-1]), hint="v")
-    flags = [b.emit("ge", c, Const(x), hint="f") for x in xs[1:-1]]
+    # flag j: c is at or past threshold j (segment j starts there), j = 1 .. n - 2
+    flags = {j: b.emit("ge", c, Const(xs[j]), hint="f") for j in range(1, len(xs) - 1)}
 
-    def by_segment(values):
-        v = Const(values[0])
-        for flag, value in zip(flags, values[1:]):
-            v = b.emit("select", flag, Const(value), v, hint="v")
-        return v
+    def by_segment(values, lo=0, hi=len(xs) - 1):
+        """values[j] of c's segment among segments lo .. hi - 1: a balanced tree of
+        selections on the flags (the thresholds increase, so it picks what a chain of
+        them would, log2(n) deep: SQLite's parser nests about 100 levels)."""
+        if hi - lo == 1:
+            return Const(values[lo])
+        mid = (lo + hi) // 2
+        return b.emit("select", flags[mid], by_segment(values, mid, hi),
+                      by_segment(values, lo, mid), hint="v")
 
     slopes = cal.slopes()
     inner = b.emit("add", b.emit("mul", by_segment(slopes), b.emit("sub", c, by_segment(xs))),

@@ -33,6 +33,9 @@ from .templating import render
 
 # Terms per part of the margins: far below 64 KB of bytecode and 65,535 constants.
 PART_TERMS = 64
+# Operations per method of a long link (about 20 bytes of bytecode each, measured on a
+# calibrated head's selections)
+LINK_PART_OPS = 1000
 # The most elements one array literal may hold: a class initializer spends about 8
 # bytes of bytecode per element and may hold 64 KB.
 MAX_ARRAY = 6000
@@ -165,7 +168,13 @@ def context(plan: Plan, name: str) -> dict:
         parts.append(lines)
     finish = [_accumulate(k, r.operand(b), started) for k, b in enumerate(split.intercepts)]
     margin_part = {op.dest for cone, _ in split.groups for op in cone} | set(rename)
-    rest = r.lines([op for op in split.rest if op.dest not in margin_part])
+    rest_ops = [op for op in split.rest if op.dest not in margin_part]
+    link_parts, slots = [], {}
+    if len(rest_ops) > LINK_PART_OPS:
+        link_parts, slots = _link_parts(r, rest_ops)
+        rest = []
+    else:
+        rest = r.lines(rest_ops)
     outputs = output_names(plan)
     levels = []
     for inp in plan.inputs:
@@ -192,11 +201,34 @@ def context(plan: Plan, name: str) -> dict:
         "part_terms": PART_TERMS,
         "finish": finish,
         "rest": rest,
+        "link_parts": link_parts,
+        "slots": slots,
         "results": [(j, r.outputs[o]) for j, o in enumerate(outputs)],
         "portable_exp": None if plan.exp_kind != "portable" else {
             "locals": portable_exp.c_locals(),
             "lines": portable_exp.c_lines("PortableExp.pow2")},
     }
+
+
+def _link_parts(r: Renderer, ops) -> tuple[list[list[str]], dict[str, int]]:
+    """A link too long for one method (a calibrated head of many isotonic thresholds):
+    each value is a slot of an array per type (lr: reals, lc: codes, lf: flags), so the
+    statements, in the program's order, can be cut into methods of LINK_PART_OPS."""
+    arrays = {"real": "lr", "code": "lc", "flag": "lf"}
+    count = dict.fromkeys(arrays, 0)
+    slot = {}
+    for op in ops:
+        slot[op.dest] = f"{arrays[op.type]}[{count[op.type]}]"
+        count[op.type] += 1
+    base = r.spelling
+    r.spelling = replace(base, assign=lambda name, type_, value: f"{name} = {value};",
+                         name=lambda name: slot.get(name) or base.name(name))
+    try:
+        parts = [r.lines(ops[i:i + LINK_PART_OPS]) for i in range(0, len(ops),
+                                                                   LINK_PART_OPS)]
+    finally:
+        r.spelling = base
+    return parts, {arrays[t]: max(1, n) for t, n in count.items()}
 
 
 def _accumulate(k: int, term: str, started: list[bool]) -> str:
