@@ -103,7 +103,7 @@ def test_batch_blocks_give_the_programs_bits(name, opt, exp, tmp_path):
 def test_the_block_fits_a_small_stack():
     """The block's tables (terms and margins) stay within c_batch.BLOCK_BYTES for every
     test model, in both precisions, however many classes."""
-    for name in sorted(models.BUILDERS):
+    for name in sorted(models.WALKED):
         model = models.build(name).model
         for precision, size in (("double", 8), ("float", 4)):
             program = lower(build_plan(model, precision))

@@ -678,7 +678,13 @@ def _lower_inverse(b: _Builder, plan: Plan, m):
     """1 / m (a Gamma model's inverse link: statsmodels' InversePower). A margin nearer
     zero than the smallest normal number, where 1 / m overflows or divides by zero, is
     taken as that number with the margin's sign (+0 and -0 as +): the value is then the
-    largest the link gives (about 4.5e307 in double), the same on every target."""
+    largest the link gives (about 4.5e307 in double), the same on every target. Single
+    precision is refused: near the pole a float margin's rounding (cancellation among its
+    terms) moves 1 / m without bound, so no stated tolerance could hold."""
+    if plan.precision.name == "float":
+        raise ScorewrightError("the inverse link (1 / margin) is not scored in single "
+                               "precision: near its pole the float margin's rounding moves "
+                               "the value without bound; use a double target")
     tiny = inverse_floor(plan)
     small = b.emit("gt", Const(tiny), b.emit("abs", m), hint="f")
     edge = b.emit("select", b.emit("ge", m, Const(0.0), hint="f"), Const(tiny), Const(-tiny))

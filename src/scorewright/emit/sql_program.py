@@ -276,7 +276,8 @@ class Renderer:
             reads_ = frozenset().union(*[leaves[a] if a in inline else {alias[a]}
                                          for a in names])
             dp = 1 + max([depth.get(a, 0) for a in names] + [0])
-            atomic = not any(a in inline for a in names)
+            # a guarded op is long: written out at each of its uses it multiplies
+            atomic = not any(a in inline for a in names) and op.dest not in self.risky
             if (op.attr and op.op == "sum") or dp > MAX_DEPTH or (
                     uses.get(op.dest, 0) > 1 and not atomic):
                 level = 1 + max([cols[a].level for a in reads_] + [-1])
