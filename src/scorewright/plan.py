@@ -152,10 +152,18 @@ class Plan:
     intercepts: tuple[float, ...]
     cut: float | None
     exp_kind: str = "libm"  # libm | portable
+    # the input that is the model's offset or exposure (format version 4), else None: the
+    # program then outputs a second margin, without its term, and the rate from it
+    offset: int | None = None
 
     @property
     def n_outputs(self) -> int:
         return len(self.intercepts)
+
+    @property
+    def n_margins(self) -> int:
+        """The margins the program sums: one per output, and the rate's (no offset)."""
+        return self.n_outputs + (self.offset is not None)
 
     @property
     def feature_names(self) -> tuple[str, ...]:
@@ -281,6 +289,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
         intercepts=head.intercepts,
         cut=head.cut,
         exp_kind=exp,
+        offset=next((i for i, f in enumerate(model.features)
+                     if getattr(f, "role", None) is not None), None),
     )
 
 
@@ -491,4 +501,6 @@ def output_columns(plan: Plan) -> tuple[str, ...]:
         k = plan.n_outputs
         return (tuple(f"margin_{j}" for j in range(k)) + tuple(f"probability_{j}" for j in range(k))
                 + ("predicted_class",))
+    if plan.offset is not None:
+        return ("margin", "predicted_value", "predicted_rate")
     return ("margin", "predicted_value")
