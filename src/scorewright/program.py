@@ -996,7 +996,9 @@ def _run_matrix(program: Program, matrix: np.ndarray):
         elif op.op == "read_code":
             value = _np_codes(matrix[:, op.attr], len(plan.inputs[op.attr].levels))
         elif op.op == "exp":
-            value = _EXP[plan.exp_kind](np.asarray(args[0], dtype=np.float64)).astype(np.float64)
+            # np.asarray: on a 0-d operand (a constant margin) frompyfunc gives a float
+            value = np.asarray(_EXP[plan.exp_kind](np.asarray(args[0], dtype=np.float64)),
+                               dtype=np.float64)
         elif op.op == "lookup":
             value = _np_lookup(args[0], op.attr)
         elif op.op == "output":

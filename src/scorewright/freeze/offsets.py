@@ -69,9 +69,9 @@ def factor(values, attr: str) -> np.ndarray:
 
 
 class RateSource:
-    """A scikit-learn regressor fitted on rates, as the self-check calls a source: the
-    expected count is its prediction times the exposure (or exp of the offset) of each
-    row, under the stated rule."""
+    """A scikit-learn regressor fitted on rates, as the self-check calls a source: per
+    row, the expected count, its prediction times the exposure (or exp of the offset)
+    under the stated rule, and the rate, its prediction itself (`estimator.predict`)."""
 
     def __init__(self, estimator, attr: str, column: str, names):
         self.estimator = estimator
@@ -82,4 +82,4 @@ class RateSource:
         rate = np.asarray(self.estimator.predict(frame.drop(columns=[self.column])),
                           dtype=np.float64)
         values = frame[self.column].to_numpy(dtype=np.float64, na_value=np.nan)
-        return rate * factor(values, self.attr)
+        return np.column_stack([rate * factor(values, self.attr), rate])

@@ -633,6 +633,8 @@ class ResultsSource:
         self.results = results
         inputs = model.provenance["inputs"]
         self.offsets = {attr: inputs[attr] for attr in ("offset", "exposure") if attr in inputs}
+        # a format 4 model outputs the rate beside the count (a role feature)
+        self.rate = any(getattr(f, "role", None) for f in model.features)
         self.formula = getattr(results.model.data, "model_spec", None) is not None
         self.feature_names_in_ = np.array(model.provenance["inputs"]["feature_names"],
                                           dtype=object)
@@ -655,8 +657,20 @@ class ResultsSource:
         return x
 
     def predict(self, frame):
+        """The mean; with an offset or exposure, the expected count and the rate. For the
+        rate, statsmodels' own rule (statsmodels 0.15 GLM.predict, generalized_linear_
+        model.py: given exog, linpred = exog @ params + offset + log(exposure)) is asked
+        with exposure 1 (log 1 = 0) or offset 0: the mean without them."""
         given = {attr: np.asarray(frame[column], dtype=np.float64)
                  for attr, column in self.offsets.items()}
+        out = self._mean(frame, given)
+        if self.rate:
+            unit = {attr: np.full(len(frame), 1.0 if attr == "exposure" else 0.0)
+                    for attr in self.offsets}
+            out = np.column_stack([out, self._mean(frame, unit)])
+        return out
+
+    def _mean(self, frame, given):
         with np.errstate(all="ignore"):
             out = np.asarray(self.results.predict(self._exog(frame), **given),
                              dtype=np.float64)
