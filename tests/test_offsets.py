@@ -1,7 +1,9 @@
 """Offsets and exposure: statsmodels results fitted with offset= or exposure= freeze with the
 column that holds it as an input added to the margin (the exposure through the program's
-log), so every artifact outputs the expected count; the rule for a missing or non-positive
-exposure is stated and checked. Against statsmodels' own predictions with the same offset."""
+log), marked as the offset or exposure (format version 4), so every artifact outputs the
+expected count and the rate (the margin without it); the rule for a missing or non-positive
+exposure is stated and checked. Against statsmodels' own predictions with the same offset,
+and with exposure 1 / offset 0 for the rate."""
 
 from __future__ import annotations
 
@@ -20,7 +22,7 @@ import scorewright  # noqa: E402
 from scorewright.errors import ScorewrightError  # noqa: E402
 from scorewright.freeze import freeze_checked  # noqa: E402
 from scorewright.plan import build_plan  # noqa: E402
-from scorewright.reference import score_row  # noqa: E402
+from scorewright.reference import encode_rows, score_matrix, score_row  # noqa: E402
 
 
 def test_cancer_rates_with_population_exposure():
@@ -155,8 +157,202 @@ def test_a_scikit_learn_rate_model_takes_its_exposure_at_freeze(tmp_path):
     got = np.array([score_row(plan, r).value for r in rows.to_dict("records")])
     want = est.predict(x) * d.population.to_numpy()
     np.testing.assert_allclose(got, want, rtol=1e-12)
+    rate = np.array([score_row(plan, r).rate for r in rows.to_dict("records")])
+    np.testing.assert_allclose(rate, est.predict(x), rtol=1e-12)  # scikit-learn's rate
     report = build_targets(model, tmp_path, targets=["python", "sql-sqlite"], data=None,
                            n_random=200)
     assert report.ok, [r.message for r in report.results]
     with pytest.raises(ScorewrightError, match="give one"):
         scorewright.freeze(est, exposure="population", offset="population_k")
+
+
+# ---------------------------------------------------------------- the rate beside the count
+
+def _committee(attr: str):
+    """statsmodels' committee data (bills per House committee, 104th Congress; the package
+    ships it): a Poisson model of bills with the committee's size as the exposure (or
+    log(size) as the offset), through a formula."""
+    d = sm.datasets.committee.load_pandas().data
+    d = d.assign(log_size=np.log(d.SIZE))
+    kwargs = {"exposure": d.SIZE} if attr == "exposure" else {"offset": d.log_size}
+    results = smf.glm("BILLS104 ~ SUBS + STAFF + PRESTIGE + np.log1p(BILLS103)", data=d,
+                      family=sm.families.Poisson(), **kwargs).fit()
+    column = "SIZE" if attr == "exposure" else "log_size"
+    rows = d.drop(columns=["BILLS104", "log_size" if attr == "exposure" else "SIZE"])
+    return results, rows, column
+
+
+def _statsmodels_count_and_rate(results, rows, attr, column):
+    """statsmodels 0.15 GLM.predict (generalized_linear_model.py): given exog, the linear
+    predictor is exog @ params + offset + log(exposure); the rate is asked with exposure 1
+    (or offset 0)."""
+    count = results.predict(rows, **{attr: rows[column]})
+    unit = np.ones(len(rows)) if attr == "exposure" else np.zeros(len(rows))
+    return np.asarray(count), np.asarray(results.predict(rows, **{attr: unit}))
+
+
+@pytest.mark.parametrize("attr", ["exposure", "offset"])
+def test_count_and_rate_agree_with_statsmodels(attr):
+    results, rows, column = _committee(attr)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model, checked = freeze_checked(results, check_rows=rows, **{attr: column})
+    assert checked.compared >= len(rows)
+    doc = model.to_document()
+    assert doc["format_version"] == 4
+    assert [f.get("role") for f in doc["features"]] == [None] * 4 + [attr]
+    plan = build_plan(model)
+    scores = [score_row(plan, r) for r in rows.to_dict("records")]
+    count, rate = _statsmodels_count_and_rate(results, rows, attr, column)
+    np.testing.assert_allclose([s.value for s in scores], count, rtol=1e-12)
+    np.testing.assert_allclose([s.rate for s in scores], rate, rtol=1e-12)
+    matrix = score_matrix(plan, encode_rows(plan, rows.to_dict("records")))
+    assert matrix["rate"].tobytes() == np.array([s.rate for s in scores]).tobytes()
+
+
+def test_the_rate_on_a_target_of_each_family(tmp_path, request):
+    """Built and verified: python, c-double, java, onnx-double and three SQL engines, on
+    the committee rows, edge rows (exposure 0, negative, NaN, +-inf, subnormal, huge) and
+    random rows; each artifact's rate also against statsmodels on the data rows."""
+    from scorewright.verify.harness import build_targets
+    from scorewright.verify.runners import runner
+
+    results, rows, column = _committee("exposure")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model = scorewright.freeze(results, check_rows=rows, exposure=column)
+    data = tmp_path / "committee.csv"
+    rows.to_csv(data, index=False)
+    targets = ["python", "c-double", "java", "onnx-double", "sql-duckdb", "sql-sqlite",
+               "sql-postgres"]
+    options = {"sql": {"dsn": request.getfixturevalue("postgres_dsn")}}
+    report = build_targets(model, tmp_path / "out", targets=targets, data=data, n_random=100,
+                           options=options)
+    assert report.ok, [(r.profile.name, r.message) for r in report.results]
+    assert all(r.comparison.max_ulps.get("predicted_rate") is not None
+               for r in report.results), "every target compared the rate"
+    count, rate = _statsmodels_count_and_rate(results, rows, "exposure", column)
+    for name in ("python", "sql-sqlite"):
+        got = runner(name.split("-")[0] if name == "python" else "sql")(
+            tmp_path / "out" / name, model, rows.to_dict("records"),
+            {"dialect": "sqlite"} if name == "sql-sqlite" else {})
+        np.testing.assert_allclose(got.value, count, rtol=1e-12)
+        np.testing.assert_allclose(got.rate, rate, rtol=1e-12)
+
+
+def test_unusable_exposure_gives_the_rate_as_the_count():
+    """The stated rule (offsets.rule): an exposure that is missing, not positive or not
+    finite counts as 1, so the count is the rate, bit for bit; a usable one multiplies
+    the rate (to 1e-12: the count's margin adds log(exposure) before the link)."""
+    results, rows, column = _committee("exposure")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model = scorewright.freeze(results, exposure=column)
+    plan = build_plan(model)
+    base = rows.iloc[0].to_dict()
+    for bad in (None, 0.0, -0.0, -3.0, float("nan"), float("inf"), float("-inf"), "", "x"):
+        s = score_row(plan, dict(base, SIZE=bad))
+        assert s.value == s.rate and s.rate > 0, bad
+    for good in (1.0, 0.5, 40.0, 1e-300, 5e-324):
+        s = score_row(plan, dict(base, SIZE=good))
+        assert s.rate == score_row(plan, dict(base, SIZE=None)).rate
+        if good >= 1e-300:
+            assert abs(s.value - s.rate * good) <= 1e-12 * s.rate * good, good
+    huge = score_row(plan, dict(base, SIZE=1e308))
+    assert np.isfinite(huge.value) and huge.rate == s.rate
+
+
+def test_an_earlier_offset_model_scores_as_before_without_a_rate():
+    """A file of an earlier version whose offset is an ordinary feature (provenance names it): it
+    loads unchanged (same sha256), scores the same count bit for bit as the version 4 file
+    of the same fit, and has no rate; provenance is never read for semantics."""
+    import json
+
+    from scorewright.model import canonical_sha256, parse_model
+    from scorewright.program import lower
+
+    results, rows, column = _committee("exposure")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model = scorewright.freeze(results, exposure=column)
+    doc = json.loads(model.to_json())
+    for f in doc["features"]:
+        f.pop("role", None)
+    doc["format_version"] = 2  # as scorewright wrote it before: the lowest that holds it
+    doc["sha256"] = canonical_sha256(doc)
+    old = parse_model(json.dumps(doc))
+    assert old.sha256 == doc["sha256"] and old.to_document() == doc
+    assert "value" in lower(build_plan(old)).outputs and "rate" not in lower(
+        build_plan(old)).outputs
+    for r in rows.to_dict("records") + [dict(rows.iloc[0], SIZE=0.0)]:
+        new, was = score_row(build_plan(model), r), score_row(build_plan(old), r)
+        assert was.rate is None and struct_bits(was.value) == struct_bits(new.value)
+
+
+def struct_bits(x: float) -> bytes:
+    return np.float64(x).tobytes()
+
+
+@pytest.mark.parametrize("change, words", [
+    (lambda d: d["features"][-1].update(role="weight"), "role: expected 'offset' or"),
+    (lambda d: d["features"][-1].update(role="offset"), "an offset has no fill, no clip"),
+    (lambda d: d["head"]["coefficients"][0].__setitem__(-1, 0.5), "is 1"),
+    (lambda d: d["head"].update(link="identity"), "an exposure needs the log link"),
+    (lambda d: d.update(format_version=3), "needs format_version 4"),
+    (lambda d: d["features"][0].update(role="offset"), "one offset or exposure at most"),
+])
+def test_a_role_the_file_cannot_hold_is_one_line(change, words):
+    import json
+
+    from scorewright.errors import ModelFileError
+    from scorewright.model import canonical_sha256, parse_model
+
+    results, rows, column = _committee("exposure")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model = scorewright.freeze(results, exposure=column)
+    doc = json.loads(model.to_json())
+    change(doc)
+    doc["sha256"] = canonical_sha256(doc)
+    with pytest.raises(ModelFileError) as err:
+        parse_model(json.dumps(doc))
+    assert words in str(err.value) and "\n" not in str(err.value)
+
+
+def test_the_self_check_refuses_a_wrong_rate():
+    """The self-check compares the rate too: a source whose count is right but whose rate
+    is not is refused, naming the rate."""
+    from scorewright.freeze.self_check import FreezeMismatch, check_model
+    from scorewright.freeze.statsmodels import ResultsSource
+
+    results, rows, column = _committee("exposure")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model = scorewright.freeze(results, exposure=column)
+
+    class Skewed(ResultsSource):
+        def predict(self, frame):
+            out = super().predict(frame)
+            return out * np.array([1.0, 1.0 + 1e-9])
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        with pytest.raises(FreezeMismatch, match="the rate: source"):
+            check_model(Skewed(results, model), model, rows)
+
+
+@pytest.mark.slow
+def test_the_rate_on_spark_and_the_long_layouts(tmp_path, request):
+    from scorewright.verify.harness import build_targets
+
+    results, rows, column = _committee("offset")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model = scorewright.freeze(results, check_rows=rows, offset=column)
+    request.getfixturevalue("spark")
+    options = {"sql": {"dsn": request.getfixturevalue("postgres_dsn")}}
+    report = build_targets(model, tmp_path, n_random=200, options=options, targets=[
+        "sql-spark", "sql-spark-long", "sql-duckdb-long", "sql-sqlite-long", "sql-postgres-long",
+        "c-float", "c-double-portable-exp", "java-portable-exp", "onnx-float",
+        "onnx-double-reference", "c-cortex-m3"])
+    assert report.ok, [(r.profile.name, r.message) for r in report.results]
