@@ -24,10 +24,13 @@ Evaluation, in order:
    the value's bin (0.0 when missing without a fill), and a missing-indicator term is
    one of two contributions, as the input is present or missing (missing as step 1
    reads it, before the fill). Terms whose weights are all
-   zero are left out.
+   zero are left out. A model with an offset or exposure (`Plan.offset`, the feature's
+   role) sums a second margin, the rate's: the same terms in the same order without the
+   offset's, then the intercept.
 3. Link: binary, the stable sigmoid (logit), the normal CDF (probit, through the
    upper tail in `normal_tail`) or 1 - exp(-exp(m)) (cloglog); multiclass, the
-   max-shifted softmax; regression, identity or the guarded exp. Every `exp` argument is clamped to
+   max-shifted softmax; regression, identity or the guarded exp (with an offset: the
+   count from the first margin, the rate from the second). Every `exp` argument is clamped to
    [-exp_guard, +exp_guard] so no runtime overflows, underflows to a subnormal or
    raises (PostgreSQL raises on both).
 4. Decision: binary, the positive class iff margin > cut; multiclass, the class
