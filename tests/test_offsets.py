@@ -210,6 +210,24 @@ def test_count_and_rate_agree_with_statsmodels(attr):
     assert matrix["rate"].tobytes() == np.array([s.rate for s in scores]).tobytes()
 
 
+@pytest.mark.parametrize("fit", ["poisson", "negativebinomial"])
+def test_discrete_count_models_give_the_rate_too(fit):
+    """statsmodels' discrete Poisson and NegativeBinomial (NB2) with an exposure: their
+    predict (discrete_model.py, the same rule as GLM's: log(exposure) added to exog @
+    params) with the exposure and with exposure 1, against the count and the rate."""
+    d = sm.datasets.committee.load_pandas().data
+    results = getattr(smf, fit)("BILLS104 ~ SUBS + STAFF", data=d, exposure=d.SIZE).fit(
+        disp=0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model = scorewright.freeze(results, check_rows=d, exposure="SIZE")
+    plan = build_plan(model)
+    scores = [score_row(plan, r) for r in d.to_dict("records")]
+    count, rate = _statsmodels_count_and_rate(results, d, "exposure", "SIZE")
+    np.testing.assert_allclose([s.value for s in scores], count, rtol=1e-12)
+    np.testing.assert_allclose([s.rate for s in scores], rate, rtol=1e-12)
+
+
 def test_the_rate_on_a_target_of_each_family(tmp_path):
     """Built and verified: python, c-double, java, onnx-double, DuckDB and SQLite (the
     slow tier adds PostgreSQL, Spark, the long layouts, float and the firmware), on the
