@@ -228,6 +228,45 @@ def test_discrete_count_models_give_the_rate_too(fit):
     np.testing.assert_allclose([s.rate for s in scores], rate, rtol=1e-12)
 
 
+@pytest.mark.parametrize("opt", [["-O2"], ["-O3", "-march=native"]])
+def test_the_c_batch_scorer_writes_the_count_and_the_rate(opt, tmp_path):
+    """The batch function writes each row's value and rate, the program's bits (run_matrix)
+    on every edge exposure and the data rows, in counts that end mid-block."""
+    import shutil
+
+    from scorewright.emit import c_batch, emitter
+    from scorewright.emit.c import driver_source
+    from scorewright.program import lower, run_matrix
+
+    assert shutil.which("gcc"), "the C batch test needs gcc"
+    results, rows, column = _committee("exposure")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        model = scorewright.freeze(results, exposure=column)
+    plan = build_plan(model)
+    data = encode_rows(plan, rows.to_dict("records"))
+    edges = (0.0, -0.0, -3.0, np.nan, np.inf, -np.inf, 5e-324, 1e-300, 1e308, 1.5, 1.0)
+    data = np.vstack([data] + [np.append(data[i % len(data), :-1], e)
+                               for i, e in enumerate(edges)])
+    want = run_matrix(lower(plan), data)
+    want = np.stack([want["value"], want["rate"]], axis=1)
+    for art in emitter("c")(model, {"prefix": "s"}):
+        (tmp_path / art.name).write_bytes(art.content)
+    (tmp_path / "driver.c").write_text(driver_source(model, "s"), encoding="ascii")
+    exe = tmp_path / "driver"
+    subprocess.run(["gcc", "-std=c99", *opt, "-ffp-contract=off", "-Wall", "-Wextra", "-Werror",
+                    "-I", str(tmp_path), "-o", str(exe), str(tmp_path / "driver.c"),
+                    str(tmp_path / "s.c"), "-lm"], check=True)
+    for count in (1, c_batch.BATCH_BLOCK + 1, len(data)):
+        path = tmp_path / "rows.bin"
+        path.write_bytes(np.ascontiguousarray(data[:count], dtype="<f8").tobytes())
+        out = subprocess.run([str(exe), "--batch", str(path)], capture_output=True, text=True,
+                             check=True).stdout
+        got = np.array([[float.fromhex(x) for x in line.split()] for line in out.splitlines()])
+        assert got.shape == (count, 2)
+        assert (got.view(np.uint64) == want[:count].view(np.uint64)).all()
+
+
 def test_the_rate_on_a_target_of_each_family(tmp_path):
     """Built and verified: python, c-double, java, onnx-double, DuckDB and SQLite (the
     slow tier adds PostgreSQL, Spark, the long layouts, float and the firmware), on the
