@@ -172,7 +172,8 @@ def mark_booleans(model: FrozenModel, frame) -> FrozenModel:
 def mark_boolean_features(model: FrozenModel, names) -> FrozenModel:
     """The model with the named numeric features marked boolean (fitted on booleans)."""
     features = tuple(replace(f, boolean=True) if isinstance(f, NumericFeature)
-                     and f.name in names and not f.boolean else f for f in model.features)
+                     and f.name in names and not f.boolean and f.role is None else f
+                     for f in model.features)  # an offset or exposure is a number
     if features == model.features:
         return model
     return replace(model, features=features).sealed()
