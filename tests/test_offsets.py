@@ -342,6 +342,9 @@ def test_an_earlier_offset_model_scores_as_before_without_a_rate():
     for r in rows.to_dict("records") + [dict(rows.iloc[0], SIZE=0.0)]:
         new, was = score_row(build_plan(model), r), score_row(build_plan(old), r)
         assert was.rate is None and struct_bits(was.value) == struct_bits(new.value)
+    from scorewright.describe import describe_model
+    assert "no rate; freeze the results again" in describe_model(old)
+    assert "predicted_rate, the value without the exposure" in describe_model(model)
 
 
 def struct_bits(x: float) -> bytes:

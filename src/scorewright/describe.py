@@ -54,6 +54,12 @@ def describe_model(model: FrozenModel) -> str:
         out.append(f"{role.role:<9} {role.name!r} (coefficient 1; {unusable}); outputs: "
                    "predicted_value, the expected count, and predicted_rate, the value "
                    f"without the {role.role}")
+    inputs = model.provenance.get("inputs", {}) if isinstance(model.provenance, dict) else {}
+    earlier = [k for k in ("offset", "exposure") if k in inputs]
+    if role is None and earlier and head.task == "regression":
+        out.append(f"{earlier[0]:<9} {inputs[earlier[0]]!r} is an ordinary feature in this file "
+                   "(frozen before format version 4): the count is output, no rate; freeze "
+                   "the results again for the rate")
     out.append("")
     out.append("features")
     for feat, inp in zip(model.features, plan.inputs):
