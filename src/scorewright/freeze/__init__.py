@@ -39,10 +39,12 @@ def freeze(estimator, feature_names=None, name=None, check_rows=None, preprocess
 
     statsmodels results fitted with an `offset=` or `exposure=` array take the name of
     the column that holds it (`offset="..."`, `exposure="..."`): an input of the frozen
-    model, whose artifacts then output the expected count. A scikit-learn log-link
+    model, whose artifacts then output the expected count and the rate (the value without
+    the offset; statsmodels' predict with exposure 1 or offset 0). A scikit-learn log-link
     regressor fitted on rates (y / exposure, with sample_weight exposure for Poisson) takes
     `exposure="..."` (or `offset="..."`, the log of one) the same way: its prediction
-    times the exposure is the expected count the artifacts output."""
+    times the exposure is the expected count the artifacts output, its prediction itself
+    the rate."""
     model, result = freeze_checked(estimator, feature_names=feature_names, name=name,
                                    check_rows=check_rows, preprocessor=preprocessor,
                                    task=task, classes=classes, offset=offset,

@@ -82,9 +82,10 @@ def freeze_results(results, feature_names=None, name=None, offset=None,
 
     A model fitted with an `offset=` or `exposure=` array needs the name of the column
     that holds it when scoring (`offset="..."`, `exposure="..."`): it becomes an input
-    added to the margin with weight 1 (the exposure through its log), so the artifacts
-    output the expected count. A missing offset counts as 0; a missing or non-positive
-    exposure as 1 (the count is then the rate per unit of exposure)."""
+    added to the margin with weight 1 (the exposure through its log), marked as the offset
+    or exposure, so the artifacts output the expected count and the rate (without it). A
+    missing offset counts as 0; a missing or non-positive exposure as 1 (the count is
+    then the rate per unit of exposure)."""
     model = getattr(results, "model", None)
     if model is None or not hasattr(results, "params"):
         raise Unsupported(f"{type(results).__name__}: freeze takes fitted statsmodels results "
