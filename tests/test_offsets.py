@@ -228,7 +228,8 @@ def test_discrete_count_models_give_the_rate_too(fit):
     np.testing.assert_allclose([s.rate for s in scores], rate, rtol=1e-12)
 
 
-@pytest.mark.parametrize("opt", [["-O2"], ["-O3", "-march=native"]])
+@pytest.mark.parametrize("opt", [["-O2"], pytest.param(["-O3", "-march=native"],
+                                                         marks=pytest.mark.slow)])
 def test_the_c_batch_scorer_writes_the_count_and_the_rate(opt, tmp_path):
     """The batch function writes each row's value and rate, the program's bits (run_matrix)
     on every edge exposure and the data rows, in counts that end mid-block."""
