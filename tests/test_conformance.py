@@ -85,7 +85,7 @@ def test_vectors_match_the_reference_evaluator(name):
     plan = build_plan(model)
     _, rows, expected = load_vectors(VECTORS / f"{name}.vectors.json", plan)
     now = expected_outputs(plan, rows)
-    for key in ("margins", "probabilities", "value", "class_index"):
+    for key in ("margins", "probabilities", "value", "rate", "class_index"):
         if key in expected:
             assert (now[key].view("u8") == expected[key].view("u8")).all() if key != \
                 "class_index" else (now[key] == expected[key]).all(), key

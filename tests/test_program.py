@@ -79,6 +79,8 @@ def test_program_reproduces_the_conformance_vectors(path):
             assert cls == expected["class_index"]
         else:
             assert _bits(value) == expected["value"]
+        if "rate" in expected:  # a model with an offset or exposure
+            assert _bits(run_row(program, row)["rate"]) == expected["rate"]
         checked += 1
     assert checked > 100
 

@@ -47,6 +47,19 @@ def describe_model(model: FrozenModel) -> str:
         p = 1.0 / (1.0 + math.exp(-head.cut)) if abs(head.cut) < 700 else float(head.cut > 0)
         out.append(f"cut       margin > {head.cut!r} predicts {head.classes[1]!r} "
                    f"(probability > {p:.6g})")
+    role = next((f for f in model.features if getattr(f, "role", None)), None)
+    if role is not None:
+        unusable = ("missing counts as 0" if role.role == "offset" else
+                    "missing or not positive counts as 1")
+        out.append(f"{role.role:<9} {role.name!r} (coefficient 1; {unusable}); outputs: "
+                   "predicted_value, the expected count, and predicted_rate, the value "
+                   f"without the {role.role}")
+    inputs = model.provenance.get("inputs", {}) if isinstance(model.provenance, dict) else {}
+    earlier = [k for k in ("offset", "exposure") if k in inputs]
+    if role is None and earlier and head.task == "regression":
+        out.append(f"{earlier[0]:<9} {inputs[earlier[0]]!r} is an ordinary feature in this file "
+                   "(frozen before format version 4): the count is output, no rate; freeze "
+                   "the results again for the rate")
     out.append("")
     out.append("features")
     for feat, inp in zip(model.features, plan.inputs):
@@ -66,7 +79,7 @@ def describe_model(model: FrozenModel) -> str:
                 missing += f" (so is a value outside the knots [{lo!r}, {hi!r}])"
             clip = "" if feat.clip is None else f", clip to [{feat.clip[0]!r}, {feat.clip[1]!r}]"
             kind = ("numeric, fitted on booleans (true/false read as 1/0)" if feat.boolean
-                    else "numeric")
+                    else f"numeric, the {feat.role}" if feat.role else "numeric")
             out.append(f"  {feat.name!r}  {kind}; {missing}; scaling: {steps}{clip}; "
                        f"input guard |x| <= {inp.bound:g}")
         else:

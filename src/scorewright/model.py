@@ -27,8 +27,9 @@ FORMAT = "scorewright-frozen-model"
 # missing indicators, products and encodings; version 3 adds splines (SPLINE). A model is
 # written in the lowest version that can say it, so every model an older version could
 # hold is written as before (its file and sha256 unchanged); this scorewright reads all.
-FORMAT_VERSION = 3
-READS_VERSIONS = (1, 2, 3)
+# Version 4 adds a numeric feature's `role` (ROLES): the offset or exposure input.
+FORMAT_VERSION = 4
+READS_VERSIONS = (1, 2, 3, 4)
 
 SCALING_OPS = ("subtract", "divide", "multiply", "add")
 # Transforms: a numeric feature's first step (after the missing-value fill), no value. A raw
@@ -54,6 +55,17 @@ LINK_VERSION = {"probit": 2, "cloglog": 2, "ovr_logit": 3, "log1p": 3, "sqrt": 3
                 "inverse": 3, "cauchit": 3}
 
 Level = Union[str, int]
+
+# A numeric feature's role (format version 4): "offset", a column added to the margin as
+# it is, or "exposure", added through its log; either way with coefficient 1, in one plain
+# design column of its own. The scoring program outputs the expected count (the margin
+# with it) and the rate (the margin without it; for an exposure, per unit of exposure).
+# The rule for a value that gives nothing usable is `freeze.offsets.rule`'s: a missing
+# offset counts as 0, a missing or non-positive exposure as 1 (the feature has no fill, so
+# its design value is then 0.0). A file of an older version whose provenance names an
+# offset column holds it as an ordinary feature: it scores as it always did (the count, no
+# rate); provenance is never read for semantics.
+ROLES = ("offset", "exposure")
 
 
 @dataclass(frozen=True)
@@ -118,6 +130,7 @@ class NumericFeature:
     clip: tuple[float, float] | None = None
     boolean: bool = False
     kind: str = field(default="numeric", init=False)
+    role: str | None = None  # format version 4: "offset" or "exposure" (ROLES)
 
 
 @dataclass(frozen=True)
@@ -222,6 +235,9 @@ def format_version(model: FrozenModel) -> int:
 def needs_version(model: FrozenModel) -> tuple[int, str]:
     """The lowest format version that can hold the model, and what needs it."""
     for feat in model.features:
+        if getattr(feat, "role", None) is not None:
+            return 4, f"the {feat.role} role of feature {feat.name!r}"
+    for feat in model.features:
         for step in getattr(feat, "scaling", ()):
             if step.op == SPLINE or step.op in POWER_OPS:
                 return 3, f"the {step.op} step of feature {feat.name!r}"
@@ -257,6 +273,8 @@ def _document_body(model: FrozenModel) -> dict:
             })
             if feat.boolean:
                 feats[-1]["boolean"] = True
+            if feat.role is not None:
+                feats[-1]["role"] = feat.role
         else:
             feats.append({
                 "name": feat.name,
@@ -466,6 +484,7 @@ def model_from_document(doc) -> FrozenModel:
                    for i, c in enumerate(r.array(doc["design"], "design")))
     _check_design(design, features)
     head = _read_head(doc["head"], len(design))
+    _check_roles(features, design, head)
     needed, what = needs_version(FrozenModel(name, features, design, head, {}))
     if needed > version:
         raise ModelFileError(f"format_version: {what} needs format_version {needed}, the file "
@@ -569,7 +588,8 @@ def _read_feature(value, path) -> Feature:
         raise ModelFileError(f"{path}: expected an object, got {_kind(value)}")
     kind = value.get("kind")
     if kind == "numeric":
-        r.obj(value, path, ("name", "kind", "missing", "scaling", "clip"), optional=("boolean",))
+        r.obj(value, path, ("name", "kind", "missing", "scaling", "clip"),
+              optional=("boolean", "role"))
         name = r.string(value["name"], f"{path}.name")
         missing = r.obj(value["missing"], f"{path}.missing", ("policy",), optional=("value",))
         policy = missing["policy"]
@@ -595,7 +615,18 @@ def _read_feature(value, path) -> Feature:
         boolean = value.get("boolean", False)
         if boolean is not True and "boolean" in value:
             raise ModelFileError(f"{path}.boolean: expected true (or no key), got {_kind(boolean)}")
-        return NumericFeature(name, fill, steps, clip, boolean)
+        role = value.get("role")
+        if "role" in value and role not in ROLES:
+            got = repr(role) if isinstance(role, str) else _kind(role)
+            raise ModelFileError(f"{path}.role: expected 'offset' or 'exposure', got {got}")
+        if role is not None:
+            want = (("log",) if role == "exposure" else ())
+            if fill is not None or clip is not None or tuple(s.op for s in steps) != want:
+                raise ModelFileError(f"{path}.role: an {role} has no fill, no clip and "
+                                     + ("one step, log" if want else "no steps"))
+            if boolean:
+                raise ModelFileError(f"{path}.role: an {role} is not boolean")
+        return NumericFeature(name, fill, steps, clip, boolean, role=role)
     if kind == "categorical":
         r.obj(value, path, ("name", "kind", "levels", "missing", "unknown"))
         name = r.string(value["name"], f"{path}.name")
@@ -783,6 +814,36 @@ def _check_design(design, features) -> None:
                                  "column and bin columns")
         if feat.name not in numeric_seen | indicated and feat.name not in level_seen:
             raise ModelFileError(f"features[{j}]: feature {feat.name!r} has no design column")
+
+
+def _check_roles(features, design, head) -> None:
+    """An offset or exposure: one at most, of a regression head (an exposure: the log link),
+    in one plain design column of its own with coefficient 1."""
+    marked = [(j, f) for j, f in enumerate(features) if getattr(f, "role", None)]
+    if len(marked) > 1:
+        raise ModelFileError(f"features[{marked[1][0]}].role: a model has one offset or "
+                             "exposure at most")
+    for j, feat in marked:
+        path = f"features[{j}].role"
+        if head.task != "regression":
+            raise ModelFileError(f"{path}: an {feat.role} belongs to a regression head, not "
+                                 f"{head.task}")
+        if feat.role == "exposure" and head.link != "log":
+            raise ModelFileError(f"{path}: an exposure needs the log link, the head's is "
+                                 f"{head.link}")
+        cols = [i for i, c in enumerate(design) if c.feature == feat.name or (
+            c.product is not None and any(f.feature == feat.name for f in c.product))]
+        if len(cols) != 1 or design[cols[0]] != DesignColumn(feat.name):
+            raise ModelFileError(f"{path}: an {feat.role} is one plain design column of its "
+                                 "own")
+        if head.coefficients[0][cols[0]] != 1.0:
+            raise ModelFileError(f"head.coefficients[0][{cols[0]}]: the coefficient of "
+                                 f"{feat.role} {feat.name!r} is 1")
+
+
+def role_feature(model: "FrozenModel"):
+    """The model's offset or exposure feature (format version 4), else None."""
+    return next((f for f in model.features if getattr(f, "role", None)), None)
 
 
 def bin_count(feat) -> int | None:

@@ -24,10 +24,13 @@ Evaluation, in order:
    the value's bin (0.0 when missing without a fill), and a missing-indicator term is
    one of two contributions, as the input is present or missing (missing as step 1
    reads it, before the fill). Terms whose weights are all
-   zero are left out.
+   zero are left out. A model with an offset or exposure (`Plan.offset`, the feature's
+   role) sums a second margin, the rate's: the same terms in the same order without the
+   offset's, then the intercept.
 3. Link: binary, the stable sigmoid (logit), the normal CDF (probit, through the
    upper tail in `normal_tail`) or 1 - exp(-exp(m)) (cloglog); multiclass, the
-   max-shifted softmax; regression, identity or the guarded exp. Every `exp` argument is clamped to
+   max-shifted softmax; regression, identity or the guarded exp (with an offset: the
+   count from the first margin, the rate from the second). Every `exp` argument is clamped to
    [-exp_guard, +exp_guard] so no runtime overflows, underflows to a subnormal or
    raises (PostgreSQL raises on both).
 4. Decision: binary, the positive class iff margin > cut; multiclass, the class
@@ -152,10 +155,18 @@ class Plan:
     intercepts: tuple[float, ...]
     cut: float | None
     exp_kind: str = "libm"  # libm | portable
+    # the input that is the model's offset or exposure (format version 4), else None: the
+    # program then outputs a second margin, without its term, and the rate from it
+    offset: int | None = None
 
     @property
     def n_outputs(self) -> int:
         return len(self.intercepts)
+
+    @property
+    def n_margins(self) -> int:
+        """The margins the program sums: one per output, and the rate's (no offset)."""
+        return self.n_outputs + (self.offset is not None)
 
     @property
     def feature_names(self) -> tuple[str, ...]:
@@ -281,6 +292,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
         intercepts=head.intercepts,
         cut=head.cut,
         exp_kind=exp,
+        offset=next((i for i, f in enumerate(model.features)
+                     if getattr(f, "role", None) is not None), None),
     )
 
 
@@ -491,4 +504,6 @@ def output_columns(plan: Plan) -> tuple[str, ...]:
         k = plan.n_outputs
         return (tuple(f"margin_{j}" for j in range(k)) + tuple(f"probability_{j}" for j in range(k))
                 + ("predicted_class",))
+    if plan.offset is not None:
+        return ("margin", "predicted_value", "predicted_rate")
     return ("margin", "predicted_value")

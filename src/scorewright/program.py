@@ -129,9 +129,12 @@ def lower(plan: Plan) -> Program:
         else:
             design[inp.index] = b.codes[inp.index] = _lower_code(b, inp)
     margins = []
+    offset_terms = []  # margin 0's terms but the offset's: the rate's margin
     for k in range(plan.n_outputs):
         terms = []
         for term in plan.terms:
+            if k == 0 and plan.offset is not None and term.input != plan.offset:
+                offset_terms.append(len(terms))
             v = design[term.input]
             if term.kind == "numeric":
                 terms.append(b.emit("mul", Const(term.weights[k]), v, hint="w"))
@@ -162,8 +165,14 @@ def lower(plan: Plan) -> Program:
                                     Const(missing), Const(present), hint="w"))
             else:
                 terms.append(b.emit("lookup", v, attr=term.tables[k], hint="w"))
+        if k == 0:
+            kept = [terms[j] for j in offset_terms]
         terms.append(Const(plan.intercepts[k]))
         margins.append(b.emit("sum", *terms, hint="m") if len(terms) > 1 else terms[0])
+    if plan.offset is not None:
+        # the rate's margin: the same terms, the same order, without the offset's
+        kept.append(Const(plan.intercepts[0]))
+        margins.append(b.emit("sum", *kept, hint="m") if len(kept) > 1 else kept[0])
     names = output_names(plan)
     values = _lower_link(b, plan, margins)
     for name, value in zip(names, values, strict=True):
@@ -173,10 +182,12 @@ def lower(plan: Plan) -> Program:
 
 def output_names(plan: Plan) -> tuple[str, ...]:
     """The program's outputs: every margin, every class probability, then the class index
-    (classification) or the value (regression)."""
-    margins = tuple(f"margin_{k}" for k in range(plan.n_outputs))
+    (classification) or the value (regression). A model with an offset (or exposure) has a
+    second margin, `margin_1`, without the offset's term, and outputs the `rate` (its
+    inverse link) after the value (the expected count)."""
+    margins = tuple(f"margin_{k}" for k in range(plan.n_margins))
     if plan.task == "regression":
-        return margins + ("value",)
+        return margins + (("value", "rate") if plan.offset is not None else ("value",))
     probs = tuple(f"probability_{j}" for j in range(len(plan.classes)))
     return margins + probs + ("class_index",)
 
@@ -613,21 +624,28 @@ def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
         total = b.emit("sum", *exps) if len(exps) > 1 else exps[0]
         probs = [b.emit("div", e, total, hint="p") for e in exps]
         return [*margins, *probs, best]
-    m = margins[0]
+    if plan.offset is not None:  # the count, then the rate, by the same link
+        return [*margins, *(_regression_value(b, plan, m) for m in margins)]
+    return [margins[0], _regression_value(b, plan, margins[0])]
+
+
+def _regression_value(b: _Builder, plan: Plan, m):
+    """A regression margin's inverse link."""
+    guard = plan.precision.exp_guard
     if plan.link in ("log", "log1p"):
         g = b.emit("max", m, Const(-guard))
         g = b.emit("min", g, Const(plan.precision.log_link_max))
         if plan.link == "log1p":
-            return [m, _lower_expm1(b, g, plan.precision.name == "float")]
-        return [m, b.emit("exp", g, hint="y")]
+            return _lower_expm1(b, g, plan.precision.name == "float")
+        return b.emit("exp", g, hint="y")
     if plan.link == "sqrt":
         # the square of the margin, clamped so it stays finite
         top = math.sqrt(plan.precision.max_value)
         g = b.emit("min", b.emit("max", m, Const(-top)), Const(top))
-        return [m, b.emit("mul", g, g, hint="y")]
+        return b.emit("mul", g, g, hint="y")
     if plan.link == "inverse":
-        return [m, _lower_inverse(b, plan, m)]
-    return [m, m]
+        return _lower_inverse(b, plan, m)
+    return m
 
 
 # expm1(r) = r + r^2/2! + ... on |r| <= ln2/2 (+ rounding): 16 terms, the first one left
@@ -984,7 +1002,9 @@ def _run_matrix(program: Program, matrix: np.ndarray):
         elif op.op == "read_code":
             value = _np_codes(matrix[:, op.attr], len(plan.inputs[op.attr].levels))
         elif op.op == "exp":
-            value = _EXP[plan.exp_kind](np.asarray(args[0], dtype=np.float64)).astype(np.float64)
+            # np.asarray: on a 0-d operand (a constant margin) frompyfunc gives a float
+            value = np.asarray(_EXP[plan.exp_kind](np.asarray(args[0], dtype=np.float64)),
+                               dtype=np.float64)
         elif op.op == "lookup":
             value = _np_lookup(args[0], op.attr)
         elif op.op == "output":

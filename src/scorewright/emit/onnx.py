@@ -12,7 +12,8 @@ Contract of the graph (also written into its doc string):
   feeding a float graph from doubles saturates out-of-range values to +-FLT_MAX
   (a plain cast makes them inf, which the graph reads as missing).
 - Outputs: margin [N, K]; classification: probability [N, C] in class order and
-  class_index [N] int64; regression: predicted_value [N, 1].
+  class_index [N] int64; regression: predicted_value [N, 1], and with an offset or
+  exposure predicted_rate [N, 1] (the value of the margin without it).
 
 The graph renders the scoring program (`program.lower`) from `NODES`, the table of
 op -> node, and decides no semantics: every guard, scaling step, missing or unseen
@@ -101,7 +102,7 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
 def build_model(plan: Plan, layout: str):
     elem = ELEMENT_TYPES[plan.precision.name]
     _check_names(plan, layout)
-    g = _Graph(elem, reserved=set(plan.feature_names) | set(OUTPUTS) | {MATRIX_INPUT})
+    g = _Graph(elem, reserved=set(plan.feature_names) | set(_reserved(plan)) | {MATRIX_INPUT})
     inputs = _declare_inputs(g, plan, layout)
     outputs = _Renderer(g, plan, layout).render()
     doc = _doc_string(plan, layout)
@@ -153,13 +154,20 @@ def _check_names(plan: Plan, layout: str) -> None:
                                        f"feature {inp.name!r} is categorical")
         return
     for name in plan.feature_names:
-        if name in OUTPUTS:
+        if name in _reserved(plan):
             raise ScorewrightError(f"feature {name!r} has the name of an ONNX output of the "
                                    f"graph; per-feature inputs cannot take it")
 
 
+def _reserved(plan: Plan) -> tuple[str, ...]:
+    """The graph's output names a feature cannot take."""
+    return OUTPUTS + (("predicted_rate",) if plan.offset is not None else ())
+
+
 def _output_names(plan: Plan) -> tuple[str, ...]:
     if plan.task == "regression":
+        if plan.offset is not None:
+            return ("margin", "predicted_value", "predicted_rate")
         return ("margin", "predicted_value")
     return ("margin", "probability", "class_index")
 
@@ -168,7 +176,8 @@ def _output_names(plan: Plan) -> tuple[str, ...]:
 # The graph outputs (the contract above), each with the program outputs it holds: the
 # one named, or those named with the prefix, in order.
 GRAPH_OUTPUTS = (("margin", "margin_"), ("probability", "probability_"),
-                 ("class_index", "class_index"), ("predicted_value", "value"))
+                 ("class_index", "class_index"), ("predicted_value", "value"),
+                 ("predicted_rate", "rate"))
 
 # An operation with a constant on the right that a lane of a vectorized chain may lack:
 # the node, the constant that leaves every value (even -0.0) unchanged, and the sign the
@@ -899,6 +908,8 @@ class _Renderer:
         infos = []
         for graph_name, key in GRAPH_OUTPUTS:
             names = [n for n in values if n == key or (key.endswith("_") and n.startswith(key))]
+            if graph_name == "margin":  # the rate's margin (no offset) is the program's own
+                names = names[:self.plan.n_outputs]
             if not names:
                 continue
             args = [values[n] for n in names]

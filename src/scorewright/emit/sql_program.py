@@ -109,6 +109,9 @@ def sql_outputs(plan: Plan) -> list[tuple[str, str]]:
         return ([(f"margin_{j}", f"margin_{j}") for j in range(k)]
                 + [(f"probability_{j}", f"probability_{j}") for j in range(k)]
                 + [("predicted_class", "class_index")])
+    if plan.offset is not None:  # the expected count, then the rate (no offset)
+        return [("margin", "margin_0"), ("predicted_value", "value"),
+                ("predicted_rate", "rate")]
     return [("margin", "margin_0"), ("predicted_value", "value")]
 
 

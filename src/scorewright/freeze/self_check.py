@@ -245,9 +245,12 @@ def _records(frame) -> list[dict]:
 def _reference(model: FrozenModel, records):
     """The reference outputs (n, outputs), each row's margin scale (n,), and which
     rows meet the log link's guard (n,): there the frozen model clamps the exp
-    argument by design, where scikit-learn underflows to 0 or overflows."""
+    argument by design, where scikit-learn underflows to 0 or overflows. A model with an
+    offset or exposure has two outputs, the expected count and the rate, and a row is
+    guarded where either margin is."""
     from ..plan import build_plan
-    from ..reference import encode_rows, margin_scale, score_matrix
+    from ..program import run_matrix
+    from ..reference import encode_rows, margin_scale, program_of, score_matrix
 
     plan = build_plan(model)
     matrix = encode_rows(plan, records)
@@ -255,8 +258,17 @@ def _reference(model: FrozenModel, records):
     scale = margin_scale(plan, matrix).max(axis=1)
     if model.head.task != "regression":
         return out["probabilities"], scale, np.zeros(len(records), dtype=bool)
-    m = out["margins"][:, 0]
-    guarded = np.zeros(len(records), dtype=bool)
+    guarded = _guarded(plan, out["margins"][:, 0])
+    if plan.offset is None:
+        return out["value"].reshape(-1, 1), scale, guarded
+    rate_margin = run_matrix(program_of(plan), matrix)["margin_1"]
+    guarded = guarded | _guarded(plan, rate_margin)
+    return np.column_stack([out["value"], out["rate"]]), scale, guarded
+
+
+def _guarded(plan, m) -> np.ndarray:
+    """Rows whose regression margin meets the link's guard."""
+    guarded = np.zeros(len(m), dtype=bool)
     if plan.link in ("log", "log1p"):
         guarded = (m < -plan.precision.exp_guard) | (m > plan.precision.log_link_max)
     elif plan.link == "sqrt":
@@ -264,7 +276,7 @@ def _reference(model: FrozenModel, records):
     elif plan.link == "inverse":
         from ..program import inverse_floor
         guarded = np.abs(m) < inverse_floor(plan)
-    return out["value"].reshape(-1, 1), scale, guarded
+    return guarded
 
 
 def _source(estimator, frame, classifier: bool, errors: list | None = None) -> np.ndarray:
@@ -387,7 +399,9 @@ def _mismatch_message(model, what, index, record, source, ref) -> str:
     if len(record) > 8:
         shown += ", ..."
     if model.head.task == "regression":
-        outputs = f"source {float(source[0])!r}, frozen {float(ref[0])!r}"
+        k = int(np.argmax(np.abs(source - ref) / np.maximum(np.abs(ref), 1e-300)))
+        what_out = ("the expected count: " if k == 0 else "the rate: ") if len(ref) > 1 else ""
+        outputs = f"{what_out}source {float(source[k])!r}, frozen {float(ref[k])!r}"
     else:
         k = int(np.argmax(np.abs(source - ref)))
         outputs = (f"probability of class {model.head.classes[k]!r}: source "

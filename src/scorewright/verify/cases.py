@@ -103,6 +103,10 @@ def edge_rows(plan: Plan) -> list[tuple[str, dict]]:
                                               math.nextafter(-inp.bound, -math.inf)]
             if inp.fill is not None:
                 values.append(inp.fill)
+            if inp.index == plan.offset:
+                # an offset or exposure of 1 and around it (0, negative, NaN, +-inf, the
+                # subnormals and the huge values are SPECIAL_NUMBERS)
+                values += [1.0, -1.0, 0.5, 2.0]
             if inp.steps and inp.steps[0].op in ("bins", "spline"):
                 # every bin edge or spline knot, and one double either side
                 for edge in inp.steps[0].edges or inp.steps[0].knots:

@@ -136,6 +136,11 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
         value_abs = tol.margin_abs if expected.get("link") == "identity" else 0.0
         check("predicted_value", expected["value"], got.value, tol.value_ulps, value_abs,
               tol.value_rel)
+    if "rate" in expected and not decisions_only:
+        # the rate is the value of the margin without the offset: held to the value's bound
+        value_abs = tol.margin_abs if expected.get("link") == "identity" else 0.0
+        check("predicted_rate", expected["rate"], got.rate, tol.value_ulps, value_abs,
+              tol.value_rel)
     result.failing_rows = sorted(bad)[:limit]
     result.reasons = {r: bad[r] for r in result.failing_rows}
     result.failing_count = len(bad)

@@ -129,6 +129,8 @@ def expected_outputs(plan: Plan, rows: list[dict]) -> dict:
            .reshape(len(rows), plan.n_outputs), "cut": plan.cut, "link": plan.link}
     if plan.task == "regression":
         out["value"] = np.array([s.value for s in scores], dtype=np.float64)
+        if plan.offset is not None:
+            out["rate"] = np.array([s.rate for s in scores], dtype=np.float64)
     else:
         out["probabilities"] = np.array([s.probabilities for s in scores], dtype=np.float64)
         out["class_index"] = np.array([s.class_index for s in scores], dtype=np.int64)
@@ -321,6 +323,8 @@ def _row_ulps(expected, got, precision) -> np.ndarray | None:
                                       precision).max(axis=1))
         if "value" in expected:
             parts.append(ulp_distance(expected["value"], got.value, precision))
+        if "rate" in expected:
+            parts.append(ulp_distance(expected["rate"], got.rate, precision))
         return np.max(np.stack(parts), axis=0)
     except (ValueError, TypeError):
         return None
@@ -353,6 +357,9 @@ def _show_row(i, labels, rows, expected, got, comparison) -> dict:
     if "value" in expected:
         shown["expected"]["value"] = _plain(expected["value"][i])
         shown["got"]["value"] = _plain(np.asarray(got.value)[i])
+    if "rate" in expected:
+        shown["expected"]["rate"] = _plain(expected["rate"][i])
+        shown["got"]["rate"] = _plain(np.asarray(got.rate)[i])
     return shown
 
 
@@ -426,7 +433,7 @@ def summary_lines(report: AgreementReport) -> list[str]:
 
 
 ULP_BOUNDS = {"margin": "margin_ulps", "probability": "probability_ulps",
-              "predicted_value": "value_ulps"}
+              "predicted_value": "value_ulps", "predicted_rate": "value_ulps"}
 
 
 def passed_on_abs(r: TargetResult) -> bool:

@@ -57,6 +57,8 @@ def make_vectors(model) -> dict:
             item["class_index"] = int(exp["class_index"][i])
         else:
             item["value"] = _hex(exp["value"][i])
+            if "rate" in exp:
+                item["rate"] = _hex(exp["rate"][i])
         expected.append(item)
     return {"format": FORMAT, "model": model.name, "model_sha256": model.sha256,
             "labels": labels, "rows": [_encode_row(plan, r) for r in rows],
@@ -74,6 +76,8 @@ def load_vectors(path: Path, plan: Plan):
            "cut": plan.cut, "link": plan.link}
     if plan.task == "regression":
         out["value"] = np.array([float.fromhex(e["value"]) for e in exp])
+        if plan.offset is not None:
+            out["rate"] = np.array([float.fromhex(e["rate"]) for e in exp])
     else:
         out["probabilities"] = np.array([[float.fromhex(v) for v in e["probabilities"]]
                                          for e in exp])
