@@ -24,11 +24,12 @@ from .files import write_atomic
 
 FORMAT = "scorewright-frozen-model"
 # Version 2 adds the probit and cloglog links and the term kinds of TRANSFORM_OPS, BINS,
-# missing indicators, products and encodings; version 3 adds splines (SPLINE). A model is
-# written in the lowest version that can say it, so every model an older version could
+# missing indicators, products and encodings; version 3 adds splines (SPLINE); version 4
+# adds the "decision" link (a classifier with a decision function and no probabilities). A
+# model is written in the lowest version that can say it, so every model an older version could
 # hold is written as before (its file and sha256 unchanged); this scorewright reads all.
-FORMAT_VERSION = 3
-READS_VERSIONS = (1, 2, 3)
+FORMAT_VERSION = 4
+READS_VERSIONS = (1, 2, 3, 4)
 
 SCALING_OPS = ("subtract", "divide", "multiply", "add")
 # Transforms: a numeric feature's first step (after the missing-value fill), no value. A raw
@@ -45,13 +46,16 @@ TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, Fal
                     "box_cox": (0.0, True)}
 # multiclass "ovr_logit": one-vs-rest logistic, each class's sigmoid divided by their sum;
 # regression "log1p": the value is expm1(margin), "sqrt": the value is margin * margin,
-# "inverse": 1 / margin (statsmodels' InversePower); binary "cauchit": the Cauchy CDF
-TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit", "log"),
-              "multiclass": ("softmax", "ovr_logit"),
+# "inverse": 1 / margin (statsmodels' InversePower); binary "cauchit": the Cauchy CDF;
+# binary and multiclass "decision": the margins (a decision function) and the class, no
+# probabilities (scikit-learn's RidgeClassifier, LinearSVC, Perceptron, SGDClassifier...)
+DECISION = "decision"
+TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit", "log", DECISION),
+              "multiclass": ("softmax", "ovr_logit", DECISION),
               "regression": ("identity", "log", "log1p", "sqrt", "inverse")}
 # links an older file version cannot hold
 LINK_VERSION = {"probit": 2, "cloglog": 2, "ovr_logit": 3, "log1p": 3, "sqrt": 3,
-                "inverse": 3, "cauchit": 3}
+                "inverse": 3, "cauchit": 3, DECISION: 4}
 
 Level = Union[str, int]
 
