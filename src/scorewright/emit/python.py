@@ -94,6 +94,7 @@ def context(plan: Plan) -> dict:
         "outputs": [(name, code.outputs[name]) for name in output_names(plan)],
         "n_outputs": plan.n_outputs,
         "n_classes": 0 if plan.classes is None else len(plan.classes),
+        "probabilities": plan.has_probabilities,
     }
 
 

@@ -121,7 +121,7 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
     if "probabilities" in expected and not decisions_only:
         check("probability", expected["probabilities"], got.probabilities,
               tol.probability_ulps, tol.probability_abs)
-    if "probabilities" in expected:
+    if "class_index" in expected:
         labels_exp = expected["class_index"]
         labels_got = np.asarray(got.class_index)
         mismatch = labels_exp != labels_got if labels_got.shape == labels_exp.shape else \
