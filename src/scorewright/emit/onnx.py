@@ -11,8 +11,9 @@ Contract of the graph (also written into its doc string):
   numeric models only): one input `features` [N, F] in feature order. A caller
   feeding a float graph from doubles saturates out-of-range values to +-FLT_MAX
   (a plain cast makes them inf, which the graph reads as missing).
-- Outputs: margin [N, K]; classification: probability [N, C] in class order and
-  class_index [N] int64; regression: predicted_value [N, 1].
+- Outputs: margin [N, K]; classification: probability [N, C] in class order (not
+  for a "decision" head, whose margins are its decision function) and class_index
+  [N] int64; regression: predicted_value [N, 1].
 
 The graph renders the scoring program (`program.lower`) from `NODES`, the table of
 op -> node, and decides no semantics: every guard, scaling step, missing or unseen
@@ -161,6 +162,8 @@ def _check_names(plan: Plan, layout: str) -> None:
 def _output_names(plan: Plan) -> tuple[str, ...]:
     if plan.task == "regression":
         return ("margin", "predicted_value")
+    if not plan.has_probabilities:
+        return ("margin", "class_index")
     return ("margin", "probability", "class_index")
 
 

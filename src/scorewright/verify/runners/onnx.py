@@ -159,6 +159,7 @@ def _run_output(plan: Plan, runtime: str, outputs: dict) -> RunOutput:
     if plan.task == "regression":
         value = np.asarray(outputs["predicted_value"], dtype=np.float64)[:, 0]
         return RunOutput(runtime, margins, value=value)
-    probabilities = np.asarray(outputs["probability"], dtype=np.float64)
+    probabilities = np.asarray(outputs["probability"], dtype=np.float64) \
+        if plan.has_probabilities else None
     class_index = np.asarray(outputs["class_index"], dtype=np.int64)
     return RunOutput(runtime, margins, probabilities, class_index)
