@@ -184,6 +184,7 @@ def context(plan: Plan, name: str) -> dict:
         "outputs": ", ".join(string(o) for o in outputs),
         "n_outputs": plan.n_outputs,
         "n_program_outputs": len(outputs),
+        "probabilities": plan.has_probabilities,
         "levels": levels,
         "tables": [(t.split(".")[0], _array([literal(x) for x in values], "a level table"))
                    for t, values in r.table_list],
