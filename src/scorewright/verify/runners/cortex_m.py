@@ -85,12 +85,12 @@ def measured_calls(plan: Plan, prefix: str, decision_only: bool) -> list[tuple[s
                  (f"{P}_probability", f"v = {P}_probability(&in)"),
                  (f"{P}_predict", f"c = {P}_predict(&in)")]
         batch = f"{P}_predict_batch(row, 1, &b)"
-    if plan.task != "regression" and not plan.has_probabilities:
-        calls = [calls[0], calls[2]]  # a "decision" head: its batch gives the margins
     else:
         calls = [(f"{P}_margin", f"m = {P}_margin(&in)"),
                  (f"{P}_predict_value", f"v = {P}_predict_value(&in)")]
         batch = f"{P}_predict_batch(row, 1, &b)"
+    if plan.task != "regression" and not plan.has_probabilities:
+        calls = [calls[0], calls[2]]  # a "decision" head: its batch gives the margins
     return calls + [(f"{P}_predict_batch", batch)]
 
 
