@@ -311,3 +311,19 @@ def test_a_hand_written_decision_head_loads_and_scores():
     assert (m[:, 1] == m[:, 2]).all()
     np.testing.assert_array_equal(out["class_index"], np.argmax(m, axis=1))
     assert (out["class_index"] != 2).all()
+
+
+def test_tie_rows_of_a_model_with_categories():
+    """The tie rows move a numeric input; a categorical input's term is passed over."""
+    from sklearn.compose import ColumnTransformer
+    from sklearn.preprocessing import OneHotEncoder
+
+    x, y = load_iris(return_X_y=True, as_frame=True)
+    x["band"] = np.where(x.index % 3 == 0, "a", "b")
+    est = make_pipeline(ColumnTransformer([
+        ("band", OneHotEncoder(), ["band"]),
+        ("num", StandardScaler(), list(x.columns[:4]))]), RidgeClassifier()).fit(x, y)
+    model, _ = freeze_checked(est, check_rows=x)
+    names = [name for name, _ in edge_rows(build_plan(model))]
+    assert sum("near a tie" in n for n in names) >= 4
+    _against_source(model, est, x)

@@ -139,8 +139,10 @@ def _tie_rows(plan: Plan, base: dict) -> list[tuple[str, dict]]:
     for a in range(plan.n_outputs - 1):
         best, best_w = None, 0.0
         for term in plan.terms:
+            if term.kind != "numeric":
+                continue
             inp = plan.inputs[term.input]
-            gap = abs(term.weights[a] - term.weights[a + 1]) if term.kind == "numeric" else 0
+            gap = abs(term.weights[a] - term.weights[a + 1])
             if inp.clip is None and gap > best_w:
                 best, best_w = inp, gap
         if best is None:
