@@ -21,8 +21,13 @@ import numpy as np
 import pandas as pd
 import pytest
 from sklearn.datasets import load_breast_cancer, load_iris, load_wine
-from sklearn.linear_model import (PassiveAggressiveClassifier, Perceptron, RidgeClassifier,
-                                  RidgeClassifierCV, SGDClassifier)
+from sklearn.linear_model import (
+    PassiveAggressiveClassifier,
+    Perceptron,
+    RidgeClassifier,
+    RidgeClassifierCV,
+    SGDClassifier,
+)
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 from sklearn.svm import LinearSVC
@@ -228,7 +233,7 @@ def _verify(tmp_path, targets, options=None, n_random=60):
     from scorewright.verify.harness import build_targets
 
     for n_classes in (2, 3):
-        est, x, model = _integer_perceptron(n_classes)
+        _est, _x, model = _integer_perceptron(n_classes)
         report = build_targets(model, tmp_path / str(n_classes), targets=targets,
                                n_random=n_random, options=options, progress=None)
         assert report.ok, [(r.profile.name, r.message) for r in report.results]
@@ -299,7 +304,7 @@ def test_c_batch_gives_the_margins_bits(tmp_path):
 def test_a_hand_written_decision_head_loads_and_scores():
     """A head written by hand (no estimator): two classes tied on every row give the
     first of them, as np.argmax does."""
-    est, x, model = _integer_perceptron(3)
+    _est, x, model = _integer_perceptron(3)
     h = model.head
     rows = (h.coefficients[0], h.coefficients[1], h.coefficients[1])
     tied = dataclasses.replace(model, head=Head("multiclass", "decision", h.classes,

@@ -28,9 +28,9 @@ Evaluation, in order:
 3. Link: binary, the stable sigmoid (logit), the normal CDF (probit, through the
    upper tail in `normal_tail`) or 1 - exp(-exp(m)) (cloglog); multiclass, the
    max-shifted softmax; "decision" (binary or multiclass), none: the margins are the
-   decision function and no probability is computed; regression, identity or the guarded exp. Every `exp` argument is clamped to
-   [-exp_guard, +exp_guard] so no runtime overflows, underflows to a subnormal or
-   raises (PostgreSQL raises on both).
+   decision function and no probability is computed; regression, identity or the
+   guarded exp. Every `exp` argument is clamped to [-exp_guard, +exp_guard] so no
+   runtime overflows, underflows to a subnormal or raises (PostgreSQL raises on both).
 4. Decision: binary, the positive class iff margin > cut; multiclass, the class
    of the largest margin, lowest index on ties.
 

@@ -593,7 +593,10 @@ def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
     """The output values in `output_names` order. The class: binary, 1 iff margin > cut
     (-0.0 and 0.0 are not above a cut of 0.0); multiclass, the first largest margin (the
     lowest index on ties, as numpy's argmax). The "decision" link stops there: its margins
-    are the decision function, and it computes no probability (nor any exp)."""
+    are the decision function, and it computes no probability (nor any exp). No margin is
+    NaN (every input is clamped to its bound, every margin stays within the precision's
+    budget); were one, each rule is still these comparisons, false on NaN, the same on
+    every target: binary class 0, multiclass the class chosen before it."""
     guard = plan.precision.exp_guard
     if plan.task == "binary":
         m = margins[0]

@@ -153,13 +153,12 @@ def _tie_rows(plan: Plan, base: dict) -> list[tuple[str, dict]]:
             return m[k] - m[k + 1]
 
         lo, hi = _ordered(-best.bound), _ordered(best.bound)
-        rising = gap_at(best.bound) >= gap_at(-best.bound)
-        if not (gap_at(-best.bound) <= 0.0) == rising or gap_at(best.bound) == \
-                gap_at(-best.bound):
+        low_side = gap_at(-best.bound) <= 0.0
+        if (gap_at(best.bound) <= 0.0) == low_side:  # the margins do not cross
             continue
-        while hi - lo > 1:  # the last x whose gap is on the low side of 0
+        while hi - lo > 1:  # the last x on the side of 0 the gap starts on
             mid = (lo + hi) // 2
-            if (gap_at(_from_ordered(mid)) <= 0.0) == rising:
+            if (gap_at(_from_ordered(mid)) <= 0.0) == low_side:
                 lo = mid
             else:
                 hi = mid
