@@ -332,3 +332,36 @@ def test_tie_rows_of_a_model_with_categories():
     names = [name for name, _ in edge_rows(build_plan(model))]
     assert sum("near a tie" in n for n in names) >= 4
     _against_source(model, est, x)
+
+
+@pytest.mark.slow  # three command-line processes: several seconds
+def test_the_cli_freezes_shows_and_emits_a_decision_head(tmp_path):
+    """freeze (a pickled LinearSVC), show and emit through the command line."""
+    import pickle
+    import sys
+
+    x, y = load_iris(return_X_y=True, as_frame=True)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        (tmp_path / "svc.pkl").write_bytes(pickle.dumps(LinearSVC().fit(x, y)))
+
+    import os
+    from pathlib import Path
+
+    import scorewright
+
+    # this tree's scorewright, whatever the working directory
+    env = {**os.environ, "PYTHONPATH": str(Path(scorewright.__file__).parents[1])}
+
+    def run(*args):
+        return subprocess.run([sys.executable, "-m", "scorewright.cli", *args],
+                              capture_output=True, text=True, cwd=tmp_path, env=env)
+
+    frozen = run("freeze", "svc.pkl", "-o", "svc.json")
+    assert frozen.returncode == 0, frozen.stderr
+    shown = run("show", "svc.json")
+    assert "link decision" in shown.stdout and "no probabilities" in shown.stdout
+    emitted = run("emit", "svc.json", "--target", "python", "-o", "out")
+    assert emitted.returncode == 0, emitted.stderr
+    scorer = (tmp_path / "out" / "linearsvc.py").read_text()
+    assert "def decision_function" in scorer and "def predict_proba" not in scorer
