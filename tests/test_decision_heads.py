@@ -355,7 +355,7 @@ def test_the_cli_freezes_shows_and_emits_a_decision_head(tmp_path):
 
     def run(*args):
         return subprocess.run([sys.executable, "-m", "scorewright.cli", *args],
-                              capture_output=True, text=True, cwd=tmp_path, env=env)
+                              capture_output=True, text=True, cwd=tmp_path, env=env, check=False)
 
     frozen = run("freeze", "svc.pkl", "-o", "svc.json")
     assert frozen.returncode == 0, frozen.stderr
