@@ -313,12 +313,13 @@ def _source(estimator, frame, classifier, errors: list | None = None) -> np.ndar
 
 def _decisions(estimator, x, classes: tuple) -> np.ndarray:
     """decision_function's margins (n, K) beside the index in `classes` of predict's
-    class (the frozen model's class_index)."""
+    class (the frozen model's class_index; -1, which differs from every index, for a
+    label the frozen model does not have)."""
     from .sklearn import _class_label
 
     margins = np.asarray(estimator.decision_function(x), dtype=np.float64)
     index = {c: i for i, c in enumerate(classes)}
-    labels = [index[_class_label(v, "predict")] for v in estimator.predict(x)]
+    labels = [index.get(_class_label(v, "predict"), -1) for v in estimator.predict(x)]
     return np.column_stack([margins.reshape(len(labels), -1), np.asarray(labels, float)])
 
 
@@ -450,7 +451,8 @@ def _mismatch_message(model, what, index, record, source, ref) -> str:
         outputs = (f"decision function {k}: source {float(source[k])!r}, frozen "
                    f"{float(ref[k])!r}")
         if source[-1] != ref[-1]:
-            outputs = (f"class: source {model.head.classes[int(source[-1])]!r}, frozen "
+            label = model.head.classes[int(source[-1])] if source[-1] >= 0 else "another"
+            outputs = (f"class: source {label!r}, frozen "
                        f"{model.head.classes[int(ref[-1])]!r} ({outputs})")
     elif model.head.task == "regression":
         outputs = f"source {float(source[0])!r}, frozen {float(ref[0])!r}"
