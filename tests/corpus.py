@@ -1,9 +1,10 @@
 """A practitioner corpus: pipelines of the kinds credit-risk, insurance-pricing, marketing and
 equipment teams fit, on invented data of four scenarios (no real people or companies).
 
-Each entry is (name, fitted estimator, the frame it was fitted on). Sixteen pipeline
+Each entry is (name, fitted estimator, the frame it was fitted on). Eighteen pipeline
 shapes (transforms, bins, splines, interactions, missing indicators, encoders, every linear
-head) times the four scenarios give 64 pipelines; `build(name)` is cached per process.
+head, decision-function classifiers) times the four scenarios give 72 pipelines;
+`build(name)` is cached per process.
 """
 
 from __future__ import annotations
@@ -45,7 +46,7 @@ def _scenario(kind: str, n: int = 900):
 
 def _shapes(amount: str):
     from sklearn import compose, discriminant_analysis as da, impute, linear_model as lm
-    from sklearn import pipeline as pl, preprocessing as pp
+    from sklearn import pipeline as pl, preprocessing as pp, svm
     from sklearn.model_selection import KFold
 
     def cols(*parts, remainder="drop"):
@@ -119,6 +120,10 @@ def _shapes(amount: str):
         "huber_log_target": ("positive", lambda: pl.make_pipeline(
             cols(num_logged, num_plain, cats), compose.TransformedTargetRegressor(
                 lm.HuberRegressor(max_iter=2000), func=np.log, inverse_func=np.exp))),
+        "ridge_classifier_decision": ("binary", lambda: pl.make_pipeline(
+            cols(num_logged, num_plain, cats), lm.RidgeClassifier(alpha=1.0))),
+        "linear_svc_three": ("three", lambda: pl.make_pipeline(
+            cols(num_logged, num_plain, cats), svm.LinearSVC(C=0.5))),
     }
 
 

@@ -104,6 +104,7 @@ def corpus():
     yield "a JSON array", "[]", "object"
     yield from _version_2_corpus()
     yield from _version_3_corpus()
+    yield from _version_4_corpus()
 
 
 def _version_2_corpus():
@@ -135,6 +136,24 @@ def _version_3_corpus():
     good = json.loads(scorewright.freeze(est, check_rows=x).to_json())
     assert good["format_version"] == 3
     yield from _removed_and_mistyped(good, "format 3")
+
+
+def _version_4_corpus():
+    """Every key removed and every value of the wrong type in a format-4 model (a
+    three-class RidgeClassifier, the decision link): each refused."""
+    from sklearn.datasets import load_iris
+    from sklearn.linear_model import RidgeClassifier
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    import scorewright
+
+    x, y = load_iris(return_X_y=True, as_frame=True)
+    x = x.iloc[:, :2]
+    est = make_pipeline(StandardScaler(), RidgeClassifier()).fit(x, y)
+    good = json.loads(scorewright.freeze(est, check_rows=x).to_json())
+    assert good["format_version"] == 4 and good["head"]["link"] == "decision"
+    yield from _removed_and_mistyped(good, "format 4")
 
 
 def _removed_and_mistyped(good: dict, label: str):

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import math
 
-from .model import TRANSFORM_DOMAIN, FrozenModel, NumericFeature, outside_text
+from .model import DECISION, TRANSFORM_DOMAIN, FrozenModel, NumericFeature, outside_text
 from .plan import build_plan
 
 
@@ -43,7 +43,15 @@ def describe_model(model: FrozenModel) -> str:
            f"task      {head.task} (link {head.link})"]
     if head.classes is not None:
         out.append("classes   " + ", ".join(repr(c) for c in head.classes))
-    if head.task == "binary":
+    if head.link == DECISION:
+        each = "one margin per class" if head.task == "multiclass" else "one margin"
+        out.append(f"outputs   the decision function ({each}) and the class; no probabilities")
+    if head.task == "binary" and head.link == DECISION:
+        out.append(f"cut       margin > {head.cut!r} predicts {head.classes[1]!r} (a margin of "
+                   f"exactly {head.cut!r} predicts {head.classes[0]!r})")
+    elif head.task == "multiclass" and head.link == DECISION:
+        out.append("decision  the class of the largest margin (the first on ties)")
+    elif head.task == "binary":
         p = 1.0 / (1.0 + math.exp(-head.cut)) if abs(head.cut) < 700 else float(head.cut > 0)
         out.append(f"cut       margin > {head.cut!r} predicts {head.classes[1]!r} "
                    f"(probability > {p:.6g})")

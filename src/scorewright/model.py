@@ -24,10 +24,11 @@ from .files import write_atomic
 
 FORMAT = "scorewright-frozen-model"
 # Version 2 adds the probit and cloglog links and the term kinds of TRANSFORM_OPS, BINS,
-# missing indicators, products and encodings; version 3 adds splines (SPLINE). A model is
-# written in the lowest version that can say it, so every model an older version could
-# hold is written as before (its file and sha256 unchanged); this scorewright reads all.
-# Version 4 adds a numeric feature's `role` (ROLES): the offset or exposure input.
+# missing indicators, products and encodings; version 3 adds splines (SPLINE); version 4
+# adds the "decision" link (a classifier with a decision function and no probabilities) and
+# a numeric feature's `role` (ROLES: the offset or exposure input). A model is written in
+# the lowest version that can say it, so every model an older version could hold is
+# written as before (its file and sha256 unchanged); this scorewright reads all.
 FORMAT_VERSION = 4
 READS_VERSIONS = (1, 2, 3, 4)
 
@@ -46,13 +47,16 @@ TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, Fal
                     "box_cox": (0.0, True)}
 # multiclass "ovr_logit": one-vs-rest logistic, each class's sigmoid divided by their sum;
 # regression "log1p": the value is expm1(margin), "sqrt": the value is margin * margin,
-# "inverse": 1 / margin (statsmodels' InversePower); binary "cauchit": the Cauchy CDF
-TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit", "log"),
-              "multiclass": ("softmax", "ovr_logit"),
+# "inverse": 1 / margin (statsmodels' InversePower); binary "cauchit": the Cauchy CDF;
+# binary and multiclass "decision": the margins (a decision function) and the class, no
+# probabilities (scikit-learn's RidgeClassifier, LinearSVC, Perceptron, SGDClassifier...)
+DECISION = "decision"
+TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit", "log", DECISION),
+              "multiclass": ("softmax", "ovr_logit", DECISION),
               "regression": ("identity", "log", "log1p", "sqrt", "inverse")}
 # links an older file version cannot hold
 LINK_VERSION = {"probit": 2, "cloglog": 2, "ovr_logit": 3, "log1p": 3, "sqrt": 3,
-                "inverse": 3, "cauchit": 3}
+                "inverse": 3, "cauchit": 3, DECISION: 4}
 
 Level = Union[str, int]
 
@@ -233,30 +237,35 @@ def format_version(model: FrozenModel) -> int:
 
 
 def needs_version(model: FrozenModel) -> tuple[int, str]:
-    """The lowest format version that can hold the model, and what needs it."""
+    """The lowest format version that can hold the model, and what needs it (the
+    first construct of the highest version it uses)."""
+    return max(_needs(model), key=lambda need: need[0], default=(1, ""))
+
+
+def _needs(model: FrozenModel):
+    """(version, what) for every construct of the model an older version cannot hold."""
     for feat in model.features:
         if getattr(feat, "role", None) is not None:
-            return 4, f"the {feat.role} role of feature {feat.name!r}"
+            yield 4, f"the {feat.role} role of feature {feat.name!r}"
     for feat in model.features:
         for step in getattr(feat, "scaling", ()):
             if step.op == SPLINE or step.op in POWER_OPS:
-                return 3, f"the {step.op} step of feature {feat.name!r}"
+                yield 3, f"the {step.op} step of feature {feat.name!r}"
     if model.head.link in LINK_VERSION:
-        return LINK_VERSION[model.head.link], f"the {model.head.link} link"
+        yield LINK_VERSION[model.head.link], f"the {model.head.link} link"
     if model.head.task == "binary" and model.head.link == "log":
-        return 3, "the log link of a binary head"
+        yield 3, "the log link of a binary head"
     for feat in model.features:
         for step in getattr(feat, "scaling", ()):
             if step.op in TRANSFORM_OPS or step.op == BINS:
-                return 2, f"the {step.op} transform of feature {feat.name!r}"
+                yield 2, f"the {step.op} transform of feature {feat.name!r}"
     for col in model.design:
         if col.missing is not None:
-            return 2, f"the missing indicator of feature {col.feature!r}"
+            yield 2, f"the missing indicator of feature {col.feature!r}"
         if col.product is not None:
-            return 2, f"the product column of feature {col.feature!r}"
+            yield 2, f"the product column of feature {col.feature!r}"
         if col.encoded is not None:
-            return 2, f"the encoded column of feature {col.feature!r}"
-    return 1, ""
+            yield 2, f"the encoded column of feature {col.feature!r}"
 
 
 def _document_body(model: FrozenModel) -> dict:

@@ -29,10 +29,11 @@ Evaluation, in order:
    offset's, then the intercept.
 3. Link: binary, the stable sigmoid (logit), the normal CDF (probit, through the
    upper tail in `normal_tail`) or 1 - exp(-exp(m)) (cloglog); multiclass, the
-   max-shifted softmax; regression, identity or the guarded exp (with an offset: the
-   count from the first margin, the rate from the second). Every `exp` argument is clamped to
-   [-exp_guard, +exp_guard] so no runtime overflows, underflows to a subnormal or
-   raises (PostgreSQL raises on both).
+   max-shifted softmax; "decision" (binary or multiclass), none: the margins are the
+   decision function and no probability is computed; regression, identity or the
+   guarded exp (with an offset: the count from the first margin, the rate from the
+   second). Every `exp` argument is clamped to [-exp_guard, +exp_guard] so no runtime
+   overflows, underflows to a subnormal or raises (PostgreSQL raises on both).
 4. Decision: binary, the positive class iff margin > cut; multiclass, the class
    of the largest margin, lowest index on ties.
 
@@ -53,7 +54,7 @@ import re
 from dataclasses import dataclass
 
 from .errors import ScorewrightError
-from .model import (BINS, POWER_OPS, SPLINE, TRANSFORM_OPS, CategoricalFeature,
+from .model import (BINS, DECISION, POWER_OPS, SPLINE, TRANSFORM_OPS, CategoricalFeature,
                     FrozenModel, NumericFeature, ScalingStep, bin_count)
 
 
@@ -174,7 +175,13 @@ class Plan:
 
     @property
     def n_probabilities(self) -> int:
-        return 0 if self.task == "regression" else len(self.classes)
+        return len(self.classes) if self.has_probabilities else 0
+
+    @property
+    def has_probabilities(self) -> bool:
+        """A classifier whose link gives probabilities (a "decision" head gives its margins
+        and its class alone)."""
+        return self.task != "regression" and self.link != DECISION
 
 
 def file_stem(name: str) -> str:
@@ -497,13 +504,15 @@ def lookup_terms(plan: Plan) -> list[tuple[int, Term]]:
 
 
 def output_columns(plan: Plan) -> tuple[str, ...]:
-    """The output columns every tabular target appends, in order."""
+    """The output columns every tabular target appends, in order (a "decision" head has
+    no probability columns)."""
     if plan.task == "binary":
-        return ("margin", "probability", "predicted_class")
+        return ("margin", "probability", "predicted_class") if plan.has_probabilities \
+            else ("margin", "predicted_class")
     if plan.task == "multiclass":
         k = plan.n_outputs
-        return (tuple(f"margin_{j}" for j in range(k)) + tuple(f"probability_{j}" for j in range(k))
-                + ("predicted_class",))
+        probs = tuple(f"probability_{j}" for j in range(k)) if plan.has_probabilities else ()
+        return tuple(f"margin_{j}" for j in range(k)) + probs + ("predicted_class",)
     if plan.offset is not None:
         return ("margin", "predicted_value", "predicted_rate")
     return ("margin", "predicted_value")

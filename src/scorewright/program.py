@@ -188,7 +188,7 @@ def output_names(plan: Plan) -> tuple[str, ...]:
     margins = tuple(f"margin_{k}" for k in range(plan.n_margins))
     if plan.task == "regression":
         return margins + (("value", "rate") if plan.offset is not None else ("value",))
-    probs = tuple(f"probability_{j}" for j in range(len(plan.classes)))
+    probs = tuple(f"probability_{j}" for j in range(plan.n_probabilities))
     return margins + probs + ("class_index",)
 
 
@@ -601,19 +601,27 @@ def _lower_code(b: _Builder, inp: CategoricalInput) -> str:
 
 
 def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
-    """The output values in `output_columns` order."""
+    """The output values in `output_names` order. The class: binary, 1 iff margin > cut
+    (-0.0 and 0.0 are not above a cut of 0.0); multiclass, the first largest margin (the
+    lowest index on ties, as numpy's argmax). The "decision" link stops there: its margins
+    are the decision function, and it computes no probability (nor any exp). No margin is
+    NaN (every input is clamped to its bound, every margin stays within the precision's
+    budget); were one, each rule is still these comparisons, false on NaN, the same on
+    every target: binary class 0, multiclass the class chosen before it."""
     guard = plan.precision.exp_guard
     if plan.task == "binary":
         m = margins[0]
-        p0, p1 = _BINARY_LINKS[plan.link](b, plan, m)
+        probs = _BINARY_LINKS[plan.link](b, plan, m) if plan.has_probabilities else ()
         cls = b.emit("select", b.emit("gt", m, Const(plan.cut)), Const(1), Const(0), hint="k")
-        return [m, p0, p1, cls]
+        return [m, *probs, cls]
     if plan.task == "multiclass":
         top, best = margins[0], Const(0)
         for k in range(1, len(margins)):
             higher = b.emit("gt", margins[k], top)
             top = b.emit("select", higher, margins[k], top)
             best = b.emit("select", higher, Const(k), best, hint="k")
+        if not plan.has_probabilities:
+            return [*margins, best]
         if plan.link == "ovr_logit":
             # one-vs-rest: each class's sigmoid, divided by their sum
             sig = [_lower_logit(b, plan, m)[1] for m in margins]

@@ -123,6 +123,8 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         "pick": pick_name(prefix, PRECISIONS["double"]),
         "pickf": pick_name(prefix, PRECISIONS["float"]),
         "decision_only": decision_only,
+        # a "decision" head's row functions give margins and the class, its batch the margins
+        "probabilities": plan.has_probabilities,
         "portable_exp": routine,
         "exp_fn": exp_fn,
         "libm_exp": libm_exp,
@@ -148,10 +150,12 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
 def _batch(program: Program, spelling: Spelling, prec: CPrecision, prefix: str,
            tables: dict) -> dict:
     """The batch scorer's passes (c_batch): it writes the probabilities (the value of a
-    regression, then its rate with an offset); a binary model's batch row holds the
-    probability of class 1 alone."""
+    regression, then its rate with an offset; a "decision" head's margins, its decision
+    function); a binary model's batch row holds the probability of class 1 alone."""
     plan = program.plan
     outputs = [o for o in output_names(plan) if o.startswith(LINKED)]
+    if not plan.has_probabilities and plan.task != "regression":
+        outputs = [o for o in output_names(plan) if o.startswith("margin_")]
     if plan.task == "binary":
         outputs = outputs[-1:]
     margin_part = {op.dest for cone, _ in split_margins(program).groups for op in cone}

@@ -186,6 +186,7 @@ def context(plan: Plan, name: str) -> dict:
         "n_margins": plan.n_margins,
         "has_rate": plan.offset is not None,
         "n_program_outputs": len(outputs),
+        "probabilities": plan.has_probabilities,
         "levels": levels,
         "tables": [(t.split(".")[0], _array([literal(x) for x in values], "a level table"))
                    for t, values in r.table_list],

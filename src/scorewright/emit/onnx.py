@@ -11,9 +11,10 @@ Contract of the graph (also written into its doc string):
   numeric models only): one input `features` [N, F] in feature order. A caller
   feeding a float graph from doubles saturates out-of-range values to +-FLT_MAX
   (a plain cast makes them inf, which the graph reads as missing).
-- Outputs: margin [N, K]; classification: probability [N, C] in class order and
-  class_index [N] int64; regression: predicted_value [N, 1], and with an offset or
-  exposure predicted_rate [N, 1] (the value of the margin without it).
+- Outputs: margin [N, K]; classification: probability [N, C] in class order (not
+  for a "decision" head, whose margins are its decision function) and class_index
+  [N] int64; regression: predicted_value [N, 1], and with an offset or exposure
+  predicted_rate [N, 1] (the value of the margin without it).
 
 The graph renders the scoring program (`program.lower`) from `NODES`, the table of
 op -> node, and decides no semantics: every guard, scaling step, missing or unseen
@@ -169,6 +170,8 @@ def _output_names(plan: Plan) -> tuple[str, ...]:
         if plan.offset is not None:
             return ("margin", "predicted_value", "predicted_rate")
         return ("margin", "predicted_value")
+    if not plan.has_probabilities:
+        return ("margin", "class_index")
     return ("margin", "probability", "class_index")
 
 

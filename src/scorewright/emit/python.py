@@ -102,6 +102,7 @@ def context(plan: Plan) -> dict:
         "has_rate": plan.offset is not None,
         "role": None if plan.offset is None else _role(plan),
         "n_classes": 0 if plan.classes is None else len(plan.classes),
+        "probabilities": plan.has_probabilities,
     }
 
 

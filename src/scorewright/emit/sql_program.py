@@ -101,13 +101,14 @@ class Query:
 
 def sql_outputs(plan: Plan) -> list[tuple[str, str]]:
     """(output column of the query, the program output it shows)."""
+    probs = plan.has_probabilities  # a "decision" head shows its margins and class alone
     if plan.task == "binary":
-        return [("margin", "margin_0"), ("probability", "probability_1"),
-                ("predicted_class", "class_index")]
+        return [("margin", "margin_0")] + [("probability", "probability_1")] * probs \
+            + [("predicted_class", "class_index")]
     if plan.task == "multiclass":
         k = plan.n_outputs
         return ([(f"margin_{j}", f"margin_{j}") for j in range(k)]
-                + [(f"probability_{j}", f"probability_{j}") for j in range(k)]
+                + [(f"probability_{j}", f"probability_{j}") for j in range(k * probs)]
                 + [("predicted_class", "class_index")])
     if plan.offset is not None:  # the expected count, then the rate (no offset)
         return [("margin", "margin_0"), ("predicted_value", "value"),

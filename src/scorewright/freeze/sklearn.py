@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import (BINS, SPLINE, SPLINE_DEGREES, TRANSFORM_DOMAIN, TRANSFORM_OPS,
+from ..model import (BINS, DECISION, SPLINE, SPLINE_DEGREES, TRANSFORM_DOMAIN, TRANSFORM_OPS,
                      CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
                      ScalingStep, in_domain, outside_text)
 from .provenance import provenance
@@ -923,9 +923,7 @@ def _linear_head(est, path) -> Head:
     if kind in (LogisticRegression, LogisticRegressionCV, SGDClassifier,
                 LinearDiscriminantAnalysis):
         if kind is SGDClassifier and est.loss != "log_loss":
-            raise Unsupported(f"SGDClassifier(loss={est.loss!r}) at {path}: only loss='log_loss' "
-                              "gives probabilities; wrap it in CalibratedClassifierCV("
-                              "method='sigmoid', ensemble=False), which is frozen")
+            return _decision_head(est, path)
         classes = tuple(_class_label(c, path) for c in est.classes_)
         coef = np.asarray(est.coef_, dtype=np.float64)
         intercept = np.atleast_1d(np.asarray(est.intercept_, dtype=np.float64))
@@ -961,13 +959,46 @@ def _linear_head(est, path) -> Head:
         # fit's negative binomial model: the mean is exp(intercept_ + x coef_)
         return Head("regression", "log", None, (float(est.intercept_),),
                     (tuple(map(float, est.coef_)),), None)
-    if kind.__name__ in ("RidgeClassifier", "RidgeClassifierCV", "LinearSVC", "Perceptron",
-                         "PassiveAggressiveClassifier"):
-        raise Unsupported(f"{kind.__name__} at {path} gives a decision function but no "
-                          "probabilities, and every frozen classifier outputs probabilities; "
-                          "wrap it in CalibratedClassifierCV(method='sigmoid', "
-                          "ensemble=False), which is frozen")
+    if kind.__name__ in DECISION_KINDS and kind.__module__.startswith("sklearn."):
+        return _decision_head(est, path)
     raise Unsupported(f"unsupported estimator {kind.__name__} at {path}")
+
+
+# Linear classifiers with a decision function and no probabilities (with SGDClassifier of
+# any loss but log_loss): frozen as "decision" heads, their margins and class alone.
+DECISION_KINDS = ("RidgeClassifier", "RidgeClassifierCV", "LinearSVC", "Perceptron",
+                  "PassiveAggressiveClassifier")
+
+
+def _decision_head(est, path) -> Head:
+    """A linear classifier frozen as its decision function (scikit-learn's
+    LinearClassifierMixin: X coef_.T + intercept_, one column for two classes) and its
+    class (predict: classes_[1] where the one margin is > 0, else the first largest
+    margin, as np.argmax). SGDClassifier(loss='modified_huber') has a predict_proba too,
+    (clip(margin, -1, 1) + 1) / 2 normalised across classes, which no frozen link states;
+    it is frozen decision-only like the others: its predict is this rule on the margins,
+    and where two margins clip to the same value predict_proba's largest probability does
+    not even name predict's class."""
+    binarizer = getattr(est, "_label_binarizer", None)  # RidgeClassifier's
+    if str(getattr(binarizer, "y_type_", "")).startswith("multilabel"):
+        raise Unsupported(f"{type(est).__name__} at {path} is multilabel; only single-label "
+                          "models are frozen")
+    classes = tuple(_class_label(c, path) for c in est.classes_)
+    coef = np.atleast_2d(np.asarray(est.coef_, dtype=np.float64))
+    intercept = np.atleast_1d(np.asarray(est.intercept_, dtype=np.float64))
+    if intercept.shape == (1,) and coef.shape[0] > 1:  # fit_intercept=False gives 0.0
+        intercept = np.repeat(intercept, coef.shape[0])
+    rows = 1 if len(classes) == 2 else len(classes)
+    if coef.shape[0] != rows or intercept.shape != (rows,):
+        raise Unsupported(f"{type(est).__name__} at {path} has {coef.shape[0]} decision "
+                          f"function columns for {len(classes)} classes; only single-label "
+                          "models (one column for two classes, one per class otherwise) "
+                          "are frozen")
+    intercepts = tuple(map(float, intercept))
+    coefs = tuple(tuple(map(float, row)) for row in coef)
+    if rows == 1:
+        return Head("binary", DECISION, classes, intercepts, coefs, 0.0)
+    return Head("multiclass", DECISION, classes, intercepts, coefs, None)
 
 
 def _one_vs_rest(est) -> bool:

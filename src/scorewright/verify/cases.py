@@ -130,6 +130,47 @@ def edge_rows(plan: Plan) -> list[tuple[str, dict]]:
             row[inp.name] = value
             out.append((f"{inp.name!r} = {value!r}", row))
     out.extend(_margin_rows(plan, base))
+    if plan.task == "multiclass" and not plan.has_probabilities:
+        out.extend(_tie_rows(plan, base))
+    return out
+
+
+def _tie_rows(plan: Plan, base: dict) -> list[tuple[str, dict]]:
+    """A multiclass decision head's ties: for each pair of neighbouring classes, the
+    doubles either side of where their margins cross (an exact tie where one exists),
+    moving the numeric input that separates them the most."""
+    out = []
+    for a in range(plan.n_outputs - 1):
+        best, best_w = None, 0.0
+        for term in plan.terms:
+            if term.kind != "numeric":
+                continue
+            inp = plan.inputs[term.input]
+            gap = abs(term.weights[a] - term.weights[a + 1])
+            if inp.clip is None and gap > best_w:
+                best, best_w = inp, gap
+        if best is None:
+            continue
+
+        def gap_at(x: float, lever=best, k=a) -> float:
+            m = score_row(plan, dict(base, **{lever.name: x})).margins
+            return m[k] - m[k + 1]
+
+        lo, hi = _ordered(-best.bound), _ordered(best.bound)
+        low_side = gap_at(-best.bound) <= 0.0
+        if (gap_at(best.bound) <= 0.0) == low_side:  # the margins do not cross
+            continue
+        while hi - lo > 1:  # the last x on the side of 0 the gap starts on
+            mid = (lo + hi) // 2
+            if (gap_at(_from_ordered(mid)) <= 0.0) == low_side:
+                lo = mid
+            else:
+                hi = mid
+        for i in (lo - 1, lo, hi, hi + 1):
+            x = _from_ordered(i)
+            if -best.bound <= x <= best.bound:
+                out.append((f"classes {a} and {a + 1} near a tie ({best.name!r} = {x!r})",
+                            dict(base, **{best.name: x})))
     return out
 
 

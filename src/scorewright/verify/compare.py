@@ -121,7 +121,7 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
     if "probabilities" in expected and not decisions_only:
         check("probability", expected["probabilities"], got.probabilities,
               tol.probability_ulps, tol.probability_abs)
-    if "probabilities" in expected:
+    if "class_index" in expected:
         labels_exp = expected["class_index"]
         labels_got = np.asarray(got.class_index)
         mismatch = labels_exp != labels_got if labels_got.shape == labels_exp.shape else \
@@ -148,8 +148,12 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
 
 
 def _near_decision(expected: dict, tol: Tolerance) -> np.ndarray:
-    """Rows whose decision is within the target's stated margin tolerance of flipping."""
+    """Rows whose decision is within the target's stated margin tolerance of flipping. A
+    target stated exact (no margin tolerance) is excused nothing: a margin exactly at the
+    cut, or an exact tie, must give the program's class."""
     margins = expected["margins"]
+    if not (tol.margin_abs > 0 or tol.margin_ulps > 0):
+        return np.zeros(margins.shape[0], dtype=bool)
     slack = np.maximum(tol.margin_abs, 0.0)
     if tol.margin_ulps:
         dtype = np.float32 if tol.precision == "float" else np.float64

@@ -132,7 +132,9 @@ def expected_outputs(plan: Plan, rows: list[dict]) -> dict:
         if plan.offset is not None:
             out["rate"] = np.array([s.rate for s in scores], dtype=np.float64)
     else:
-        out["probabilities"] = np.array([s.probabilities for s in scores], dtype=np.float64)
+        if plan.has_probabilities:
+            out["probabilities"] = np.array([s.probabilities for s in scores],
+                                            dtype=np.float64)
         out["class_index"] = np.array([s.class_index for s in scores], dtype=np.int64)
     return out
 
@@ -351,8 +353,9 @@ def _show_row(i, labels, rows, expected, got, comparison) -> dict:
     shown["got"]["margins"] = [_plain(v) for v in np.asarray(got.margins)[i]]
     if "probabilities" in expected:
         shown["expected"]["probabilities"] = [_plain(v) for v in expected["probabilities"][i]]
-        shown["expected"]["class_index"] = int(expected["class_index"][i])
         shown["got"]["probabilities"] = [_plain(v) for v in np.asarray(got.probabilities)[i]]
+    if "class_index" in expected:
+        shown["expected"]["class_index"] = int(expected["class_index"][i])
         shown["got"]["class_index"] = _plain(np.asarray(got.class_index)[i])
     if "value" in expected:
         shown["expected"]["value"] = _plain(expected["value"][i])

@@ -54,6 +54,7 @@ def make_vectors(model) -> dict:
         item = {"margins": [_hex(v) for v in exp["margins"][i]]}
         if "probabilities" in exp:
             item["probabilities"] = [_hex(v) for v in exp["probabilities"][i]]
+        if "class_index" in exp:
             item["class_index"] = int(exp["class_index"][i])
         else:
             item["value"] = _hex(exp["value"][i])
@@ -79,8 +80,9 @@ def load_vectors(path: Path, plan: Plan):
         if plan.offset is not None:
             out["rate"] = np.array([float.fromhex(e["rate"]) for e in exp])
     else:
-        out["probabilities"] = np.array([[float.fromhex(v) for v in e["probabilities"]]
-                                         for e in exp])
+        if plan.has_probabilities:
+            out["probabilities"] = np.array([[float.fromhex(v) for v in e["probabilities"]]
+                                             for e in exp])
         out["class_index"] = np.array([e["class_index"] for e in exp], dtype=np.int64)
     return doc["labels"], rows, out
 

@@ -161,6 +161,7 @@ def _run_output(plan: Plan, runtime: str, outputs: dict) -> RunOutput:
         rate = None if plan.offset is None else \
             np.asarray(outputs["predicted_rate"], dtype=np.float64)[:, 0]
         return RunOutput(runtime, margins, value=value, rate=rate)
-    probabilities = np.asarray(outputs["probability"], dtype=np.float64)
+    probabilities = np.asarray(outputs["probability"], dtype=np.float64) \
+        if plan.has_probabilities else None
     class_index = np.asarray(outputs["class_index"], dtype=np.int64)
     return RunOutput(runtime, margins, probabilities, class_index)
