@@ -190,8 +190,9 @@ def test_passthrough_and_drop_columns():
     (lambda: make_pipeline(StandardScaler(), SplineTransformer(), LogisticRegression()),
      "SplineTransformer at pipeline step 'splinetransformer' (position 1)"),
     (lambda: make_pipeline(StandardScaler(), SGDClassifier(loss="hinge")), "loss='hinge'"),
-    (lambda: make_pipeline(QuantileTransformer(n_quantiles=50), LogisticRegression()),
-     "QuantileTransformer at pipeline step 'quantiletransformer' (position 0)"),
+    (lambda: make_pipeline(StandardScaler(), QuantileTransformer(n_quantiles=50),
+                           LogisticRegression()),
+     "QuantileTransformer at pipeline step 'quantiletransformer' (position 1)"),
 ])
 def test_unsupported_components_are_named_with_their_position(build, needle):
     X, signal = _frame()
