@@ -486,17 +486,38 @@ def _horner(b: _Builder, coefs, r):
 
 def _lower_ndtri(b: _Builder, p):
     """The inverse normal CDF of p in [QUANTILE_CLIP, 1 - QUANTILE_CLIP] by AS 241 (above),
-    in primitives and the program's own log, so every target computes the same bits."""
+    in primitives and the program's own log, so every target computes the same bits.
+    Each branch is computed on operands clamped to the range where it is selected (|q| <=
+    0.425 for the central one, 0 <= r - 1.6 <= 2.5 for the tail, r <= 4.02 there), which
+    changes no selected value and bounds every divisor away from zero."""
     q = b.emit("sub", p, Const(0.5))
-    r = b.emit("sub", Const(0.180625), b.emit("mul", q, q))
-    central = b.emit("div", b.emit("mul", q, _horner(b, NDTRI_A, r)), _horner(b, NDTRI_B, r))
+    qc = b.emit("min", b.emit("max", q, Const(-0.425)), Const(0.425))
+    r = b.emit("sub", Const(0.180625), b.emit("mul", qc, qc))
+    central = b.emit("div", b.emit("mul", qc, _horner(b, NDTRI_A, r)), _horner(b, NDTRI_B, r))
     below = b.emit("gt", Const(0.0), q, hint="f")
     tail_p = b.emit("select", below, p, b.emit("sub", Const(1.0), p))
-    t = b.emit("sub", b.emit("sqrt", b.emit("neg", _lower_log(b, tail_p))), Const(1.6))
+    t = b.emit("sub", b.emit("sqrt", b.emit("neg", _lower_log_unit(b, tail_p))), Const(1.6))
+    t = b.emit("min", b.emit("max", t, Const(0.0)), Const(2.5))
     tail = b.emit("div", _horner(b, NDTRI_C, t), _horner(b, NDTRI_D, t))
     tail = b.emit("select", below, b.emit("neg", tail), tail)
     return b.emit("select", b.emit("ge", Const(0.425), b.emit("abs", q), hint="f"), central,
                   tail, hint="v")
+
+
+def _lower_log_unit(b: _Builder, x):
+    """`_lower_log` of x in [2^-31, 1], the same operations on the same values: the range
+    reduction scales x up by selected powers of two (x * 2^j where it applies, rather than
+    x times a selected factor, so PostgreSQL's underflow guards see products by
+    constants) into [1, 2), then halves it past sqrt(2); then the same series."""
+    k = Const(0.0)
+    for j in (16, 8, 4, 2, 1):
+        down = b.emit("gt", Const(2.0 ** (1 - j)), x)
+        x = b.emit("select", down, b.emit("mul", x, Const(2.0 ** j)), x)
+        k = b.emit("sub", k, b.emit("select", down, Const(float(j)), Const(0.0)))
+    over = b.emit("gt", x, Const(math.sqrt(2.0)))
+    x = b.emit("select", over, b.emit("mul", x, Const(0.5)), x)
+    k = b.emit("add", k, b.emit("select", over, Const(1.0), Const(0.0)))
+    return _log_series(b, x, k)
 
 
 def ndtri(p: float) -> float:
@@ -682,6 +703,11 @@ def _lower_log(b: _Builder, x, single: bool = False):
     over = b.emit("gt", x, Const(math.sqrt(2.0)))
     x = b.emit("mul", x, b.emit("select", over, Const(0.5), Const(1.0)))
     k = b.emit("add", k, b.emit("select", over, Const(1.0), Const(0.0)))
+    return _log_series(b, x, k)
+
+
+def _log_series(b: _Builder, x, k):
+    """log(x * 2^k) for x in [sqrt(2)/2, sqrt(2)] (`_lower_log`'s second half)."""
     f = b.emit("sub", x, Const(1.0))
     s = b.emit("div", f, b.emit("add", Const(2.0), f))
     z = b.emit("mul", s, s)
