@@ -1,9 +1,9 @@
 """A practitioner corpus: pipelines of the kinds credit-risk, insurance-pricing, marketing and
 equipment teams fit, on invented data of four scenarios (no real people or companies).
 
-Each entry is (name, fitted estimator, the frame it was fitted on). Sixteen pipeline
-shapes (transforms, bins, splines, interactions, missing indicators, encoders, every linear
-head) times the four scenarios give 64 pipelines; `build(name)` is cached per process.
+Each entry is (name, fitted estimator, the frame it was fitted on). Eighteen pipeline
+shapes (transforms, bins, splines, quantiles, norms, interactions, missing indicators,
+encoders, every linear head) times the four scenarios give 72 pipelines; `build(name)` is cached per process.
 """
 
 from __future__ import annotations
@@ -119,6 +119,17 @@ def _shapes(amount: str):
         "huber_log_target": ("positive", lambda: pl.make_pipeline(
             cols(num_logged, num_plain, cats), compose.TransformedTargetRegressor(
                 lm.HuberRegressor(max_iter=2000), func=np.log, inverse_func=np.exp))),
+        "quantile_logistic": ("binary", lambda: pl.make_pipeline(
+            cols(("qn", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
+                                         pp.QuantileTransformer(
+                                             n_quantiles=100, output_distribution="normal")),
+                  [amount, "score"]),
+                 ("qu", pp.QuantileTransformer(n_quantiles=50), ["events"]), cats),
+            lm.LogisticRegression(max_iter=3000))),
+        "normalized_ridge": ("positive", lambda: pl.make_pipeline(
+            cols(("nz", pl.make_pipeline(impute.SimpleImputer(), pp.StandardScaler(),
+                                         pp.Normalizer()), [amount, "events", "score"]),
+                 cats), lm.Ridge(alpha=1.0))),
     }
 
 

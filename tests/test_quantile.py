@@ -329,3 +329,58 @@ def test_each_mode_verifies_on_every_double_profile(kind, tmp_path, postgres_dsn
                                                "sql-spark-long"],
                            options={"sql": {"dsn": postgres_dsn}}, progress=None)
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
+
+
+@pytest.mark.slow
+def test_the_c_batch_scorer_gives_the_programs_bits(tmp_path):
+    """The C batch scorer's block passes (gcc -O2 and -O3 -march=native) against the
+    program's numpy interpreter, bit for bit, on every quantile and one double either side,
+    a zero-norm row and random rows, in counts that end mid-block."""
+    import shutil
+    import subprocess
+
+    from scorewright.emit import c_batch, emitter
+    from scorewright.emit.c import driver_source
+    from scorewright.program import lower, run_matrix
+
+    assert shutil.which("gcc"), "the C batch test needs gcc"
+    pipe, x = _all_modes()
+    model = scorewright.freeze(pipe, check_rows=x)
+    plan = build_plan(model)
+    names = list(plan.feature_names)
+    rows = [dict(zip(names, [0.0] * len(names)))]
+    for feat in model.features:
+        for step in feat.scaling:
+            for q in step.quantiles or ():
+                for v in (q, np.nextafter(q, np.inf), np.nextafter(q, -np.inf)):
+                    rows.append(dict(x.iloc[0].to_dict(), **{feat.name: v}))
+    rows += x.to_dict("records")[:200]
+    data = encode_rows(plan, rows)
+    want = run_matrix(lower(plan), data)["probability_1"]
+    for art in emitter("c")(model, {"prefix": "s"}):
+        (tmp_path / art.name).write_bytes(art.content)
+    (tmp_path / "driver.c").write_text(driver_source(model, "s"), encoding="ascii")
+    for flags in (["-O2"], ["-O3", "-march=native"]):
+        exe = tmp_path / "driver"
+        subprocess.run(["gcc", "-std=c99", *flags, "-ffp-contract=off", "-I", str(tmp_path),
+                        "-o", str(exe), str(tmp_path / "driver.c"), str(tmp_path / "s.c"),
+                        "-lm"], check=True)
+        for count in (1, c_batch.BATCH_BLOCK + 1, len(data)):
+            path = tmp_path / f"rows{count}.bin"
+            path.write_bytes(np.ascontiguousarray(data[:count], dtype="<f8").tobytes())
+            out = subprocess.run([str(exe), "--batch", str(path)], capture_output=True,
+                                 text=True, check=True).stdout
+            got = np.array([float.fromhex(line.split()[0]) for line in out.splitlines()])
+            assert np.array_equal(got.view(np.uint64), want[:count].view(np.uint64))
+
+
+@pytest.mark.slow
+def test_every_mode_verifies_on_the_boards(tmp_path):
+    """The firmware profiles (qemu boards, double precision in software or libgcc)."""
+    from scorewright.verify.harness import build_targets
+
+    pipe, x = _all_modes()
+    model, _ = freeze_checked(pipe, check_rows=x)
+    report = build_targets(model, tmp_path, data=None, n_random=100,
+                           targets=["c-cortex-m3", "c-cortex-m4f"], progress=None)
+    assert report.ok, [(r.profile.name, r.message) for r in report.results]
