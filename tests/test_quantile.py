@@ -291,8 +291,9 @@ def _all_modes():
     return pipe, x[cols]
 
 
+@pytest.mark.slow
 def test_every_mode_verifies_on_python(tmp_path):
-    """The Python target in the default tier (every family: the slow test below)."""
+    """The Python target alone (every family: the test below)."""
     from scorewright.verify.harness import build_targets
 
     pipe, x = _all_modes()
