@@ -580,7 +580,7 @@ def _factor(chain, path) -> DesignColumn:
     if chain.product is not None or chain.constant or chain.binned or chain.basis is not None \
             or chain.normalized is not None:
         raise Unsupported(f"PolynomialFeatures at {path} takes a column that is already a "
-                          "product, a constant, a bin, a spline or normalized")
+                          "product, a constant, a bin or a spline (or a Normalizer's column)")
     if chain.clip is not None:
         raise Unsupported(f"PolynomialFeatures at {path} takes a clipped column")
     if chain.indicator:
