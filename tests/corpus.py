@@ -3,7 +3,8 @@ equipment teams fit, on invented data of four scenarios (no real people or compa
 
 Each entry is (name, fitted estimator, the frame it was fitted on). Eighteen pipeline
 shapes (transforms, bins, splines, quantiles, norms, interactions, missing indicators,
-encoders, every linear head) times the four scenarios give 72 pipelines; `build(name)` is cached per process.
+encoders, every linear head) times the four scenarios give 72 pipelines; `build(name)`
+is cached per process.
 """
 
 from __future__ import annotations
