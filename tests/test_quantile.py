@@ -182,6 +182,7 @@ def test_a_regression_head_agrees_relative():
     pipe, cols = _pipeline("normal", Ridge())
     pipe.fit(x[cols], signal)
     model, checked = freeze_checked(pipe, check_rows=x[cols])
+    assert checked.compared >= len(x)
     plan = build_plan(model)
     got = score_matrix(plan, encode_rows(plan, x[cols].to_dict("records")))["value"]
     np.testing.assert_allclose(got, pipe.predict(x[cols]), rtol=1e-12)
@@ -203,8 +204,9 @@ def test_refusals_name_the_component():
     x = x.fillna(0.0)
     cases = [
         (make_pipeline(StandardScaler(), QuantileTransformer(n_quantiles=10),
-                       LogisticRegression()), "QuantileTransformer at pipeline step "
-         "'quantiletransformer' (position 1) comes after scaling"),
+                       LogisticRegression()),
+         ("QuantileTransformer at pipeline step 'quantiletransformer' (position 1) comes "
+          "after scaling")),
         (make_pipeline(Normalizer(), QuantileTransformer(n_quantiles=10),
                        LogisticRegression()), "takes Normalizer's columns"),
         (make_pipeline(Normalizer(), Normalizer(), LogisticRegression()),
