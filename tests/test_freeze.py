@@ -192,8 +192,9 @@ def test_passthrough_and_drop_columns():
      "SplineTransformer at pipeline step 'splinetransformer' (position 1)"),
     (lambda: make_pipeline(StandardScaler(), KNeighborsClassifier()),
      "KNeighborsClassifier at pipeline step 'kneighborsclassifier' (position 1)"),
-    (lambda: make_pipeline(QuantileTransformer(n_quantiles=50), LogisticRegression()),
-     "QuantileTransformer at pipeline step 'quantiletransformer' (position 0)"),
+    (lambda: make_pipeline(StandardScaler(), QuantileTransformer(n_quantiles=50),
+                           LogisticRegression()),
+     "QuantileTransformer at pipeline step 'quantiletransformer' (position 1)"),
 ])
 def test_unsupported_components_are_named_with_their_position(build, needle):
     X, signal = _frame()

@@ -77,6 +77,9 @@ def describe_model(model: FrozenModel) -> str:
             steps = " ".join(f"bins at {list(s.edges)!r}" if s.edges is not None else
                              f"spline of degree {s.degree}, extrapolation {s.extrapolation}, "
                              f"knots {list(s.knots)!r}" if s.knots is not None else
+                             f"quantile ({s.output} output; {len(s.quantiles)} quantiles from "
+                             f"{s.quantiles[0]!r} to {s.quantiles[-1]!r})"
+                             if s.quantiles is not None else
                              s.op if s.value is None else f"{s.op} {s.value!r}"
                              for s in feat.scaling) or "none"
             if feat.scaling and feat.scaling[0].op in TRANSFORM_DOMAIN:
@@ -118,6 +121,11 @@ def describe_model(model: FrozenModel) -> str:
                 per_unit = c
             elif col.product is not None:
                 name = " * ".join(_factor_name(f) for f in col.product)
+                per_unit = c
+            elif col.normalized is not None:
+                norm, members, _ = col.normalized
+                name = (f"{col.feature!r} / {norm} norm of "
+                        f"({', '.join(f.feature for f in members)})")
                 per_unit = c
             elif col.encoded is not None:
                 name = f"{col.feature!r} encoded"

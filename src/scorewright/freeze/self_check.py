@@ -165,10 +165,12 @@ def _extremes(feat: NumericFeature) -> list[float]:
     a hundred spreads out, beyond any clip, yet inside the range where neither side
     saturates (the frozen model's guards then change nothing)."""
     size = max([abs(s.value) for s in feat.scaling if s.value is not None]
-               + [abs(e) for s in feat.scaling for e in (s.edges or s.knots or ())] + [1.0])
+               + [abs(e) for s in feat.scaling
+                  for e in (s.edges or s.knots or s.quantiles or ())] + [1.0])
     out = [EXTREME * size, -EXTREME * size]
-    edges = feat.scaling[0].edges or feat.scaling[0].knots if feat.scaling else None
-    if edges is not None:  # every bin edge or spline knot, either side
+    edges = feat.scaling[0].edges or feat.scaling[0].knots or feat.scaling[0].quantiles \
+        if feat.scaling else None
+    if edges is not None:  # every bin edge, spline knot or quantile, either side
         out += [x for e in edges
                 for x in (e, math.nextafter(e, math.inf), math.nextafter(e, -math.inf))]
     elif feat.scaling and feat.scaling[0].op in TRANSFORM_DOMAIN:
