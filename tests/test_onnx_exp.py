@@ -142,3 +142,69 @@ def test_double_exp_dense_sweep_and_mpmath():
 def test_float_exp_dense_sweep():
     for name, (worst, where) in measure_float(4_000_000, seed=1).items():
         assert worst <= 2, f"{name}: float exp {worst} ULPs at {where!r}"
+
+
+# ------------------------------------------------- the portable exp written out as nodes
+
+def _exp_program(plan):
+    from scorewright import program as P
+
+    ops = (P.Op("x", "read_real", (), P.REAL, 0), P.Op("e", "exp", ("x",)),
+           P.Op("o", "output", ("e",), P.REAL, "out"))
+    return P.exp_in_primitives(P.Program(plan, ops, ("out",)))
+
+
+def _portable_sweep(n: int) -> np.ndarray:
+    """The guarded range and past it (the clamps), both sides of every 2^k and of every
+    rounding tie of k (x = (j + 1/2) ln2), zeros and subnormals."""
+    rng = np.random.default_rng(3)
+    ln2 = math.log(2.0)
+    return np.concatenate([
+        np.linspace(-710.0, 711.0, n), rng.uniform(-1.0, 1.0, n // 10),
+        np.arange(-1022, 1024) * ln2, (np.arange(-1022, 1024) + 0.5) * ln2,
+        np.nextafter((np.arange(-1022, 1024) + 0.5) * ln2, np.inf),
+        [-708.0, 709.0, np.nextafter(-708.0, 0.0), np.nextafter(709.0, 0.0), -0.0, 0.0,
+         5e-324, -5e-324, 1e-300, -1e-300, -1e308, 1e308]])
+
+
+def _check_portable_steps(n: int):
+    from scorewright import portable_exp
+    from scorewright.model import load_model
+    from scorewright.plan import build_plan
+    from scorewright.program import run_matrix, run_row
+
+    from test_conformance import VECTORS
+
+    plan = build_plan(load_model(VECTORS / "alarms_poisson.model.json"), exp="portable")
+    program = _exp_program(plan)
+    assert all(op.op != "exp" for op in program.ops)
+    x = _portable_sweep(n)
+    # the source: the routine itself (scorewright.portable_exp, run by Python floats)
+    want = np.array([portable_exp.exp(float(v)) for v in x])
+    got = run_matrix(program, x[:, None])["out"]
+    differ = np.flatnonzero(got.view(np.int64) != want.view(np.int64))
+    assert differ.size == 0, f"differs at {x[differ[:5]]}"
+    name = plan.inputs[0].name
+    for v in x[:: max(1, x.size // 2000)]:
+        assert run_row(program, {name: float(v)})["out"] == portable_exp.exp(float(v))
+
+
+def test_portable_exp_in_primitives_is_the_routine():
+    _check_portable_steps(20_000)
+
+
+@pytest.mark.slow
+def test_portable_exp_in_primitives_is_the_routine_dense():
+    _check_portable_steps(2_000_000)
+
+
+def test_onnx_portable_exp_is_refused_in_float():
+    from scorewright.emit import emitter
+    from scorewright.errors import ScorewrightError
+    from scorewright.model import load_model
+
+    from test_conformance import VECTORS
+
+    model = load_model(VECTORS / "fault_binary.model.json")
+    with pytest.raises(ScorewrightError, match="cannot express the portable exp in float"):
+        emitter("onnx")(model, {"precision": "float", "portable_exp": True})
