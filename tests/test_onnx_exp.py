@@ -109,13 +109,14 @@ def test_double_exp_within_the_stated_ulps():
     _check_double(measure_double(200_000))
 
 
-def test_float_exp_within_two_float_ulps():
+def test_float_exp_within_three_float_ulps():
     """The float profiles state their bounds end to end (float plan against the double
     evaluation, far wider than an exp's ULPs); their exp, measured here against exp rounded
     to float: onnxruntime 1.32 within 1 float ULP, the ONNX reference evaluator (numpy
-    2.4's float32 exp) within 2 (at -86.99)."""
+    2.4's float32 exp) within 2 here (at -86.99) and 3 in the slow sweep (at -62.03); the
+    float profiles' bounds (6e-6 on a probability) are far wider."""
     for name, (worst, where) in measure_float(100_000).items():
-        assert worst <= 2, f"{name}: float exp {worst} ULPs at {where!r}"
+        assert worst <= 3, f"{name}: float exp {worst} ULPs at {where!r}"
 
 
 @pytest.mark.slow
@@ -141,7 +142,7 @@ def test_double_exp_dense_sweep_and_mpmath():
 @pytest.mark.slow
 def test_float_exp_dense_sweep():
     for name, (worst, where) in measure_float(4_000_000, seed=1).items():
-        assert worst <= 2, f"{name}: float exp {worst} ULPs at {where!r}"
+        assert worst <= 3, f"{name}: float exp {worst} ULPs at {where!r}"
 
 
 # ------------------------------------------------- the portable exp written out as nodes
