@@ -257,3 +257,37 @@ def test_links_hold_the_stated_probability_bound(monkeypatch):
 @pytest.mark.slow
 def test_links_hold_the_stated_probability_bound_dense(monkeypatch):
     _links_under_a_bumped_exp(400_000, monkeypatch)
+
+
+def _margin_is_the_input():
+    """An invented log-link regression whose margin is its one input (weight 1, intercept
+    0): the graph's value is the exp of the row's value, clamped by the program's guard."""
+    from scorewright.model import DesignColumn, FrozenModel, Head, NumericFeature
+
+    head = Head("regression", "log", None, (0.0,), ((1.0,),), None)
+    return FrozenModel("margin_is_x", (NumericFeature("m", 0.0, ()),), (DesignColumn("m"),),
+                       head, {"scorewright_version": "test", "source": "exp test"}).sealed()
+
+
+@pytest.mark.parametrize("evaluator", ["onnxruntime", "reference"])
+def test_onnx_portable_exp_graph_is_the_routine_at_its_edges(evaluator, tmp_path):
+    """The emitted graph itself, on both evaluators, at the routine's edges (clamps,
+    every 2^k and every rounding tie of k, zeros, subnormals) and a sweep: its value is
+    portable_exp.exp of the margin (the source: the routine run by Python floats), bit for
+    bit. The log link clamps the margin to [-708, 709] first, as the routine would."""
+    from scorewright import portable_exp
+    from scorewright.emit import emitter
+    from scorewright.verify.runners import runner
+
+    model = _margin_is_the_input()
+    options = {"precision": "double", "portable_exp": True}
+    for art in emitter("onnx")(model, options):
+        (tmp_path / art.name).write_bytes(art.content)
+    x = _portable_sweep(4_000 if evaluator == "reference" else 40_000)
+    x = x[np.abs(x) < 1e300]
+    got = runner("onnx")(tmp_path, model, [{"m": float(v)} for v in x],
+                         options | {"evaluator": evaluator}).value
+    want = np.array([portable_exp.exp(float(v)) for v in x])
+    got = np.asarray(got, dtype=np.float64).reshape(-1)
+    differ = np.flatnonzero(got.view(np.int64) != want.view(np.int64))
+    assert differ.size == 0, f"{evaluator} differs at {x[differ[:5]]}"
