@@ -655,15 +655,7 @@ def _lower_expm1(b: _Builder, g, single: bool = False):
     for c in reversed(EXPM1_SERIES[:-1]):
         s = b.emit("add", b.emit("mul", s, r), Const(c))
     e = b.emit("mul", s, r)
-    scale, rest = Const(1.0), k
-    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
-        up = b.emit("ge", rest, Const(float(j)))
-        scale = b.emit("mul", scale, b.emit("select", up, Const(2.0 ** j), Const(1.0)))
-        rest = b.emit("sub", rest, b.emit("select", up, Const(float(j)), Const(0.0)))
-    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
-        down = b.emit("ge", Const(float(-j)), rest)
-        scale = b.emit("mul", scale, b.emit("select", down, Const(2.0 ** -j), Const(1.0)))
-        rest = b.emit("add", rest, b.emit("select", down, Const(float(j)), Const(0.0)))
+    scale = _pow2_of(b, k, hint="t")
     whole = b.emit("sub", b.emit("mul", b.emit("add", e, Const(1.0)), scale), Const(1.0))
     return b.emit("select", b.emit("eq", k, Const(0.0)), e, whole, hint="y")
 
@@ -727,23 +719,23 @@ def _lower_portable_exp(b: _Builder, x) -> tuple[str, str]:
     return y, _pow2_of(b, k)
 
 
-def _pow2_of(b: _Builder, k):
+def _pow2_of(b: _Builder, k, hint: str = "xp"):
     """2^k for an integral real k in [-1022, 1023], as the product of the powers 2^j
     (then 2^-j) of k's binary digits: each product a power of two between 1 and 2^k,
-    so exact."""
+    so exact (the expm1 lowering's and the portable exp's scaling)."""
     scale, rest = Const(1.0), k
     for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
-        up = b.emit("ge", rest, Const(float(j)), hint="xp")
+        up = b.emit("ge", rest, Const(float(j)), hint=hint)
         scale = b.emit("mul", scale, b.emit("select", up, Const(2.0 ** j), Const(1.0),
-                                            hint="xp"), hint="xp")
+                                            hint=hint), hint=hint)
         rest = b.emit("sub", rest, b.emit("select", up, Const(float(j)), Const(0.0),
-                                          hint="xp"), hint="xp")
+                                          hint=hint), hint=hint)
     for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
-        down = b.emit("ge", Const(float(-j)), rest, hint="xp")
+        down = b.emit("ge", Const(float(-j)), rest, hint=hint)
         scale = b.emit("mul", scale, b.emit("select", down, Const(2.0 ** -j), Const(1.0),
-                                            hint="xp"), hint="xp")
+                                            hint=hint), hint=hint)
         rest = b.emit("add", rest, b.emit("select", down, Const(float(j)), Const(0.0),
-                                          hint="xp"), hint="xp")
+                                          hint=hint), hint=hint)
     return scale
 
 
