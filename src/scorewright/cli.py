@@ -261,7 +261,7 @@ def _parse_columns(pairs) -> dict[str, str]:
 @click.option("--inputs", "input_layout", type=click.Choice(["per-feature", "matrix"]),
               help="onnx: one input per feature, or one [N, F] matrix.")
 @click.option("--decision-only", is_flag=True, help="c: emit only the class decision (no exp).")
-@click.option("--portable-exp", is_flag=True, help="c, java: carry an exp of its own (no libm; the same bits everywhere).")
+@click.option("--portable-exp", is_flag=True, help="c, java, onnx (double): carry an exp of its own (no libm; the same bits everywhere).")
 @click.option("--report", is_flag=True, help="c: print flash, RAM and stack of the scorer.")
 @click.option("--force", is_flag=True, help="Overwrite existing artifacts.")
 def emit(model_file, target, outdir, dialect, table, keep, columns, form, layout, long_columns,

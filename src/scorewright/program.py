@@ -916,17 +916,88 @@ def _lower_expm1(b: _Builder, g, single: bool = False):
     for c in reversed(EXPM1_SERIES[:-1]):
         s = b.emit("add", b.emit("mul", s, r), Const(c))
     e = b.emit("mul", s, r)
-    scale, rest = Const(1.0), k
-    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
-        up = b.emit("ge", rest, Const(float(j)))
-        scale = b.emit("mul", scale, b.emit("select", up, Const(2.0 ** j), Const(1.0)))
-        rest = b.emit("sub", rest, b.emit("select", up, Const(float(j)), Const(0.0)))
-    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
-        down = b.emit("ge", Const(float(-j)), rest)
-        scale = b.emit("mul", scale, b.emit("select", down, Const(2.0 ** -j), Const(1.0)))
-        rest = b.emit("add", rest, b.emit("select", down, Const(float(j)), Const(0.0)))
+    scale = _pow2_of(b, k, hint="t")
     whole = b.emit("sub", b.emit("mul", b.emit("add", e, Const(1.0)), scale), Const(1.0))
     return b.emit("select", b.emit("eq", k, Const(0.0)), e, whole, hint="y")
+
+
+def exp_in_primitives(program: Program) -> Program:
+    """The program with each exp written out as the portable exp (`portable_exp.STEPS`) in
+    primitives, for a target that carries no routine of its own (ONNX): the same bits as
+    `portable_exp.exp`, step for step. Only a plan whose exp is the portable one."""
+    if program.plan.exp_kind != "portable":
+        raise ValueError("only the portable exp is written in primitives")
+    b = _Builder()
+    b.types.update({op.dest: op.type for op in program.ops})
+    ops = []
+    for op in program.ops:
+        if op.op != "exp":
+            ops.append(op)
+            continue
+        b.ops = []
+        y, scale = _lower_portable_exp(b, op.args[0])
+        ops.extend(b.ops)
+        ops.append(Op(op.dest, "mul", (y, scale), REAL))
+    return Program(program.plan, tuple(ops), program.outputs)
+
+
+# (a + split) - split is a rounded to the nearest integer, for 0 <= a < 2^51
+_ROUND_SPLIT = 1.5 * 2.0 ** 52
+
+
+def _lower_portable_exp(b: _Builder, x) -> tuple[str, str]:
+    """`portable_exp.STEPS` in primitives: (y, 2^k), whose product is the portable exp of x.
+    half_away is a selection; trunc is the floor of |t| (rounded by the split, less one
+    where that rounded up) with t's sign, +0 for a zero; scale2 is a product of selected
+    powers of two (`_pow2_of`), exactly 2^k, so y * 2^k is the routine's one rounding."""
+    c = {name: Const(float.fromhex(text)) for name, text in portable_exp.CONSTANTS.items()}
+    x = b.emit("max", x, c["LOW"], hint="xp")
+    x = b.emit("min", x, c["HIGH"], hint="xp")
+    t = b.emit("mul", x, c["INV_LN2"], hint="xp")
+    up = b.emit("ge", t, Const(0.0), hint="xp")
+    t = b.emit("add", t, b.emit("select", up, c["HALF"], Const(-c["HALF"].value), hint="xp"),
+               hint="xp")
+    a = b.emit("abs", t, hint="xp")
+    n = b.emit("sub", b.emit("add", a, Const(_ROUND_SPLIT), hint="xp"), Const(_ROUND_SPLIT),
+               hint="xp")
+    n = b.emit("select", b.emit("gt", n, a, hint="xp"), b.emit("sub", n, c["ONE"], hint="xp"),
+               n, hint="xp")
+    k = b.emit("select", b.emit("ge", t, Const(0.0), hint="xp"), n,
+               b.emit("sub", Const(0.0), n, hint="xp"), hint="xp")
+    hi = b.emit("sub", x, b.emit("mul", k, c["LN2_HI"], hint="xp"), hint="xp")
+    lo = b.emit("mul", k, c["LN2_LO"], hint="xp")
+    r = b.emit("sub", hi, lo, hint="xp")
+    z = b.emit("mul", r, r, hint="xp")
+    p = b.emit("mul", z, c["P5"], hint="xp")
+    for coef in ("P4", "P3", "P2"):
+        p = b.emit("mul", z, b.emit("add", p, c[coef], hint="xp"), hint="xp")
+    p = b.emit("mul", z, b.emit("add", p, c["P1"], hint="xp"), hint="xp")
+    cc = b.emit("sub", r, p, hint="xp")
+    q = b.emit("div", b.emit("mul", r, cc, hint="xp"), b.emit("sub", c["TWO"], cc, hint="xp"),
+               hint="xp")
+    y = b.emit("sub", b.emit("sub", lo, q, hint="xp"), hi, hint="xp")
+    y = b.emit("sub", c["ONE"], y, hint="xp")
+    return y, _pow2_of(b, k)
+
+
+def _pow2_of(b: _Builder, k, hint: str = "xp"):
+    """2^k for an integral real k in [-1022, 1023], as the product of the powers 2^j
+    (then 2^-j) of k's binary digits: each product a power of two between 1 and 2^k,
+    so exact (the expm1 lowering's and the portable exp's scaling)."""
+    scale, rest = Const(1.0), k
+    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
+        up = b.emit("ge", rest, Const(float(j)), hint=hint)
+        scale = b.emit("mul", scale, b.emit("select", up, Const(2.0 ** j), Const(1.0),
+                                            hint=hint), hint=hint)
+        rest = b.emit("sub", rest, b.emit("select", up, Const(float(j)), Const(0.0),
+                                          hint=hint), hint=hint)
+    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
+        down = b.emit("ge", Const(float(-j)), rest, hint=hint)
+        scale = b.emit("mul", scale, b.emit("select", down, Const(2.0 ** -j), Const(1.0),
+                                            hint=hint), hint=hint)
+        rest = b.emit("add", rest, b.emit("select", down, Const(float(j)), Const(0.0),
+                                          hint=hint), hint=hint)
+    return scale
 
 
 def inverse_floor(plan: Plan) -> float:

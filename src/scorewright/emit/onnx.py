@@ -59,14 +59,14 @@ from .. import __version__
 from ..errors import ScorewrightError
 from ..model import FrozenModel
 from ..plan import Plan, build_plan
-from ..program import CODE, FLAG, REAL, Const, Op, fold, lower
+from ..program import CODE, FLAG, REAL, Const, Op, exp_in_primitives, fold, lower
 from ..values import MISSING_CODE, UNSEEN_CODE
 from . import Artifact, reject_options
 
 OPSET = 28
 IR_VERSION = 10  # below onnx 1.23's default 14; the checker and onnxruntime 1.32 accept it
 LAYOUTS = ("per-feature", "matrix")
-OPTIONS = ("precision", "inputs")
+OPTIONS = ("precision", "inputs", "portable_exp")
 MATRIX_INPUT = "features"
 OUTPUTS = ("margin", "probability", "class_index", "predicted_value")
 N = "N"  # the symbolic batch dimension
@@ -95,7 +95,11 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
         raise ScorewrightError(f"--precision {precision!r}: expected double or float")
     if layout not in LAYOUTS:
         raise ScorewrightError(f"--inputs {layout!r}: expected per-feature or matrix")
-    plan = build_plan(model, precision)
+    portable = bool(options.get("portable_exp"))
+    if portable and precision != "double":
+        raise ScorewrightError("target onnx cannot express the portable exp in float (it "
+                               "computes in double): use --precision double")
+    plan = build_plan(model, precision, exp="portable" if portable else "libm")
     graph_model = build_model(plan, layout)
     return [Artifact(f"{plan.stem}.onnx", graph_model.SerializeToString())]
 
@@ -316,7 +320,10 @@ class _Renderer:
         self.dtype = g.elem.numpy
         self.at: dict[str, tuple[_Vec, int]] = {}   # program name -> (tensor, lane)
         self._cached: dict = {}
-        self.ops = _one_comparison_per_tie(self._constant_margins(lower(plan).ops), self.dtype)
+        program = lower(plan)
+        if plan.exp_kind == "portable":  # no routine to call: its steps are the program's
+            program = exp_in_primitives(program)
+        self.ops = _one_comparison_per_tie(self._constant_margins(program.ops), self.dtype)
         self.by_dest = {op.dest: op for op in self.ops}
         self.consumers: dict[str, list[Op]] = {}
         for op in self.ops:
