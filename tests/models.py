@@ -215,6 +215,103 @@ def spector_probit() -> TestModel:
     return TestModel("spector_probit", _Classifier(ResultsSource(results, model)), X, y, model)
 
 
+def compressor_shapes() -> TestModel:
+    """Format version 3's term kinds in one model (the compressor readings): B-splines with
+    linear and periodic extrapolation, Yeo-Johnson and Box-Cox power transforms."""
+    compose, impute, lm, pl, pp = _sk()
+    df = _readings()
+    X = df[NUMERIC + CATEGORICAL]
+    y = df["fault_30d"]
+    prep = compose.ColumnTransformer([
+        ("temp", pl.make_pipeline(impute.SimpleImputer(), pp.SplineTransformer(
+            n_knots=5, degree=3, extrapolation="linear")), ["discharge_temp_c"]),
+        ("ambient", pl.make_pipeline(impute.SimpleImputer(), pp.SplineTransformer(
+            n_knots=4, degree=2, extrapolation="periodic")), ["ambient_temp_c"]),
+        ("yj", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
+                                pp.PowerTransformer(method="yeo-johnson")),
+         ["vibration_mm_s", "door_open_min_per_h"]),
+        ("bc", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
+                                pp.PowerTransformer(method="box-cox")),
+         ["hours_since_service"]),
+        ("rest", pl.make_pipeline(impute.SimpleImputer(), pp.StandardScaler()),
+         ["suction_pressure_kpa", "motor_current_a"]),
+        ("cat", pp.OneHotEncoder(handle_unknown="ignore"), ["refrigerant"]),
+    ])
+    est = pl.make_pipeline(prep, lm.LogisticRegression(max_iter=5000)).fit(X, y)
+    return TestModel("compressor_shapes", est, X, y,
+                     scorewright.freeze(est, name="compressor_shapes", check_rows=X))
+
+
+def fault_type_ovr() -> TestModel:
+    """One-vs-rest logistic models over the four fault types (the ovr_logit link of format
+    version 3: each class's sigmoid divided by their sum)."""
+    from sklearn.multiclass import OneVsRestClassifier
+
+    compose, impute, lm, pl, pp = _sk()
+    df = _readings()
+    X, y = df[NUMERIC + CATEGORICAL], df["fault_type"]
+    prep = compose.ColumnTransformer([
+        ("num", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
+                                 pp.StandardScaler()), NUMERIC),
+        ("cat", pp.OneHotEncoder(handle_unknown="ignore"), ["site_zone"]),
+    ])
+    est = pl.make_pipeline(prep, OneVsRestClassifier(lm.LogisticRegression(max_iter=5000)))
+    est.fit(X, y)
+    return TestModel("fault_type_ovr", est, X, y,
+                     scorewright.freeze(est, name="fault_type_ovr", check_rows=X))
+
+
+def _spector_glm(name: str, link) -> TestModel:
+    """A binomial GLM on Greene's Spector data (statsmodels ships it) with another link."""
+    import statsmodels.api as sm
+    from scorewright.freeze.statsmodels import ResultsSource
+
+    data = sm.datasets.spector.load_pandas()
+    X, y = data.exog[["GPA", "TUCE", "PSI"]], data.endog
+    results = sm.GLM(y, sm.add_constant(X), family=sm.families.Binomial(link=link)).fit()
+    model = scorewright.freeze(results, name=name, check_rows=X)
+    return TestModel(name, _Classifier(ResultsSource(results, model)), X, y, model)
+
+
+def spector_cauchit() -> TestModel:
+    """The cauchit link (format version 3): the Cauchy CDF of the margin."""
+    import statsmodels.api as sm
+    return _spector_glm("spector_cauchit", sm.families.links.Cauchy())
+
+
+def spector_cloglog() -> TestModel:
+    """The complementary log-log link (format version 2)."""
+    import statsmodels.api as sm
+    return _spector_glm("spector_cloglog", sm.families.links.CLogLog())
+
+
+def diabetes_gamma_inverse() -> TestModel:
+    """The inverse link (format version 3): a Gamma GLM of the diabetes progression score
+    (scikit-learn ships the data) with statsmodels' canonical InversePower link."""
+    import statsmodels.api as sm
+    from sklearn.datasets import load_diabetes
+    from scorewright.freeze.statsmodels import ResultsSource
+
+    X, y = load_diabetes(return_X_y=True, as_frame=True)
+    X = X[["bmi", "bp", "s5"]]
+    results = sm.GLM(y, sm.add_constant(X), family=sm.families.Gamma()).fit()
+    model = scorewright.freeze(results, name="diabetes_gamma_inverse", check_rows=X)
+    return TestModel("diabetes_gamma_inverse", ResultsSource(results, model), X, y, model)
+
+
+def diabetes_log1p() -> TestModel:
+    """The log1p link (format version 3): a ridge fitted on log1p of the diabetes score,
+    predicting expm1 of its margin (TransformedTargetRegressor)."""
+    from sklearn.compose import TransformedTargetRegressor
+    from sklearn.datasets import load_diabetes
+    _, _, lm, _, _ = _sk()
+    X, y = load_diabetes(return_X_y=True, as_frame=True)
+    est = TransformedTargetRegressor(lm.Ridge(alpha=0.1), func=np.log1p,
+                                     inverse_func=np.expm1).fit(X, y)
+    return TestModel("diabetes_log1p", est, X, y,
+                     scorewright.freeze(est, name="diabetes_log1p", check_rows=X))
+
+
 class _Classifier:
     """statsmodels results as a scikit-learn classifier (predict_proba; predict: the class
     of probability above 0.5), for the tests that compare with one."""
@@ -244,6 +341,29 @@ BUILDERS = {
     "compressor_terms": compressor_terms,
     "spector_probit": spector_probit,
 }
+BUILDERS_OF_FORMAT_2 = len(BUILDERS)
+BUILDERS |= {
+    "compressor_shapes": compressor_shapes,
+    "fault_type_ovr": fault_type_ovr,
+    "spector_cauchit": spector_cauchit,
+    "spector_cloglog": spector_cloglog,
+    "diabetes_gamma_inverse": diabetes_gamma_inverse,
+    "diabetes_log1p": diabetes_log1p,
+}
+
+
+# Format version 3's splines, power transforms, log1p and inverse links are scored in
+# double precision only: a single-precision target refuses the model in one line, and
+# that refusal is what it is held to.
+DOUBLE_ONLY = {"compressor_shapes": "not scored in single precision",
+               "diabetes_log1p": "not scored in single precision",
+               "diabetes_gamma_inverse": "not scored in single precision"}
+
+
+# The models the per-target suites walk one by one (ONNX graph checks, firmware images in
+# both precisions); the format 3 models after them are held to their conformance vectors
+# on every profile, boards included, and refused in one line by the single-precision ones.
+WALKED = tuple(BUILDERS)[:BUILDERS_OF_FORMAT_2]
 
 
 @lru_cache(maxsize=None)

@@ -36,7 +36,7 @@ from scorewright.verify.runners import c as crunner
 STRICT = ["-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wshadow",
           "-Wdouble-promotion", "-Werror", "-O2", "-ffp-contract=off"]
 CXX = ["g++", "-x", "c++", "-Wall", "-Wextra", "-Werror"]
-NAMES = sorted(models.BUILDERS)
+NAMES = sorted(models.WALKED)
 MEASURED: dict = {}
 
 

@@ -59,7 +59,7 @@ def _matrix(plan, n_random: int = 40) -> np.ndarray:
 
 def _outputs(plan) -> list[str]:
     if plan.task == "regression":
-        return ["value"]
+        return ["value"] + (["rate"] if plan.offset is not None else [])
     if plan.task == "binary":
         return ["probability_1"]
     return [f"probability_{k}" for k in range(len(plan.classes))]
@@ -103,11 +103,11 @@ def test_batch_blocks_give_the_programs_bits(name, opt, exp, tmp_path):
 def test_the_block_fits_a_small_stack():
     """The block's tables (terms and margins) stay within c_batch.BLOCK_BYTES for every
     test model, in both precisions, however many classes."""
-    for name in sorted(models.BUILDERS):
+    for name in sorted(models.WALKED):
         model = models.build(name).model
         for precision, size in (("double", 8), ("float", 4)):
             program = lower(build_plan(model, precision))
-            K = program.plan.n_outputs
+            K = program.plan.n_margins
             block, positions = c_batch.block_shape(program, PRECISIONS[precision])
             assert 1 <= block <= c_batch.BATCH_BLOCK
             assert block == 1 or size * block * (positions * K + K) <= c_batch.BLOCK_BYTES

@@ -116,6 +116,10 @@ def test_a_poisson_rate_model_with_an_exposure_matches_statsmodels(cancer, tmp_p
     rate = score_row(plan, dict(row, population=1.0)).value
     for odd in (None, 0.0, -5.0, float("nan")):
         assert score_row(plan, dict(row, population=odd)).value == rate
+    # the rate beside the count: statsmodels' predict with exposure 1, to the fit's 1e-6
+    assert "and the rate (predicted_rate)" in run.stdout
+    rates = np.array([score_row(plan, r).rate for r in d.to_dict("records")])
+    np.testing.assert_allclose(rates, results.predict(x, exposure=np.ones(len(d))), rtol=1e-6)
 
 
 def test_an_offset_is_the_log_of_an_exposure(cancer, tmp_path):

@@ -14,6 +14,7 @@ from sklearn.impute import SimpleImputer
 from sklearn.linear_model import (ElasticNet, GammaRegressor, Lasso, LinearRegression,
                                   LogisticRegression, PoissonRegressor, Ridge, SGDClassifier,
                                   TweedieRegressor)
+from sklearn.neighbors import KNeighborsClassifier
 from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import (MaxAbsScaler, MinMaxScaler, OneHotEncoder,
                                    QuantileTransformer, RobustScaler, SplineTransformer,
@@ -189,9 +190,11 @@ def test_passthrough_and_drop_columns():
 @pytest.mark.parametrize("build,needle", [
     (lambda: make_pipeline(StandardScaler(), SplineTransformer(), LogisticRegression()),
      "SplineTransformer at pipeline step 'splinetransformer' (position 1)"),
-    (lambda: make_pipeline(StandardScaler(), SGDClassifier(loss="hinge")), "loss='hinge'"),
-    (lambda: make_pipeline(QuantileTransformer(n_quantiles=50), LogisticRegression()),
-     "QuantileTransformer at pipeline step 'quantiletransformer' (position 0)"),
+    (lambda: make_pipeline(StandardScaler(), KNeighborsClassifier()),
+     "KNeighborsClassifier at pipeline step 'kneighborsclassifier' (position 1)"),
+    (lambda: make_pipeline(StandardScaler(), QuantileTransformer(n_quantiles=50),
+                           LogisticRegression()),
+     "QuantileTransformer at pipeline step 'quantiletransformer' (position 1)"),
 ])
 def test_unsupported_components_are_named_with_their_position(build, needle):
     X, signal = _frame()

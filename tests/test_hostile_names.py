@@ -70,7 +70,7 @@ def hostile_models(draw):
                                       max_size=n_out if n_out > 1 else 2, unique=True)))
     coef = st.floats(-3, 3, allow_nan=False, allow_infinity=False)
     # half the models carry format 2's term kinds: a log1p transform, a missing indicator,
-    # a product, an encoded category, the probit or cloglog link
+    # a product, an encoded category, the probit or cloglog link (or format 4's decision)
     v2 = draw(st.booleans())
     features = (
         NumericFeature(names[0], draw(st.one_of(st.none(), coef))),
@@ -89,7 +89,9 @@ def hostile_models(draw):
     n_design = len(design)
     link = "logit" if task == "binary" else ("softmax" if task == "multiclass" else "identity")
     if v2 and task == "binary":
-        link = draw(st.sampled_from(["logit", "probit", "cloglog"]))
+        link = draw(st.sampled_from(["logit", "probit", "cloglog", "decision"]))
+    elif v2 and task == "multiclass":
+        link = draw(st.sampled_from(["softmax", "decision"]))
     head = Head(task, link, classes,
                 tuple(draw(coef) for _ in range(n_out)),
                 tuple(tuple(draw(coef) for _ in range(n_design)) for _ in range(n_out)),

@@ -139,8 +139,79 @@ def _version_3_corpus():
 
 
 def _version_4_corpus():
-    """Every key removed and every value of the wrong type in format-4 models (calibrated
-    heads of two folds, isotonic and sigmoid): each refused."""
+    """Every key removed and every value of the wrong type in a format-4 model (a
+    QuantileTransformer with normal output, and an l2 Normalizer over two imputed columns
+    with a scaler after it; a three-class RidgeClassifier, the decision link), and the
+    semantic defects of the quantile and norm fields: each refused."""
+    import numpy as np
+    import pandas as pd
+    from sklearn.compose import ColumnTransformer
+    from sklearn.impute import SimpleImputer
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import Normalizer, QuantileTransformer, StandardScaler
+
+    import scorewright
+
+    rng = np.random.default_rng(8)
+    x = pd.DataFrame({"load": rng.normal(0, 1, 200), "temp": rng.normal(40, 5, 200),
+                      "amps": rng.normal(12, 2, 200)})
+    y = (x.load + rng.logistic(size=200) > 0).astype(int)
+    ct = ColumnTransformer([
+        ("q", QuantileTransformer(n_quantiles=4, output_distribution="normal"), ["load"]),
+        ("n", make_pipeline(SimpleImputer(), Normalizer(), StandardScaler()),
+         ["temp", "amps"])])
+    est = make_pipeline(ct, LogisticRegression()).fit(x, y)
+    good = json.loads(scorewright.freeze(est, check_rows=x).to_json())
+    assert good["format_version"] == 4
+    yield from _removed_and_mistyped(good, "format 4")
+    step = ("features", 0, "scaling", 0)
+    norm = ("design", 1, "normalize")
+    for label, path, value, needle in [
+            ("output", step + ("output",), "gaussian", "output"),
+            ("decreasing quantiles", step + ("quantiles",), [1.0, 0.0, 2.0, 3.0], "quantiles"),
+            ("references past 1", step + ("references",), [0.0, 0.5, 0.9, 1.5], "references"),
+            ("a quantile short", step + ("quantiles",), [0.0, 1.0, 2.0], "references"),
+            ("quantiles 1 ULP apart", step + ("quantiles",), [0.0, 5e-324, 1e-323, 1.0],
+             "quantiles"),
+            ("a quantile step second", ("features", 0, "scaling"),
+             [{"op": "add", "value": 1.0}] + good["features"][0]["scaling"], "first step"),
+            ("norm", norm + ("norm",), "l3", "norm"),
+            ("position", norm + ("position",), 2, "position"),
+            ("no columns", norm + ("columns",), [], "columns"),
+            ("a level column", norm + ("columns", 0), {"feature": "temp", "levels": [1]},
+             "numeric column"),
+            ("a bins column", norm + ("columns", 0, "scaling"),
+             [{"op": "bins", "edges": [1.0]}], "bins"),
+            ("another feature", ("design", 1, "feature"), "load", "feature"),
+            ("format 3", ("format_version",), 3, "format_version 4")]:
+        d = copy.deepcopy(good)
+        _set(d, path, value)
+        yield f"format 4: {label}", _sealed(d), needle
+    yield from _decision_corpus()
+    yield from _calibrated_corpus()
+
+
+def _decision_corpus():
+    """Every key removed and every value of the wrong type in a format-4 decision head."""
+    from sklearn.datasets import load_iris
+    from sklearn.linear_model import RidgeClassifier
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    import scorewright
+
+    x, y = load_iris(return_X_y=True, as_frame=True)
+    x = x.iloc[:, :2]
+    est = make_pipeline(StandardScaler(), RidgeClassifier()).fit(x, y)
+    good = json.loads(scorewright.freeze(est, check_rows=x).to_json())
+    assert good["format_version"] == 4 and good["head"]["link"] == "decision"
+    yield from _removed_and_mistyped(good, "format 4 decision")
+
+
+def _calibrated_corpus():
+    """Every key removed and every value of the wrong type in format-4 calibrated heads
+    (two folds, isotonic and sigmoid): each refused."""
     import numpy as np
     from sklearn.calibration import CalibratedClassifierCV
     from sklearn.svm import LinearSVC
@@ -154,7 +225,7 @@ def _version_4_corpus():
         est = CalibratedClassifierCV(LinearSVC(), method=method, cv=2).fit(x, y)
         good = json.loads(scorewright.freeze(est).to_json())
         assert good["format_version"] == 4
-        yield from _removed_and_mistyped(good, f"format 4 ({method})")
+        yield from _removed_and_mistyped(good, f"format 4 calibrated ({method})")
 
 
 def _removed_and_mistyped(good: dict, label: str):

@@ -37,10 +37,10 @@ from scorewright.reference import encode_rows, score_row
 from scorewright.verify.runners import runner
 from scorewright.verify.runners.onnx import input_feeds
 
-from models import BUILDERS, build
+from models import WALKED, build
 
 ROOT = Path(__file__).resolve().parent.parent
-MODELS = list(BUILDERS)
+MODELS = list(WALKED)
 NUMERIC_ONLY = ["iris", "wine", "diabetes_ridge", "spector"]
 PROFILES = {("onnxruntime", "double"): "onnx-double",
             ("reference", "double"): "onnx-double-reference",

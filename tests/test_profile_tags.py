@@ -46,7 +46,7 @@ def test_one_emitter_key_means_one_rendering():
 def test_the_cheapest_profile_stands_for_its_key():
     chosen = one_per_emitter_key()
     assert chosen["c/double"] == "c-double" and chosen["onnx/double"] == "onnx-double"
-    assert len(chosen) == 14 and len(profiles()) == 20
+    assert len(chosen) == 14 and len(profiles()) == 22
 
 
 def test_a_tag_of_the_wrong_type_is_refused_in_one_line(tmp_path):

@@ -41,7 +41,7 @@ def _bits(values):
     return [float(v).hex() for v in values]
 
 
-@pytest.mark.parametrize("name", sorted(models.BUILDERS))
+@pytest.mark.parametrize("name", sorted(models.WALKED))
 def test_scorer_is_bit_identical_to_reference_and_close_to_scikit_learn(name, tmp_path):
     tm = models.build(name)
     plan = build_plan(tm.model)
@@ -178,7 +178,7 @@ def test_hostile_names_stay_inside_string_literals(tmp_path):
     assert len(top) == len(tree.body)
 
 
-@pytest.mark.parametrize("name", sorted(models.BUILDERS))
+@pytest.mark.parametrize("name", sorted(models.WALKED))
 def test_the_fast_paths_change_no_bit(name, tmp_path):
     """The scorer tests a float inside the input's bound first and writes values used once
     inside their user; neither may change a bit. Each numeric input takes the bound itself,

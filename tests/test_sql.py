@@ -31,7 +31,7 @@ from scorewright.verify.cases import random_rows
 from scorewright.verify.runners import sql as sql_runner
 
 DIALECT_NAMES = ("sqlite", "postgres", "duckdb")
-MODEL_NAMES = tuple(models.BUILDERS)
+MODEL_NAMES = tuple(models.WALKED)
 # models whose scoring program is deep (a log's reduction, the probit link's series): some
 # forms refuse them in one line (DuckDB's function form, Spark's --form expressions)
 DEEP = ("compressor_terms", "spector_probit")

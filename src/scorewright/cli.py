@@ -86,10 +86,12 @@ def _split_names(text: str | None) -> list[str] | None:
 @click.option("--classes", help="torch state_dict (.pt): comma-separated class labels.")
 @click.option("--offset", metavar="COLUMN",
               help="statsmodels results fitted with offset= (or a scikit-learn rate model): "
-                   "the column that holds it.")
+                   "the column that holds it; artifacts output the expected count and the "
+                   "rate (without the offset).")
 @click.option("--exposure", metavar="COLUMN",
               help="statsmodels results fitted with exposure= (or a scikit-learn model fitted "
-                   "on rates): the column that holds it; artifacts output the expected count.")
+                   "on rates): the column that holds it; artifacts output the expected count "
+                   "(predicted_value) and the rate per unit of exposure (predicted_rate).")
 @click.option("--force", is_flag=True, help="Overwrite an existing output file.")
 def freeze(pickle_file, output, name, feature_names, check_data, task, preprocessor, classes,
            offset, exposure, force):
@@ -173,9 +175,11 @@ def _name_list(option: str, text: str | None) -> list[str] | None:
 @click.option("--name", help="Model name (default: the label column).")
 @click.option("--exposure", metavar="COLUMN",
               help="Count models: the exposure column (years, hours); the model fits the rate "
-                   "and its artifacts take the column and output the expected count.")
+                   "and its artifacts take the column and output the expected count "
+                   "(predicted_value) and the rate per unit of exposure (predicted_rate).")
 @click.option("--offset", metavar="COLUMN",
-              help="Count models: a column added to the margin (the log of an exposure).")
+              help="Count models: a column added to the margin (the log of an exposure); "
+                   "artifacts output the expected count and the rate without it.")
 @click.option("--weights", metavar="COLUMN", help="A column of non-negative row weights.")
 @click.option("--report", "report_dir", type=click.Path(file_okay=False),
               help="Write report.html into this directory.")
@@ -257,7 +261,7 @@ def _parse_columns(pairs) -> dict[str, str]:
 @click.option("--inputs", "input_layout", type=click.Choice(["per-feature", "matrix"]),
               help="onnx: one input per feature, or one [N, F] matrix.")
 @click.option("--decision-only", is_flag=True, help="c: emit only the class decision (no exp).")
-@click.option("--portable-exp", is_flag=True, help="c, java: carry an exp of its own (no libm; the same bits everywhere).")
+@click.option("--portable-exp", is_flag=True, help="c, java, onnx (double): carry an exp of its own (no libm; the same bits everywhere).")
 @click.option("--report", is_flag=True, help="c: print flash, RAM and stack of the scorer.")
 @click.option("--force", is_flag=True, help="Overwrite existing artifacts.")
 def emit(model_file, target, outdir, dialect, table, keep, columns, form, layout, long_columns,

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import math
 
-from .model import TRANSFORM_DOMAIN, FrozenModel, NumericFeature, outside_text
+from .model import DECISION, TRANSFORM_DOMAIN, FrozenModel, NumericFeature, outside_text
 from .plan import build_plan
 
 
@@ -51,15 +51,36 @@ def describe_model(model: FrozenModel) -> str:
            f"task      {head.task} (link {head.link})"]
     if head.classes is not None:
         out.append("classes   " + ", ".join(repr(c) for c in head.classes))
+    if head.link == DECISION:
+        each = "one margin per class" if head.task == "multiclass" else "one margin"
+        out.append(f"outputs   the decision function ({each}) and the class; no probabilities")
     if head.calibration is not None:
         methods = sorted({c.method for c in head.calibration.calibrators})
         out.append(f"calibrated {head.calibration.members} fold(s), {', '.join(methods)}: each "
                    "decision value through its calibrator, each fold's probabilities "
                    "normalised, averaged over the folds; the class of the largest average")
+    elif head.task == "binary" and head.link == DECISION:
+        out.append(f"cut       margin > {head.cut!r} predicts {head.classes[1]!r} (a margin of "
+                   f"exactly {head.cut!r} predicts {head.classes[0]!r})")
+    elif head.task == "multiclass" and head.link == DECISION:
+        out.append("decision  the class of the largest margin (the first on ties)")
     elif head.task == "binary":
         p = 1.0 / (1.0 + math.exp(-head.cut)) if abs(head.cut) < 700 else float(head.cut > 0)
         out.append(f"cut       margin > {head.cut!r} predicts {head.classes[1]!r} "
                    f"(probability > {p:.6g})")
+    role = next((f for f in model.features if getattr(f, "role", None)), None)
+    if role is not None:
+        unusable = ("missing counts as 0" if role.role == "offset" else
+                    "missing or not positive counts as 1")
+        out.append(f"{role.role:<9} {role.name!r} (coefficient 1; {unusable}); outputs: "
+                   "predicted_value, the expected count, and predicted_rate, the value "
+                   f"without the {role.role}")
+    inputs = model.provenance.get("inputs", {}) if isinstance(model.provenance, dict) else {}
+    earlier = [k for k in ("offset", "exposure") if k in inputs]
+    if role is None and earlier and head.task == "regression":
+        out.append(f"{earlier[0]:<9} {inputs[earlier[0]]!r} is an ordinary feature in this file "
+                   "(frozen before format version 4): the count is output, no rate; freeze "
+                   "the results again for the rate")
     out.append("")
     out.append("features")
     for feat, inp in zip(model.features, plan.inputs):
@@ -69,6 +90,9 @@ def describe_model(model: FrozenModel) -> str:
             steps = " ".join(f"bins at {list(s.edges)!r}" if s.edges is not None else
                              f"spline of degree {s.degree}, extrapolation {s.extrapolation}, "
                              f"knots {list(s.knots)!r}" if s.knots is not None else
+                             f"quantile ({s.output} output; {len(s.quantiles)} quantiles from "
+                             f"{s.quantiles[0]!r} to {s.quantiles[-1]!r})"
+                             if s.quantiles is not None else
                              s.op if s.value is None else f"{s.op} {s.value!r}"
                              for s in feat.scaling) or "none"
             if feat.scaling and feat.scaling[0].op in TRANSFORM_DOMAIN:
@@ -79,7 +103,7 @@ def describe_model(model: FrozenModel) -> str:
                 missing += f" (so is a value outside the knots [{lo!r}, {hi!r}])"
             clip = "" if feat.clip is None else f", clip to [{feat.clip[0]!r}, {feat.clip[1]!r}]"
             kind = ("numeric, fitted on booleans (true/false read as 1/0)" if feat.boolean
-                    else "numeric")
+                    else f"numeric, the {feat.role}" if feat.role else "numeric")
             out.append(f"  {feat.name!r}  {kind}; {missing}; scaling: {steps}{clip}; "
                        f"input guard |x| <= {inp.bound:g}")
         else:
@@ -116,6 +140,11 @@ def describe_model(model: FrozenModel) -> str:
                 per_unit = c
             elif col.product is not None:
                 name = " * ".join(_factor_name(f) for f in col.product)
+                per_unit = c
+            elif col.normalized is not None:
+                norm, members, _ = col.normalized
+                name = (f"{col.feature!r} / {norm} norm of "
+                        f"({', '.join(f.feature for f in members)})")
                 per_unit = c
             elif col.encoded is not None:
                 name = f"{col.feature!r} encoded"

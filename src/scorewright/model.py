@@ -24,10 +24,13 @@ from .files import write_atomic
 
 FORMAT = "scorewright-frozen-model"
 # Version 2 adds the probit and cloglog links and the term kinds of TRANSFORM_OPS, BINS,
-# missing indicators, products and encodings; version 3 adds splines (SPLINE). A model is
-# written in the lowest version that can say it, so every model an older version could
-# hold is written as before (its file and sha256 unchanged); this scorewright reads all.
-# Version 4 adds calibrated heads (the "calibrated" link and the head's "calibration").
+# missing indicators, products and encodings; version 3 adds splines (SPLINE); version 4
+# adds the "decision" link (a classifier with a decision function and no probabilities), a
+# numeric feature's `role` (ROLES: the offset or exposure input), quantile steps (QUANTILE),
+# normalized design columns (NORMS) and calibrated heads (the "calibrated" link and the
+# head's "calibration"). A model is written in the lowest version that can say it, so
+# every model an older version could hold is written as before (its file and sha256
+# unchanged); this scorewright reads all.
 FORMAT_VERSION = 4
 READS_VERSIONS = (1, 2, 3, 4)
 
@@ -46,16 +49,31 @@ TRANSFORM_DOMAIN = {"log": (0.0, True), "log1p": (-1.0, True), "sqrt": (0.0, Fal
                     "box_cox": (0.0, True)}
 # multiclass "ovr_logit": one-vs-rest logistic, each class's sigmoid divided by their sum;
 # regression "log1p": the value is expm1(margin), "sqrt": the value is margin * margin,
-# "inverse": 1 / margin (statsmodels' InversePower); binary "cauchit": the Cauchy CDF
+# "inverse": 1 / margin (statsmodels' InversePower); binary "cauchit": the Cauchy CDF;
+# binary and multiclass "decision": the margins (a decision function) and the class, no
+# probabilities (scikit-learn's RidgeClassifier, LinearSVC, Perceptron, SGDClassifier...);
 # binary and multiclass "calibrated": the head's `calibration` (format version 4)
-TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit", "log", "calibrated"),
-              "multiclass": ("softmax", "ovr_logit", "calibrated"),
+DECISION = "decision"
+TASK_LINKS = {"binary": ("logit", "probit", "cloglog", "cauchit", "log", DECISION,
+                         "calibrated"),
+              "multiclass": ("softmax", "ovr_logit", DECISION, "calibrated"),
               "regression": ("identity", "log", "log1p", "sqrt", "inverse")}
 # links an older file version cannot hold
 LINK_VERSION = {"probit": 2, "cloglog": 2, "ovr_logit": 3, "log1p": 3, "sqrt": 3,
-                "inverse": 3, "cauchit": 3, "calibrated": 4}
+                "inverse": 3, "cauchit": 3, DECISION: 4, "calibrated": 4}
 
 Level = Union[str, int]
+
+# A numeric feature's role (format version 4): "offset", a column added to the margin as
+# it is, or "exposure", added through its log; either way with coefficient 1, in one plain
+# design column of its own. The scoring program outputs the expected count (the margin
+# with it) and the rate (the margin without it; for an exposure, per unit of exposure).
+# The rule for a value that gives nothing usable is `freeze.offsets.rule`'s: a missing
+# offset counts as 0, a missing or non-positive exposure as 1 (the feature has no fill, so
+# its design value is then 0.0). A file of an older version whose provenance names an
+# offset column holds it as an ordinary feature: it scores as it always did (the count, no
+# rate); provenance is never read for semantics.
+ROLES = ("offset", "exposure")
 
 
 @dataclass(frozen=True)
@@ -68,6 +86,11 @@ class ScalingStep:
     knots: tuple[float, ...] | None = None
     degree: int | None = None
     extrapolation: str | None = None
+    # quantile (format version 4): the fitted quantiles (non-decreasing), their references
+    # (non-decreasing, in [0, 1]) and the output distribution (QUANTILE_OUTPUTS)
+    quantiles: tuple[float, ...] | None = None
+    references: tuple[float, ...] | None = None
+    output: str | None = None
 
     def spline_range(self) -> tuple[float, float]:
         """A spline's base interval [t[k], t[n]] (n = len(t) - k - 1): the range of the
@@ -103,6 +126,29 @@ SPLINE = "spline"
 SPLINE_EXTRAPOLATIONS = ("error", "constant", "linear", "continue", "periodic")
 SPLINE_DEGREES = (1, 2, 3)
 
+# Quantiles (format version 4): a numeric feature's first step {"op": "quantile",
+# "quantiles": q, "references": r, "output": "uniform" | "normal"}, as scikit-learn's
+# QuantileTransformer applies it (its _transform_col): "uniform" gives
+# 0.5 * (interp(x, q, r) - interp(-x, -q reversed, -r reversed)) with numpy's interp
+# (a value at or beyond an end takes that end's reference), then exactly 0.0 for x equal
+# to q[0] and 1.0 for x equal to q[-1]; "normal" takes 0.0 where x - 1e-7 < q[0] and 1.0
+# where x + 1e-7 > q[-1] instead, then the inverse normal CDF, clipped to its values at
+# QUANTILE_CLIP and 1 - QUANTILE_CLIP. Affine steps may follow.
+QUANTILE = "quantile"
+QUANTILE_OUTPUTS = ("uniform", "normal")
+QUANTILE_BOUNDS = 1e-7  # scikit-learn's BOUNDS_THRESHOLD
+QUANTILE_CLIP = 1e-7 - 2.0 ** -52  # BOUNDS_THRESHOLD - np.spacing(1)
+
+# Normalized columns (format version 4): {"feature": f, "normalize": {"norm": n,
+# "columns": [factor, ...], "position": j}, "scaling": [...]} is the value of columns[j]
+# divided by the row's norm over all the columns (each a numeric factor, as a product's:
+# the feature's value through its own scaling, 0.0 when missing without a fill), as
+# scikit-learn's Normalizer computes it: "l2" the square root of the sum of squares,
+# "l1" the sum of magnitudes, "max" the largest magnitude; a norm below NORM_FLOOR is
+# taken as 1.0 (its _handle_zeros_in_scale). `feature` is columns[j]'s.
+NORMS = ("l2", "l1", "max")
+NORM_FLOOR = 10 * 2.0 ** -52
+
 
 @dataclass(frozen=True)
 class NumericFeature:
@@ -120,6 +166,7 @@ class NumericFeature:
     clip: tuple[float, float] | None = None
     boolean: bool = False
     kind: str = field(default="numeric", init=False)
+    role: str | None = None  # format version 4: "offset" or "exposure" (ROLES)
 
 
 @dataclass(frozen=True)
@@ -165,6 +212,9 @@ class DesignColumn:
     # format version 3: the basis index of a spline feature's column (then `scaling`,
     # affine steps, () for none)
     basis: int | None = None
+    # format version 4: (norm, the columns normalized together, this column's position
+    # among them), then `scaling` (affine steps, () for none)
+    normalized: tuple[str, tuple["DesignColumn", ...], int] | None = None
 
 
 @dataclass(frozen=True)
@@ -264,29 +314,47 @@ def format_version(model: FrozenModel) -> int:
 
 
 def needs_version(model: FrozenModel) -> tuple[int, str]:
-    """The lowest format version that can hold the model, and what needs it."""
+    """The lowest format version that can hold the model, and what needs it (the
+    first construct of the highest version it uses)."""
+    return max(_needs(model), key=lambda need: need[0], default=(1, ""))
+
+
+def _needs(model: FrozenModel):
+    """(version, what) for every construct of the model an older version cannot hold."""
+    for feat in model.features:
+        if getattr(feat, "role", None) is not None:
+            yield 4, f"the {feat.role} role of feature {feat.name!r}"
+    for feat in model.features:
+        for step in getattr(feat, "scaling", ()):
+            if step.op == QUANTILE:
+                yield 4, f"the quantile step of feature {feat.name!r}"
+    for col in model.design:
+        if col.normalized is not None:
+            yield 4, f"the normalized column of feature {col.feature!r}"
+        for f in col.product or ():
+            if any(s.op == QUANTILE for s in f.scaling or ()):
+                yield 4, f"the quantile step of a factor of {col.feature!r}"
     for feat in model.features:
         for step in getattr(feat, "scaling", ()):
             if step.op == SPLINE or step.op in POWER_OPS:
-                return 3, f"the {step.op} step of feature {feat.name!r}"
+                yield 3, f"the {step.op} step of feature {feat.name!r}"
     if model.head.calibration is not None:
-        return 4, "the calibrated head"
+        yield 4, "the calibrated head"
     if model.head.link in LINK_VERSION:
-        return LINK_VERSION[model.head.link], f"the {model.head.link} link"
+        yield LINK_VERSION[model.head.link], f"the {model.head.link} link"
     if model.head.task == "binary" and model.head.link == "log":
-        return 3, "the log link of a binary head"
+        yield 3, "the log link of a binary head"
     for feat in model.features:
         for step in getattr(feat, "scaling", ()):
             if step.op in TRANSFORM_OPS or step.op == BINS:
-                return 2, f"the {step.op} transform of feature {feat.name!r}"
+                yield 2, f"the {step.op} transform of feature {feat.name!r}"
     for col in model.design:
         if col.missing is not None:
-            return 2, f"the missing indicator of feature {col.feature!r}"
+            yield 2, f"the missing indicator of feature {col.feature!r}"
         if col.product is not None:
-            return 2, f"the product column of feature {col.feature!r}"
+            yield 2, f"the product column of feature {col.feature!r}"
         if col.encoded is not None:
-            return 2, f"the encoded column of feature {col.feature!r}"
-    return 1, ""
+            yield 2, f"the encoded column of feature {col.feature!r}"
 
 
 def _document_body(model: FrozenModel) -> dict:
@@ -303,6 +371,8 @@ def _document_body(model: FrozenModel) -> dict:
             })
             if feat.boolean:
                 feats[-1]["boolean"] = True
+            if feat.role is not None:
+                feats[-1]["role"] = feat.role
         else:
             feats.append({
                 "name": feat.name,
@@ -347,6 +417,8 @@ def _steps_entry(steps) -> list:
             {"op": s.op, "edges": list(s.edges)} if s.op == BINS else
             {"op": s.op, "knots": list(s.knots), "degree": s.degree,
              "extrapolation": s.extrapolation} if s.op == SPLINE else
+            {"op": s.op, "quantiles": list(s.quantiles), "references": list(s.references),
+             "output": s.output} if s.op == QUANTILE else
             {"op": s.op, "value": s.value} for s in steps]
 
 
@@ -365,6 +437,10 @@ def _column_entry(col: DesignColumn) -> dict:
                             "missing": col.encoded[2]}
     if col.basis is not None:
         entry["basis"] = col.basis
+    if col.normalized is not None:
+        norm, columns, position = col.normalized
+        entry["normalize"] = {"norm": norm, "columns": [_column_entry(f) for f in columns],
+                              "position": position}
     return entry
 
 
@@ -521,6 +597,7 @@ def model_from_document(doc) -> FrozenModel:
                    for i, c in enumerate(r.array(doc["design"], "design")))
     _check_design(design, features)
     head = _read_head(doc["head"], len(design))
+    _check_roles(features, design, head)
     needed, what = needs_version(FrozenModel(name, features, design, head, {}))
     if needed > version:
         raise ModelFileError(f"format_version: {what} needs format_version {needed}, the file "
@@ -556,6 +633,11 @@ def _read_steps(array, where: str, fill, path: str, affine_only: bool = False) -
         if not affine_only and isinstance(step, dict) and step.get("op") == SPLINE:
             steps.append(_read_spline(step, spath, j, len(array), fill, path))
             continue
+        if not affine_only and isinstance(step, dict) and step.get("op") == QUANTILE:
+            if j != 0:
+                raise ModelFileError(f"{spath}.op: a quantile step must be the first step")
+            steps.append(_read_quantile(step, spath))
+            continue
         if not affine_only and isinstance(step, dict) and step.get("op") == BINS:
             r.obj(step, spath, ("op", "edges"))
             if j != 0:
@@ -579,7 +661,7 @@ def _read_steps(array, where: str, fill, path: str, affine_only: bool = False) -
             continue
         if step["op"] not in SCALING_OPS:
             allowed = SCALING_OPS if affine_only else (SCALING_OPS + TRANSFORM_OPS + POWER_OPS
-                                                       + (BINS, SPLINE))
+                                                       + (BINS, SPLINE, QUANTILE))
             raise ModelFileError(f"{spath}.op: expected one of {', '.join(allowed)}, "
                                  f"got {step['op']!r}")
         number = r.number(step["value"], f"{spath}.value")
@@ -587,6 +669,54 @@ def _read_steps(array, where: str, fill, path: str, affine_only: bool = False) -
             raise ModelFileError(f"{spath}.value: division by zero")
         steps.append(ScalingStep(step["op"], number))
     return tuple(steps)
+
+
+def _read_quantile(step, spath) -> ScalingStep:
+    r = _Reader
+    r.obj(step, spath, ("op", "quantiles", "references", "output"))
+    if step["output"] not in QUANTILE_OUTPUTS:
+        raise ModelFileError(f"{spath}.output: expected one of {', '.join(QUANTILE_OUTPUTS)}, "
+                             f"got {step['output']!r}")
+    lists = {}
+    for key in ("quantiles", "references"):
+        lists[key] = tuple(r.number(e, f"{spath}.{key}[{i}]")
+                           for i, e in enumerate(r.array(step[key], f"{spath}.{key}")))
+        if not lists[key] or any(not a <= b for a, b in itertools.pairwise(lists[key])):
+            raise ModelFileError(f"{spath}.{key}: expected non-decreasing numbers")
+    q, ref = lists["quantiles"], lists["references"]
+    if len(ref) != len(q):
+        raise ModelFileError(f"{spath}.references: expected one per quantile ({len(q)})")
+    if not (0.0 <= ref[0] and ref[-1] <= 1.0):
+        raise ModelFileError(f"{spath}.references: expected numbers from 0 to 1")
+    out = ScalingStep(QUANTILE, quantiles=q, references=ref, output=step["output"])
+    if not quantile_pieces_finite(out):
+        raise ModelFileError(f"{spath}.quantiles: two quantiles are too close for their "
+                             "references' slope to be a finite number")
+    return out
+
+
+def quantile_pieces(q, ref) -> list[tuple[float, float, float]]:
+    """numpy's interp(x, q, ref) as pieces (q_j, ref_j, slope_j), one per j that interp can
+    use for a value inside [q[0], q[-1]): j is the last index with q[j] <= x, so a run of
+    equal quantiles gives its last; slope_j = (ref[j+1] - ref[j]) / (q[j+1] - q[j]), as
+    numpy computes it."""
+    out = []
+    for j in range(len(q) - 1):
+        if q[j] < q[j + 1]:
+            out.append((q[j], ref[j], (ref[j + 1] - ref[j]) / (q[j + 1] - q[j])))
+    return out
+
+
+def quantile_pieces_finite(step) -> bool:
+    """Every piece of both interpolations stays finite over the quantiles' range."""
+    q, ref = step.quantiles, step.references
+    span = q[-1] - q[0]
+    for qs, rs in ((q, ref), (tuple(-v for v in reversed(q)), tuple(-v for v in reversed(ref)))):
+        for _, r0, slope in quantile_pieces(qs, rs):
+            if not (math.isfinite(slope) and math.isfinite(slope * span)
+                    and abs(slope * span) < 1e300):
+                return False
+    return math.isfinite(span)
 
 
 def _read_spline(step, spath, j, n_steps, fill, path) -> ScalingStep:
@@ -624,7 +754,8 @@ def _read_feature(value, path) -> Feature:
         raise ModelFileError(f"{path}: expected an object, got {_kind(value)}")
     kind = value.get("kind")
     if kind == "numeric":
-        r.obj(value, path, ("name", "kind", "missing", "scaling", "clip"), optional=("boolean",))
+        r.obj(value, path, ("name", "kind", "missing", "scaling", "clip"),
+              optional=("boolean", "role"))
         name = r.string(value["name"], f"{path}.name")
         missing = r.obj(value["missing"], f"{path}.missing", ("policy",), optional=("value",))
         policy = missing["policy"]
@@ -650,7 +781,18 @@ def _read_feature(value, path) -> Feature:
         boolean = value.get("boolean", False)
         if boolean is not True and "boolean" in value:
             raise ModelFileError(f"{path}.boolean: expected true (or no key), got {_kind(boolean)}")
-        return NumericFeature(name, fill, steps, clip, boolean)
+        role = value.get("role")
+        if "role" in value and role not in ROLES:
+            got = repr(role) if isinstance(role, str) else _kind(role)
+            raise ModelFileError(f"{path}.role: expected 'offset' or 'exposure', got {got}")
+        if role is not None:
+            want = (("log",) if role == "exposure" else ())
+            if fill is not None or clip is not None or tuple(s.op for s in steps) != want:
+                raise ModelFileError(f"{path}.role: an {role} has no fill, no clip and "
+                                     + ("one step, log" if want else "no steps"))
+            if boolean:
+                raise ModelFileError(f"{path}.role: an {role} is not boolean")
+        return NumericFeature(name, fill, steps, clip, boolean, role=role)
     if kind == "categorical":
         r.obj(value, path, ("name", "kind", "levels", "missing", "unknown"))
         name = r.string(value["name"], f"{path}.name")
@@ -697,6 +839,8 @@ def _known_level(value, levels, path):
 
 def _read_design(value, path, by_name) -> DesignColumn:
     r = _Reader
+    if isinstance(value, dict) and "normalize" in value:
+        return _read_normalized(value, path, by_name)
     if isinstance(value, dict) and "product" in value:
         r.obj(value, path, ("feature", "product", "scaling"))
         factors = tuple(_read_factor(f, f"{path}.product[{i}]", by_name)
@@ -766,6 +910,38 @@ def _read_design(value, path, by_name) -> DesignColumn:
     return DesignColumn(name, levels)
 
 
+def _read_normalized(value, path, by_name) -> DesignColumn:
+    r = _Reader
+    r.obj(value, path, ("feature", "normalize", "scaling"))
+    spec = r.obj(value["normalize"], f"{path}.normalize", ("norm", "columns", "position"))
+    if spec["norm"] not in NORMS:
+        raise ModelFileError(f"{path}.normalize.norm: expected one of {', '.join(NORMS)}, "
+                             f"got {spec['norm']!r}")
+    where = f"{path}.normalize.columns"
+    columns = []
+    for i, f in enumerate(r.array(spec["columns"], where)):
+        if not isinstance(f, dict) or "scaling" not in f:
+            raise ModelFileError(f"{where}[{i}]: expected a numeric column "
+                                 "({\"feature\": ..., \"scaling\": [...]})")
+        col = _read_factor(f, f"{where}[{i}]", by_name)
+        if any(s.op in (BINS, SPLINE) for s in col.scaling):
+            raise ModelFileError(f"{where}[{i}].scaling: a normalized column takes no "
+                                 f"{col.scaling[0].op} step")
+        columns.append(col)
+    if not columns:
+        raise ModelFileError(f"{where}: a norm needs a column")
+    j = spec["position"]
+    if type(j) is not int or not 0 <= j < len(columns):
+        raise ModelFileError(f"{path}.normalize.position: expected an index into its columns, "
+                             f"an integer from 0 to {len(columns) - 1}")
+    if value["feature"] != columns[j].feature:
+        raise ModelFileError(f"{path}.feature: expected the feature of the column at its "
+                             f"position, {columns[j].feature!r}")
+    steps = _read_steps(value["scaling"], f"{path}.scaling", None, path, affine_only=True)
+    return DesignColumn(columns[j].feature, normalized=(spec["norm"], tuple(columns), j),
+                        scaling=steps)
+
+
 def _read_basis(value, path, name, spline) -> DesignColumn:
     r = _Reader
     if spline is None:
@@ -819,6 +995,8 @@ def _check_design(design, features) -> None:
             indicated.add(col.feature)
         elif col.product is not None:
             indicated.update(f.feature for f in col.product)
+        elif col.normalized is not None:
+            indicated.update(f.feature for f in col.normalized[1])
         elif col.missing is not None or col.encoded is not None:
             indicated.add(col.feature)
         elif col.levels is None:
@@ -838,6 +1016,36 @@ def _check_design(design, features) -> None:
                                  "column and bin columns")
         if feat.name not in numeric_seen | indicated and feat.name not in level_seen:
             raise ModelFileError(f"features[{j}]: feature {feat.name!r} has no design column")
+
+
+def _check_roles(features, design, head) -> None:
+    """An offset or exposure: one at most, of a regression head (an exposure: the log link),
+    in one plain design column of its own with coefficient 1."""
+    marked = [(j, f) for j, f in enumerate(features) if getattr(f, "role", None)]
+    if len(marked) > 1:
+        raise ModelFileError(f"features[{marked[1][0]}].role: a model has one offset or "
+                             "exposure at most")
+    for j, feat in marked:
+        path = f"features[{j}].role"
+        if head.task != "regression":
+            raise ModelFileError(f"{path}: an {feat.role} belongs to a regression head, not "
+                                 f"{head.task}")
+        if feat.role == "exposure" and head.link != "log":
+            raise ModelFileError(f"{path}: an exposure needs the log link, the head's is "
+                                 f"{head.link}")
+        cols = [i for i, c in enumerate(design) if c.feature == feat.name or (
+            c.product is not None and any(f.feature == feat.name for f in c.product))]
+        if len(cols) != 1 or design[cols[0]] != DesignColumn(feat.name):
+            raise ModelFileError(f"{path}: an {feat.role} is one plain design column of its "
+                                 "own")
+        if head.coefficients[0][cols[0]] != 1.0:
+            raise ModelFileError(f"head.coefficients[0][{cols[0]}]: the coefficient of "
+                                 f"{feat.role} {feat.name!r} is 1")
+
+
+def role_feature(model: "FrozenModel"):
+    """The model's offset or exposure feature (format version 4), else None."""
+    return next((f for f in model.features if getattr(f, "role", None)), None)
 
 
 def bin_count(feat) -> int | None:

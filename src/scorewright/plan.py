@@ -24,12 +24,16 @@ Evaluation, in order:
    the value's bin (0.0 when missing without a fill), and a missing-indicator term is
    one of two contributions, as the input is present or missing (missing as step 1
    reads it, before the fill). Terms whose weights are all
-   zero are left out.
+   zero are left out. A model with an offset or exposure (`Plan.offset`, the feature's
+   role) sums a second margin, the rate's: the same terms in the same order without the
+   offset's, then the intercept.
 3. Link: binary, the stable sigmoid (logit), the normal CDF (probit, through the
    upper tail in `normal_tail`) or 1 - exp(-exp(m)) (cloglog); multiclass, the
-   max-shifted softmax; regression, identity or the guarded exp. Every `exp` argument is clamped to
-   [-exp_guard, +exp_guard] so no runtime overflows, underflows to a subnormal or
-   raises (PostgreSQL raises on both).
+   max-shifted softmax; "decision" (binary or multiclass), none: the margins are the
+   decision function and no probability is computed; regression, identity or the
+   guarded exp (with an offset: the count from the first margin, the rate from the
+   second). Every `exp` argument is clamped to [-exp_guard, +exp_guard] so no runtime
+   overflows, underflows to a subnormal or raises (PostgreSQL raises on both).
 4. Decision: binary, the positive class iff margin > cut; multiclass, the class
    of the largest margin, lowest index on ties.
 
@@ -50,7 +54,8 @@ import re
 from dataclasses import dataclass
 
 from .errors import ScorewrightError
-from .model import (BINS, POWER_OPS, SPLINE, TRANSFORM_OPS, CategoricalFeature,
+from .model import (BINS, DECISION, POWER_OPS, QUANTILE, SPLINE, TRANSFORM_OPS,
+                    CategoricalFeature,
                     FrozenModel, NumericFeature, ScalingStep, bin_count)
 
 
@@ -123,8 +128,11 @@ class Term:
     # | (input, "missing", (present, missing)), multiplied left to right; then `steps`
     factors: tuple = ()
     steps: tuple = ()
-    # basis: the spline basis index (weights per output; then `steps`, the column's own)
+    # basis: the spline basis index (weights per output; then `steps`, the column's own);
+    # normalized: the column's position among its `factors` (each (input, "numeric",
+    # steps)), divided by their `norm` (l2, l1, max), then `steps`
     basis: int = -1
+    norm: str = ""
 
     @property
     def lookups(self) -> tuple:
@@ -155,10 +163,18 @@ class Plan:
     # link "calibrated": the head's Calibration (the margins are its members' decision
     # values, member by member; program._lower_calibrated)
     calibration: object = None
+    # the input that is the model's offset or exposure (format version 4), else None: the
+    # program then outputs a second margin, without its term, and the rate from it
+    offset: int | None = None
 
     @property
     def n_outputs(self) -> int:
         return len(self.intercepts)
+
+    @property
+    def n_margins(self) -> int:
+        """The margins the program sums: one per output, and the rate's (no offset)."""
+        return self.n_outputs + (self.offset is not None)
 
     @property
     def feature_names(self) -> tuple[str, ...]:
@@ -166,7 +182,13 @@ class Plan:
 
     @property
     def n_probabilities(self) -> int:
-        return 0 if self.task == "regression" else len(self.classes)
+        return len(self.classes) if self.has_probabilities else 0
+
+    @property
+    def has_probabilities(self) -> bool:
+        """A classifier whose link gives probabilities (a "decision" head gives its margins
+        and its class alone)."""
+        return self.task != "regression" and self.link != DECISION
 
 
 def file_stem(name: str) -> str:
@@ -200,7 +222,7 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
         feat = model.features[i]
         cols = [j for j in all_cols if model.design[j].missing is None
                 and model.design[j].product is None and model.design[j].encoded is None
-                and model.design[j].basis is None]
+                and model.design[j].basis is None and model.design[j].normalized is None]
         if isinstance(feat, NumericFeature) and cols and model.design[cols[0]].levels:
             # one indicator per bin: per output, the contribution of each bin
             tables = []
@@ -229,6 +251,12 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
             if any(v != 0.0 for t in tables for v in t):
                 terms.append(Term(i, "categorical", tables=tuple(tables)))
         for j in all_cols:
+            if model.design[j].normalized is not None:
+                weights = tuple(head.coefficients[k][j] for k in range(n_out))
+                if any(w != 0.0 for w in weights):
+                    terms.append(_normalized_term(model, index_of, model.design[j], weights,
+                                                  prec))
+                continue
             if model.design[j].basis is not None:
                 if prec.name == "float":
                     raise ScorewrightError(f"feature {feat.name!r}: a spline is not scored in "
@@ -272,7 +300,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
         if isinstance(feat, NumericFeature):
             bound = _numeric_bound(feat, term_of.get(i), budgets, prec, i,
                                    [t for t in terms if t.kind == "product"],
-                                   [t for t in terms if t.kind == "basis" and t.input == i])
+                                   [t for t in terms if t.kind == "basis" and t.input == i],
+                                   [t for t in terms if t.kind == "normalized"])
             built.append(NumericInput(i, feat.name, feat.fill, bound,
                                       _steps_in(feat.scaling, prec), feat.clip, feat.boolean))
         else:
@@ -291,6 +320,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
         cut=head.cut,
         exp_kind=exp,
         calibration=head.calibration,
+        offset=next((i for i, f in enumerate(model.features)
+                     if getattr(f, "role", None) is not None), None),
     )
 
 
@@ -318,12 +349,26 @@ def _product_term(model, index_of, col, weights, prec: Precision) -> Term:
                 factors=tuple(factors), steps=tuple(col.scaling or ()))
 
 
+def _normalized_term(model, index_of, col, weights, prec: Precision) -> Term:
+    if prec.name == "float":
+        raise ScorewrightError(f"feature {col.feature!r}: a normalized column is not scored "
+                               "in single precision; use a double target")
+    norm, members, position = col.normalized
+    factors = tuple((index_of[f.feature], "numeric", _steps_in(f.scaling, prec))
+                    for f in members)
+    return Term(index_of[col.feature], "normalized", weights=weights, factors=factors,
+                steps=tuple(col.scaling or ()), basis=position, norm=norm)
+
+
 def _steps_in(steps, prec: Precision) -> tuple:
     """The steps as a plan of this precision holds them: in single precision a bin edge
     is the float a float target compares with (the inputs reach it as floats too), so
     the reference puts a value on the same side of it."""
     if prec.name != "float":
         return steps
+    if any(s.op == QUANTILE for s in steps):
+        raise ScorewrightError("a quantile step is not scored in single precision; use a "
+                               "double target")
     import numpy as np
 
     return tuple(ScalingStep(s.op, s.value, tuple(float(np.float32(e)) for e in s.edges))
@@ -343,14 +388,27 @@ def _term_budgets(terms, intercepts, prec: Precision) -> list[float]:
     n_numeric = max(1, sum(1 for t in terms if t.kind in grown))
     budgets = []
     for k, intercept in enumerate(intercepts):
-        fixed = abs(intercept) + sum(max(abs(v) for v in t.tables[k])
-                                     for t in terms if t.kind not in grown)
+        fixed = abs(intercept) + sum(_fixed_size(t, k) for t in terms if t.kind not in grown)
         if fixed >= prec.budget / 2:
             raise ScorewrightError(
                 f"model coefficients are too large to score safely in {prec.name} "
                 f"(intercept plus category contributions reach {fixed:.3g})")
         budgets.append((prec.budget - fixed) / n_numeric)
     return budgets
+
+
+def _fixed_size(term, k: int) -> float:
+    """The largest |contribution| to margin k of a term the input guard does not bound:
+    a looked-up or selected one, or a normalized column (|value| <= 1 before its steps,
+    taken as 2 for rounding)."""
+    if term.kind != "normalized":
+        return max(abs(v) for v in term.tables[k])
+    size = 2.0
+    for step in term.steps:
+        c = abs(step.value)
+        size = size + c if step.op in ("subtract", "add") else \
+            size * c if step.op == "multiply" else size / c
+    return abs(term.weights[k]) * size
 
 
 def _backward(allowed: float, steps, prec: Precision) -> float:
@@ -365,6 +423,9 @@ def _backward(allowed: float, steps, prec: Precision) -> float:
             continue
         if step.op == BINS:  # a bin number, 0..len(edges)
             allowed = prec.max_value if allowed >= len(step.edges) else 0.0
+            continue
+        if step.op == QUANTILE:  # in [0, 1] (uniform) or [-5.2, 5.2] (normal)
+            allowed = prec.max_value if allowed >= 6.0 else 0.0
             continue
         if step.op in TRANSFORM_OPS:
             # |log x| and |log1p x| <= 745 for every double the clamp lets through, and
@@ -438,7 +499,7 @@ def _power_backward(allowed: float, step) -> float:
 
 
 def _numeric_bound(feat, term, budgets, prec: Precision, index: int = -1,
-                   products=(), bases=()) -> float:
+                   products=(), bases=(), normalized=()) -> float:
     """The largest power of ten B such that clamping the raw value to [-B, B] keeps every
     scaling intermediate, every term and every margin finite (the margin stays within the
     precision's budget). A product term shares its allowance among its numeric factors
@@ -468,6 +529,13 @@ def _numeric_bound(feat, term, budgets, prec: Precision, index: int = -1,
         room = (room / others) ** (1.0 / n) if room > 0 else 0.0
         for f in mine:
             allowed = min(allowed, _backward(room, f[2], prec))
+    for t in normalized:  # a norm sums (squares of) its columns: each stays within room
+        room = prec.max_value / len(t.factors)
+        if t.norm == "l2":
+            room = math.sqrt(room)
+        for f in t.factors:
+            if f[0] == index:
+                allowed = min(allowed, _backward(room, f[2], prec))
     limit = allowed / 2  # slack for rounding in the forward direction
     if not limit >= MIN_USEFUL_BOUND[prec.name]:
         raise ScorewrightError(
@@ -494,14 +562,18 @@ def lookup_terms(plan: Plan) -> list[tuple[int, Term]]:
 
 
 def output_columns(plan: Plan) -> tuple[str, ...]:
-    """The output columns every tabular target appends, in order."""
+    """The output columns every tabular target appends, in order (a "decision" head has
+    no probability columns)."""
     if plan.task == "binary":
         # a calibrated head of several members: each member's decision value
         margins = ("margin",) if plan.n_outputs == 1 else tuple(
             f"margin_{j}" for j in range(plan.n_outputs))
-        return margins + ("probability", "predicted_class")
+        probs = ("probability",) if plan.has_probabilities else ()
+        return margins + probs + ("predicted_class",)
     if plan.task == "multiclass":
-        return (tuple(f"margin_{j}" for j in range(plan.n_outputs))
-                + tuple(f"probability_{j}" for j in range(len(plan.classes)))
+        probs = tuple(f"probability_{j}" for j in range(plan.n_probabilities))
+        return (tuple(f"margin_{j}" for j in range(plan.n_outputs)) + probs
                 + ("predicted_class",))
+    if plan.offset is not None:
+        return ("margin", "predicted_value", "predicted_rate")
     return ("margin", "predicted_value")

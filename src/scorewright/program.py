@@ -44,7 +44,8 @@ import numpy as np
 
 from . import normal_tail, portable_exp
 from .errors import ScorewrightError
-from .model import BINS, POWER_OPS, SPLINE, TRANSFORM_DOMAIN
+from .model import (BINS, NORM_FLOOR, POWER_OPS, QUANTILE, QUANTILE_BOUNDS, QUANTILE_CLIP,
+                    SPLINE, TRANSFORM_DOMAIN, quantile_pieces, quantile_pieces_finite)
 from .plan import CategoricalInput, NumericInput, Plan
 from .values import MISSING_CODE, UNSEEN_CODE, category_code, numeric_value
 
@@ -102,6 +103,9 @@ class _Builder:
         self.raw_codes: dict[int, str] = {}  # categorical input -> its code as read
         self.bases: dict[int, list] = {}   # spline input -> its basis values, by index
         self.basis_terms: dict[int, str] = {}  # a basis term (by id) -> its design value
+        self.members: dict[tuple, str] = {}  # (input, steps) of a normalized column -> value
+        self.norms: dict[tuple, str] = {}    # (norm, factors) -> the norm, floored
+        self.normalized: dict[int, str] = {}  # a normalized term (by id) -> its design value
 
     def emit(self, op: str, *args, attr=None, hint: str = "t") -> str:
         if op not in PRIMITIVES:
@@ -129,9 +133,12 @@ def lower(plan: Plan) -> Program:
         else:
             design[inp.index] = b.codes[inp.index] = _lower_code(b, inp)
     margins = []
+    offset_terms = []  # margin 0's terms but the offset's: the rate's margin
     for k in range(plan.n_outputs):
         terms = []
         for term in plan.terms:
+            if k == 0 and plan.offset is not None and term.input != plan.offset:
+                offset_terms.append(len(terms))
             v = design[term.input]
             if term.kind == "numeric":
                 terms.append(b.emit("mul", Const(term.weights[k]), v, hint="w"))
@@ -156,14 +163,23 @@ def lower(plan: Plan) -> Program:
             elif term.kind == "basis":
                 terms.append(b.emit("mul", Const(term.weights[k]),
                                     _basis_value(b, plan, term), hint="w"))
+            elif term.kind == "normalized":
+                terms.append(b.emit("mul", Const(term.weights[k]),
+                                    _normalized_value(b, plan, term), hint="w"))
             elif term.kind == "missing":
                 present, missing = term.tables[k]
                 terms.append(b.emit("select", _missing_flag(b, plan.inputs[term.input]),
                                     Const(missing), Const(present), hint="w"))
             else:
                 terms.append(b.emit("lookup", v, attr=term.tables[k], hint="w"))
+        if k == 0:
+            kept = [terms[j] for j in offset_terms]
         terms.append(Const(plan.intercepts[k]))
         margins.append(b.emit("sum", *terms, hint="m") if len(terms) > 1 else terms[0])
+    if plan.offset is not None:
+        # the rate's margin: the same terms, the same order, without the offset's
+        kept.append(Const(plan.intercepts[0]))
+        margins.append(b.emit("sum", *kept, hint="m") if len(kept) > 1 else kept[0])
     names = output_names(plan)
     values = _lower_link(b, plan, margins)
     for name, value in zip(names, values, strict=True):
@@ -173,11 +189,13 @@ def lower(plan: Plan) -> Program:
 
 def output_names(plan: Plan) -> tuple[str, ...]:
     """The program's outputs: every margin, every class probability, then the class index
-    (classification) or the value (regression)."""
-    margins = tuple(f"margin_{k}" for k in range(plan.n_outputs))
+    (classification) or the value (regression). A model with an offset (or exposure) has a
+    second margin, `margin_1`, without the offset's term, and outputs the `rate` (its
+    inverse link) after the value (the expected count)."""
+    margins = tuple(f"margin_{k}" for k in range(plan.n_margins))
     if plan.task == "regression":
-        return margins + ("value",)
-    probs = tuple(f"probability_{j}" for j in range(len(plan.classes)))
+        return margins + (("value", "rate") if plan.offset is not None else ("value",))
+    probs = tuple(f"probability_{j}" for j in range(plan.n_probabilities))
     return margins + probs + ("class_index",)
 
 
@@ -258,6 +276,8 @@ def _apply_steps(b: _Builder, v, steps, single: bool = False):
             v = _TRANSFORM[step.op](b, v, single)
         elif step.op in POWER_OPS:
             v = _lower_power(b, v, step, single)
+        elif step.op == QUANTILE:
+            v = _lower_quantile(b, v, step)
         else:
             v = b.emit(_STEP_OP[step.op], v, Const(step.value), hint="v")
     return v
@@ -301,6 +321,227 @@ def _basis_value(b: _Builder, plan: Plan, term):
             v = b.emit("select", b.missing[term.input], Const(0.0), v, hint="v")
         b.basis_terms[id(term)] = _apply_steps(b, v, term.steps)
     return b.basis_terms[id(term)]
+
+
+def _normalized_value(b: _Builder, plan: Plan, term):
+    """A normalized column's design value: its column's value divided by the row's norm
+    over all the columns normalized with it (a norm below NORM_FLOOR taken as 1.0, as
+    scikit-learn's _handle_zeros_in_scale does), then the column's own steps. Each column
+    is a numeric factor (its input's clamped value through its steps, 0.0 when missing
+    without a fill); the norm is computed once per set of columns."""
+    if id(term) in b.normalized:
+        return b.normalized[id(term)]
+    members = []
+    for i, _, steps in term.factors:
+        if (i, steps) not in b.members:
+            f = _apply_steps(b, b.clamped[i], steps)
+            if plan.inputs[i].fill is None:
+                f = b.emit("select", b.missing[i], Const(0.0), f, hint="v")
+            b.members[(i, steps)] = f
+        members.append(b.members[(i, steps)])
+    key = (term.norm, term.factors)
+    if key not in b.norms:
+        norm = _NORMS[term.norm](b, members)
+        b.norms[key] = b.emit("select", b.emit("gt", Const(NORM_FLOOR), norm, hint="f"),
+                              Const(1.0), norm, hint="v")
+    v = b.emit("div", members[term.basis], b.norms[key], hint="v")
+    b.normalized[id(term)] = _apply_steps(b, v, term.steps)
+    return b.normalized[id(term)]
+
+
+def _lower_l2(b: _Builder, xs):
+    """sqrt of the sum of squares in the order of numpy's einsum("ij,ij->i") over a
+    C-ordered row (its sum_of_products_contig_contig_outstride0_two on 2-lane vectors,
+    measured bit for bit): lane l adds the squares at positions l, l + 2, ...; a block of
+    8 is added to the lanes last vector first; then the lanes are added."""
+    sq = [b.emit("mul", x, x, hint="v") for x in xs]
+    lanes: list = [None, None]
+
+    def push(lane, v):
+        lanes[lane] = v if lanes[lane] is None else b.emit("add", lanes[lane], v, hint="v")
+
+    i, n = 0, len(sq)
+    while n - i >= 8:
+        for vec in (3, 2, 1, 0):
+            for lane in (0, 1):
+                push(lane, sq[i + 2 * vec + lane])
+        i += 8
+    for j in range(i, n):
+        push((j - i) % 2, sq[j])
+    total = lanes[0] if lanes[1] is None else b.emit("add", lanes[0], lanes[1], hint="v")
+    return b.emit("sqrt", total, hint="v")
+
+
+def _pairwise(b: _Builder, xs):
+    """numpy's pairwise sum (its add reduction along a contiguous row): below 8 terms in
+    order; up to 128, eight running sums combined as ((r0 + r1) + (r2 + r3)) + ((r4 + r5)
+    + (r6 + r7)), then the rest in order; beyond, the two halves (the first a multiple
+    of 8) summed apart."""
+    n = len(xs)
+    if n < 8:
+        s = xs[0]
+        for x in xs[1:]:
+            s = b.emit("add", s, x, hint="v")
+        return s
+    if n <= 128:
+        r = list(xs[:8])
+        i = 8
+        while i < n - n % 8:
+            r = [b.emit("add", r[j], xs[i + j], hint="v") for j in range(8)]
+            i += 8
+
+        def add(u, v):
+            return b.emit("add", u, v, hint="v")
+        s = add(add(add(r[0], r[1]), add(r[2], r[3])), add(add(r[4], r[5]), add(r[6], r[7])))
+        for x in xs[i:]:
+            s = add(s, x)
+        return s
+    half = n // 2
+    half -= half % 8
+    return b.emit("add", _pairwise(b, xs[:half]), _pairwise(b, xs[half:]), hint="v")
+
+
+def _lower_l1(b: _Builder, xs):
+    return _pairwise(b, [b.emit("abs", x, hint="v") for x in xs])
+
+
+def _lower_max_norm(b: _Builder, xs):
+    m = b.emit("abs", xs[0], hint="v")
+    for x in xs[1:]:
+        m = b.emit("max", m, b.emit("abs", x, hint="v"), hint="v")
+    return m
+
+
+_NORMS = {"l2": _lower_l2, "l1": _lower_l1, "max": _lower_max_norm}
+
+
+def _lower_interp(b: _Builder, x, q, ref):
+    """numpy's interp(x, q, ref) for a finite x, operation for operation (its C arr_interp):
+    ref[0] below q[0]; ref[-1] at or above q[-1]; else slope_j * (x - q[j]) + ref[j] for
+    the last j with q[j] <= x (`quantile_pieces`; a value on q[j] gives ref[j] exactly,
+    as numpy's own rule there). The piece is chosen by a balanced tree of selections on x
+    clamped into [q[0], q[-1]], so no piece meets a far x."""
+    pieces = quantile_pieces(q, ref)
+    if not pieces:
+        return Const(ref[-1])
+    xc = b.emit("min", b.emit("max", x, Const(q[0]), hint="v"), Const(q[-1]), hint="v")
+    leaves = [b.emit("add", b.emit("mul", Const(slope), b.emit("sub", xc, Const(qj))),
+                     Const(rj), hint="v") for qj, rj, slope in pieces]
+
+    def tree(lo, hi):
+        if lo == hi:
+            return leaves[lo]
+        mid = (lo + hi + 1) // 2
+        return b.emit("select", b.emit("ge", xc, Const(pieces[mid][0]), hint="f"),
+                      tree(mid, hi), tree(lo, mid - 1), hint="v")
+    v = tree(0, len(pieces) - 1)
+    v = b.emit("select", b.emit("ge", x, Const(q[-1]), hint="f"), Const(ref[-1]), v, hint="v")
+    return b.emit("select", b.emit("gt", Const(q[0]), x, hint="f"), Const(ref[0]), v, hint="v")
+
+
+def _lower_quantile(b: _Builder, x, step):
+    """scikit-learn's QuantileTransformer on a finite x (its _transform_col): the mean of
+    the interpolation up the quantiles and the one down them, 0.5 * (interp(x, q, r) -
+    interp(-x, -q reversed, -r reversed)); "uniform": exactly 0.0 at q[0] and 1.0 at
+    q[-1] (q[0] wins when they are one value); "normal": 0.0 where x - 1e-7 < q[0] and
+    1.0 where x + 1e-7 > q[-1], then the inverse normal CDF (`_lower_ndtri`) of the
+    probability clamped to [QUANTILE_CLIP, 1 - QUANTILE_CLIP], which is scikit-learn's
+    clip of the value."""
+    q, ref = step.quantiles, step.references
+    if not quantile_pieces_finite(step):
+        raise ScorewrightError("a quantile step's quantiles are too close together for a "
+                               "finite slope")
+    up = _lower_interp(b, x, q, ref)
+    down = _lower_interp(b, b.emit("neg", x, hint="v"), tuple(-v for v in reversed(q)),
+                         tuple(-v for v in reversed(ref)))
+    u = b.emit("mul", Const(0.5), b.emit("sub", up, down), hint="v")
+    if step.output == "uniform":
+        u = b.emit("select", b.emit("eq", x, Const(q[-1]), hint="f"), Const(1.0), u, hint="v")
+        return b.emit("select", b.emit("eq", x, Const(q[0]), hint="f"), Const(0.0), u,
+                      hint="v")
+    high = b.emit("gt", b.emit("add", x, Const(QUANTILE_BOUNDS)), Const(q[-1]), hint="f")
+    u = b.emit("select", high, Const(1.0), u, hint="v")
+    low = b.emit("gt", Const(q[0]), b.emit("sub", x, Const(QUANTILE_BOUNDS)), hint="f")
+    u = b.emit("select", low, Const(0.0), u, hint="v")
+    u = b.emit("min", b.emit("max", u, Const(QUANTILE_CLIP), hint="v"),
+               Const(1.0 - QUANTILE_CLIP), hint="v")
+    return _lower_ndtri(b, u)
+
+
+# Wichura, "Algorithm AS 241: The percentage points of the normal distribution", Applied
+# Statistics 37(3), 477-484 (1988), PPND16: its coefficients, as published. For
+# |p - 1/2| <= 0.425, (p - 1/2) A(r) / B(r) with r = 0.180625 - (p - 1/2)^2; else, with
+# r = sqrt(-log(min(p, 1 - p))) <= 5, C(r - 1.6) / D(r - 1.6) with the sign of p - 1/2
+# (its third branch, r > 5, is never reached: the quantile step clamps p to at least
+# QUANTILE_CLIP, r <= 4.02). Checked against mpmath's erfinv (tests/test_quantile.py).
+NDTRI_A = (3.3871328727963666080, 1.3314166789178437745e+2, 1.9715909503065514427e+3,
+           1.3731693765509461125e+4, 4.5921953931549871457e+4, 6.7265770927008700853e+4,
+           3.3430575583588128105e+4, 2.5090809287301226727e+3)
+NDTRI_B = (1.0, 4.2313330701600911252e+1, 6.8718700749205790830e+2,
+           5.3941960214247511077e+3, 2.1213794301586595867e+4, 3.9307895800092710610e+4,
+           2.8729085735721942674e+4, 5.2264952788528545610e+3)
+NDTRI_C = (1.42343711074968357734, 4.63033784615654529590, 5.76949722146069140550,
+           3.64784832476320460504, 1.27045825245236838258, 2.41780725177450611770e-1,
+           2.27238449892691845833e-2, 7.74545014278341407640e-4)
+NDTRI_D = (1.0, 2.05319162663775882187, 1.67638483018380384940, 6.89767334985100004550e-1,
+           1.48103976427480074590e-1, 1.51986665636164571966e-2, 5.47593808499534494600e-4,
+           1.05075007164441684324e-9)
+
+
+def _horner(b: _Builder, coefs, r):
+    v = Const(coefs[-1])
+    for c in reversed(coefs[:-1]):
+        v = b.emit("add", b.emit("mul", v, r), Const(c))
+    return v
+
+
+def _lower_ndtri(b: _Builder, p):
+    """The inverse normal CDF of p in [QUANTILE_CLIP, 1 - QUANTILE_CLIP] by AS 241 (above),
+    in primitives and the program's own log, so every target computes the same bits.
+    Each branch is computed on operands clamped to the range where it is selected (|q| <=
+    0.425 for the central one, 0 <= r - 1.6 <= 2.5 for the tail, r <= 4.02 there), which
+    changes no selected value and bounds every divisor away from zero."""
+    q = b.emit("sub", p, Const(0.5))
+    qc = b.emit("min", b.emit("max", q, Const(-0.425)), Const(0.425))
+    r = b.emit("sub", Const(0.180625), b.emit("mul", qc, qc))
+    central = b.emit("div", b.emit("mul", qc, _horner(b, NDTRI_A, r)), _horner(b, NDTRI_B, r))
+    below = b.emit("gt", Const(0.0), q, hint="f")
+    tail_p = b.emit("select", below, p, b.emit("sub", Const(1.0), p))
+    t = b.emit("sub", b.emit("sqrt", b.emit("neg", _lower_log_unit(b, tail_p))), Const(1.6))
+    t = b.emit("min", b.emit("max", t, Const(0.0)), Const(2.5))
+    tail = b.emit("div", _horner(b, NDTRI_C, t), _horner(b, NDTRI_D, t))
+    tail = b.emit("select", below, b.emit("neg", tail), tail)
+    return b.emit("select", b.emit("ge", Const(0.425), b.emit("abs", q), hint="f"), central,
+                  tail, hint="v")
+
+
+def _lower_log_unit(b: _Builder, x):
+    """`_lower_log` of x in [2^-31, 1], the same operations on the same values: the range
+    reduction scales x up by selected powers of two (x * 2^j where it applies, rather than
+    x times a selected factor, so PostgreSQL's underflow guards see products by
+    constants) into [1, 2), then halves it past sqrt(2); then the same series."""
+    k = Const(0.0)
+    for j in (16, 8, 4, 2, 1):
+        down = b.emit("gt", Const(2.0 ** (1 - j)), x)
+        x = b.emit("select", down, b.emit("mul", x, Const(2.0 ** j)), x)
+        k = b.emit("sub", k, b.emit("select", down, Const(float(j)), Const(0.0)))
+    over = b.emit("gt", x, Const(math.sqrt(2.0)))
+    x = b.emit("select", over, b.emit("mul", x, Const(0.5)), x)
+    k = b.emit("add", k, b.emit("select", over, Const(1.0), Const(0.0)))
+    return _log_series(b, x, k)
+
+
+def ndtri(p: float) -> float:
+    """The quantile step's inverse normal CDF of one probability, run by the scalar op
+    table (what every target computes)."""
+    b = _Builder()
+    b.types["p"] = REAL
+    v = _lower_ndtri(b, "p")
+    env: dict[str, Any] = {"p": p}
+    for op in b.ops:
+        args = [a.value if isinstance(a, Const) else env[a] for a in op.args]
+        env[op.dest] = SCALAR[op.op](*args)
+    return env[v] if isinstance(v, str) else v.value
 
 
 def _lower_spline(b: _Builder, x, step, bound: float) -> list:
@@ -473,6 +714,11 @@ def _lower_log(b: _Builder, x, single: bool = False):
     over = b.emit("gt", x, Const(math.sqrt(2.0)))
     x = b.emit("mul", x, b.emit("select", over, Const(0.5), Const(1.0)))
     k = b.emit("add", k, b.emit("select", over, Const(1.0), Const(0.0)))
+    return _log_series(b, x, k)
+
+
+def _log_series(b: _Builder, x, k):
+    """log(x * 2^k) for x in [sqrt(2)/2, sqrt(2)] (`_lower_log`'s second half)."""
     f = b.emit("sub", x, Const(1.0))
     s = b.emit("div", f, b.emit("add", Const(2.0), f))
     z = b.emit("mul", s, s)
@@ -590,21 +836,29 @@ def _lower_code(b: _Builder, inp: CategoricalInput) -> str:
 
 
 def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
-    """The output values in `output_columns` order."""
+    """The output values in `output_names` order. The class: binary, 1 iff margin > cut
+    (-0.0 and 0.0 are not above a cut of 0.0); multiclass, the first largest margin (the
+    lowest index on ties, as numpy's argmax). The "decision" link stops there: its margins
+    are the decision function, and it computes no probability (nor any exp). No margin is
+    NaN (every input is clamped to its bound, every margin stays within the precision's
+    budget); were one, each rule is still these comparisons, false on NaN, the same on
+    every target: binary class 0, multiclass the class chosen before it."""
     guard = plan.precision.exp_guard
     if plan.link == "calibrated":
         return [*margins, *_lower_calibrated(b, plan, margins)]
     if plan.task == "binary":
         m = margins[0]
-        p0, p1 = _BINARY_LINKS[plan.link](b, plan, m)
+        probs = _BINARY_LINKS[plan.link](b, plan, m) if plan.has_probabilities else ()
         cls = b.emit("select", b.emit("gt", m, Const(plan.cut)), Const(1), Const(0), hint="k")
-        return [m, p0, p1, cls]
+        return [m, *probs, cls]
     if plan.task == "multiclass":
         top, best = margins[0], Const(0)
         for k in range(1, len(margins)):
             higher = b.emit("gt", margins[k], top)
             top = b.emit("select", higher, margins[k], top)
             best = b.emit("select", higher, Const(k), best, hint="k")
+        if not plan.has_probabilities:
+            return [*margins, best]
         if plan.link == "ovr_logit":
             # one-vs-rest: each class's sigmoid, divided by their sum
             sig = [_lower_logit(b, plan, m)[1] for m in margins]
@@ -615,21 +869,28 @@ def _lower_link(b: _Builder, plan: Plan, margins: list) -> list:
         total = b.emit("sum", *exps) if len(exps) > 1 else exps[0]
         probs = [b.emit("div", e, total, hint="p") for e in exps]
         return [*margins, *probs, best]
-    m = margins[0]
+    if plan.offset is not None:  # the count, then the rate, by the same link
+        return [*margins, *(_regression_value(b, plan, m) for m in margins)]
+    return [margins[0], _regression_value(b, plan, margins[0])]
+
+
+def _regression_value(b: _Builder, plan: Plan, m):
+    """A regression margin's inverse link."""
+    guard = plan.precision.exp_guard
     if plan.link in ("log", "log1p"):
         g = b.emit("max", m, Const(-guard))
         g = b.emit("min", g, Const(plan.precision.log_link_max))
         if plan.link == "log1p":
-            return [m, _lower_expm1(b, g, plan.precision.name == "float")]
-        return [m, b.emit("exp", g, hint="y")]
+            return _lower_expm1(b, g, plan.precision.name == "float")
+        return b.emit("exp", g, hint="y")
     if plan.link == "sqrt":
         # the square of the margin, clamped so it stays finite
         top = math.sqrt(plan.precision.max_value)
         g = b.emit("min", b.emit("max", m, Const(-top)), Const(top))
-        return [m, b.emit("mul", g, g, hint="y")]
+        return b.emit("mul", g, g, hint="y")
     if plan.link == "inverse":
-        return [m, _lower_inverse(b, plan, m)]
-    return [m, m]
+        return _lower_inverse(b, plan, m)
+    return m
 
 
 # scikit-learn's CalibratedClassifierCV leaves a probability above 1.0 + 1e-5 alone and sets
@@ -775,17 +1036,88 @@ def _lower_expm1(b: _Builder, g, single: bool = False):
     for c in reversed(EXPM1_SERIES[:-1]):
         s = b.emit("add", b.emit("mul", s, r), Const(c))
     e = b.emit("mul", s, r)
-    scale, rest = Const(1.0), k
-    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
-        up = b.emit("ge", rest, Const(float(j)))
-        scale = b.emit("mul", scale, b.emit("select", up, Const(2.0 ** j), Const(1.0)))
-        rest = b.emit("sub", rest, b.emit("select", up, Const(float(j)), Const(0.0)))
-    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
-        down = b.emit("ge", Const(float(-j)), rest)
-        scale = b.emit("mul", scale, b.emit("select", down, Const(2.0 ** -j), Const(1.0)))
-        rest = b.emit("add", rest, b.emit("select", down, Const(float(j)), Const(0.0)))
+    scale = _pow2_of(b, k, hint="t")
     whole = b.emit("sub", b.emit("mul", b.emit("add", e, Const(1.0)), scale), Const(1.0))
     return b.emit("select", b.emit("eq", k, Const(0.0)), e, whole, hint="y")
+
+
+def exp_in_primitives(program: Program) -> Program:
+    """The program with each exp written out as the portable exp (`portable_exp.STEPS`) in
+    primitives, for a target that carries no routine of its own (ONNX): the same bits as
+    `portable_exp.exp`, step for step. Only a plan whose exp is the portable one."""
+    if program.plan.exp_kind != "portable":
+        raise ValueError("only the portable exp is written in primitives")
+    b = _Builder()
+    b.types.update({op.dest: op.type for op in program.ops})
+    ops = []
+    for op in program.ops:
+        if op.op != "exp":
+            ops.append(op)
+            continue
+        b.ops = []
+        y, scale = _lower_portable_exp(b, op.args[0])
+        ops.extend(b.ops)
+        ops.append(Op(op.dest, "mul", (y, scale), REAL))
+    return Program(program.plan, tuple(ops), program.outputs)
+
+
+# (a + split) - split is a rounded to the nearest integer, for 0 <= a < 2^51
+_ROUND_SPLIT = 1.5 * 2.0 ** 52
+
+
+def _lower_portable_exp(b: _Builder, x) -> tuple[str, str]:
+    """`portable_exp.STEPS` in primitives: (y, 2^k), whose product is the portable exp of x.
+    half_away is a selection; trunc is the floor of |t| (rounded by the split, less one
+    where that rounded up) with t's sign, +0 for a zero; scale2 is a product of selected
+    powers of two (`_pow2_of`), exactly 2^k, so y * 2^k is the routine's one rounding."""
+    c = {name: Const(float.fromhex(text)) for name, text in portable_exp.CONSTANTS.items()}
+    x = b.emit("max", x, c["LOW"], hint="xp")
+    x = b.emit("min", x, c["HIGH"], hint="xp")
+    t = b.emit("mul", x, c["INV_LN2"], hint="xp")
+    up = b.emit("ge", t, Const(0.0), hint="xp")
+    t = b.emit("add", t, b.emit("select", up, c["HALF"], Const(-c["HALF"].value), hint="xp"),
+               hint="xp")
+    a = b.emit("abs", t, hint="xp")
+    n = b.emit("sub", b.emit("add", a, Const(_ROUND_SPLIT), hint="xp"), Const(_ROUND_SPLIT),
+               hint="xp")
+    n = b.emit("select", b.emit("gt", n, a, hint="xp"), b.emit("sub", n, c["ONE"], hint="xp"),
+               n, hint="xp")
+    k = b.emit("select", b.emit("ge", t, Const(0.0), hint="xp"), n,
+               b.emit("sub", Const(0.0), n, hint="xp"), hint="xp")
+    hi = b.emit("sub", x, b.emit("mul", k, c["LN2_HI"], hint="xp"), hint="xp")
+    lo = b.emit("mul", k, c["LN2_LO"], hint="xp")
+    r = b.emit("sub", hi, lo, hint="xp")
+    z = b.emit("mul", r, r, hint="xp")
+    p = b.emit("mul", z, c["P5"], hint="xp")
+    for coef in ("P4", "P3", "P2"):
+        p = b.emit("mul", z, b.emit("add", p, c[coef], hint="xp"), hint="xp")
+    p = b.emit("mul", z, b.emit("add", p, c["P1"], hint="xp"), hint="xp")
+    cc = b.emit("sub", r, p, hint="xp")
+    q = b.emit("div", b.emit("mul", r, cc, hint="xp"), b.emit("sub", c["TWO"], cc, hint="xp"),
+               hint="xp")
+    y = b.emit("sub", b.emit("sub", lo, q, hint="xp"), hi, hint="xp")
+    y = b.emit("sub", c["ONE"], y, hint="xp")
+    return y, _pow2_of(b, k)
+
+
+def _pow2_of(b: _Builder, k, hint: str = "xp"):
+    """2^k for an integral real k in [-1022, 1023], as the product of the powers 2^j
+    (then 2^-j) of k's binary digits: each product a power of two between 1 and 2^k,
+    so exact (the expm1 lowering's and the portable exp's scaling)."""
+    scale, rest = Const(1.0), k
+    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
+        up = b.emit("ge", rest, Const(float(j)), hint=hint)
+        scale = b.emit("mul", scale, b.emit("select", up, Const(2.0 ** j), Const(1.0),
+                                            hint=hint), hint=hint)
+        rest = b.emit("sub", rest, b.emit("select", up, Const(float(j)), Const(0.0),
+                                          hint=hint), hint=hint)
+    for j in (512, 256, 128, 64, 32, 16, 8, 4, 2, 1):
+        down = b.emit("ge", Const(float(-j)), rest, hint=hint)
+        scale = b.emit("mul", scale, b.emit("select", down, Const(2.0 ** -j), Const(1.0),
+                                            hint=hint), hint=hint)
+        rest = b.emit("add", rest, b.emit("select", down, Const(float(j)), Const(0.0),
+                                          hint=hint), hint=hint)
+    return scale
 
 
 def inverse_floor(plan: Plan) -> float:
@@ -798,7 +1130,13 @@ def _lower_inverse(b: _Builder, plan: Plan, m):
     """1 / m (a Gamma model's inverse link: statsmodels' InversePower). A margin nearer
     zero than the smallest normal number, where 1 / m overflows or divides by zero, is
     taken as that number with the margin's sign (+0 and -0 as +): the value is then the
-    largest the link gives (about 4.5e307 in double), the same on every target."""
+    largest the link gives (about 4.5e307 in double), the same on every target. Single
+    precision is refused: near the pole a float margin's rounding (cancellation among its
+    terms) moves 1 / m without bound, so no stated tolerance could hold."""
+    if plan.precision.name == "float":
+        raise ScorewrightError("the inverse link (1 / margin) is not scored in single "
+                               "precision: near its pole the float margin's rounding moves "
+                               "the value without bound; use a double target")
     tiny = inverse_floor(plan)
     small = b.emit("gt", Const(tiny), b.emit("abs", m), hint="f")
     edge = b.emit("select", b.emit("ge", m, Const(0.0), hint="f"), Const(tiny), Const(-tiny))
@@ -1098,7 +1436,9 @@ def _run_matrix(program: Program, matrix: np.ndarray):
         elif op.op == "read_code":
             value = _np_codes(matrix[:, op.attr], len(plan.inputs[op.attr].levels))
         elif op.op == "exp":
-            value = _EXP[plan.exp_kind](np.asarray(args[0], dtype=np.float64)).astype(np.float64)
+            # np.asarray: on a 0-d operand (a constant margin) frompyfunc gives a float
+            value = np.asarray(_EXP[plan.exp_kind](np.asarray(args[0], dtype=np.float64)),
+                               dtype=np.float64)
         elif op.op == "lookup":
             value = _np_lookup(args[0], op.attr)
         elif op.op == "output":

@@ -23,9 +23,11 @@ from .values import category_code, numeric_value
 @dataclass(frozen=True)
 class Score:
     margins: tuple[float, ...]
-    probabilities: tuple[float, ...] | None  # classification, in class order
+    probabilities: tuple[float, ...] | None  # classification with probabilities, in class
+    #                                          order (None: a "decision" head has none)
     class_index: int | None                  # classification
     value: float | None                      # regression
+    rate: float | None = None                # regression with an offset or exposure
 
     @property
     def label(self):
@@ -52,8 +54,9 @@ def score_row(plan: Plan, row: Mapping) -> Score:
     out = run_row(program_of(plan), row)
     margins = tuple(out[f"margin_{k}"] for k in range(plan.n_outputs))
     if plan.task == "regression":
-        return Score(margins, None, None, out["value"])
-    probs = tuple(out[f"probability_{j}"] for j in range(len(plan.classes)))
+        return Score(margins, None, None, out["value"], out.get("rate"))
+    probs = tuple(out[f"probability_{j}"] for j in range(plan.n_probabilities)) \
+        if plan.has_probabilities else None
     return Score(margins, probs, out["class_index"], None)
 
 
@@ -82,17 +85,21 @@ def encode_rows(plan: Plan, rows) -> np.ndarray:
 
 
 def score_matrix(plan: Plan, matrix: np.ndarray) -> dict[str, np.ndarray]:
-    """Score many rows; returns margins (n, K), probabilities (n, C) or value (n,),
-    and class_index (n,)."""
+    """Score many rows; returns margins (n, K), probabilities (n, C) (not for a
+    "decision" head) or value (n,) (and rate (n,) with an offset or exposure), and
+    class_index (n,)."""
     out = run_matrix(program_of(plan), matrix)
     n = np.asarray(matrix).shape[0]
     result = {"margins": np.stack([out[f"margin_{k}"] for k in range(plan.n_outputs)], axis=1)
               .reshape(n, plan.n_outputs)}
     if plan.task == "regression":
         result["value"] = out["value"]
+        if "rate" in out:
+            result["rate"] = out["rate"]
     else:
-        result["probabilities"] = np.stack(
-            [out[f"probability_{j}"] for j in range(len(plan.classes))], axis=1)
+        if plan.has_probabilities:
+            result["probabilities"] = np.stack(
+                [out[f"probability_{j}"] for j in range(plan.n_probabilities)], axis=1)
         result["class_index"] = out["class_index"].astype(np.int64)
     return result
 

@@ -36,6 +36,9 @@ from .templating import render
 OPTIONS = ("prefix", "precision", "decision_only", "portable_exp", "report")
 
 
+# The outputs the link writes, in the program's order (the class index is decided apart).
+LINKED = ("probability_", "value", "rate")
+
 # Terms per function of a wide model's row scorer (see row_parts).
 ROW_PART_TERMS = 64
 
@@ -120,6 +123,8 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         "pick": pick_name(prefix, PRECISIONS["double"]),
         "pickf": pick_name(prefix, PRECISIONS["float"]),
         "decision_only": decision_only,
+        # a "decision" head's row functions give margins and the class, its batch the margins
+        "probabilities": plan.has_probabilities,
         "portable_exp": routine,
         "exp_fn": exp_fn,
         "libm_exp": libm_exp,
@@ -133,7 +138,12 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         "n_features": len(plan.inputs),
         "n_outputs": plan.n_outputs,
         "n_classes": plan.n_probabilities,
-        "batch_width": plan.n_probabilities if plan.task == "multiclass" else 1,
+        "n_margins": plan.n_margins,
+        "has_rate": plan.offset is not None,
+        # the batch writes a multiclass head's probabilities (a decision head's margins),
+        # else the probability or value (and the rate)
+        "batch_width": ((plan.n_probabilities if plan.has_probabilities else plan.n_outputs)
+                        if plan.task == "multiclass" else 1 + (plan.offset is not None)),
         "tables": _tables(plan, prec, prefix),
         **program_code(program, split, spelling, names, prefix, tables, decision_only),
         **({} if decision_only else _batch(program, spelling, prec, prefix, tables)),
@@ -143,9 +153,12 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
 def _batch(program: Program, spelling: Spelling, prec: CPrecision, prefix: str,
            tables: dict) -> dict:
     """The batch scorer's passes (c_batch): it writes the probabilities (the value of a
-    regression); a binary model's batch row holds the probability of class 1 alone."""
+    regression, then its rate with an offset; a "decision" head's margins, its decision
+    function); a binary model's batch row holds the probability of class 1 alone."""
     plan = program.plan
-    outputs = [o for o in output_names(plan) if o.startswith(("probability_", "value"))]
+    outputs = [o for o in output_names(plan) if o.startswith(LINKED)]
+    if not plan.has_probabilities and plan.task != "regression":
+        outputs = [o for o in output_names(plan) if o.startswith("margin_")]
     if plan.task == "binary":
         outputs = outputs[-1:]
     margin_part = {op.dest for cone, _ in split_margins(program).groups for op in cone}
@@ -228,7 +241,7 @@ def program_code(program: Program, split: MarginSplit, spelling: Spelling, names
     rename = {m: f"m[{k}]" for k, m in enumerate(split.margins) if isinstance(m, str)}
     r = Renderer(program, spelling, sources, rename, tables)
     parts = []
-    started = [False] * plan.n_outputs
+    started = [False] * plan.n_margins
     for start in range(0, max(len(split.groups), 1), ROW_PART_TERMS):
         lines = []
         for cone, terms in split.groups[start:start + ROW_PART_TERMS]:
@@ -242,7 +255,7 @@ def program_code(program: Program, split: MarginSplit, spelling: Spelling, names
     margin_part = {op.dest for cone, _ in split.groups for op in cone}
     margin_part |= set(rename)
     outputs = output_names(plan)
-    linked = [o for o in outputs if o.startswith(("probability_", "value"))]
+    linked = [o for o in outputs if o.startswith(LINKED)]
     code["link_lines"] = None
     if linked and not decision_only:
         ops = [op for op in prune(program, linked) if op.dest not in margin_part]

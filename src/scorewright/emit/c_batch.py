@@ -65,7 +65,7 @@ PART_CHUNKS = 8
 
 def block_shape(program: Program, prec: CPrecision) -> tuple[int, int]:
     """(rows per block, term positions per chunk of the terms pass)."""
-    K = program.plan.n_outputs
+    K = program.plan.n_margins
     size = 4 if prec.real == "float" else 8
     per_position = max(1, K)
     positions = max(1, BLOCK_SLOTS // per_position)
@@ -80,7 +80,7 @@ def batch_code(program: Program, spelling: Spelling, link_spelling: Spelling,
     """Tables (declarations) and statements of `<prefix>_batch_block`, which scores
     n <= block rows at `rows` and writes the `outputs` of each to `out`."""
     plan = program.plan
-    K = plan.n_outputs
+    K = plan.n_margins
     R = prec.real
     block, positions = block_shape(program, prec)
     split = split_margins(program, positions)

@@ -158,7 +158,7 @@ def context(plan: Plan, name: str) -> dict:
         for k, table in enumerate(term.lookups):
             tables.setdefault(table, f"Table{term.input}{'x%d' % nth if nth else ''}_{k}.T")
     r = Renderer(program, spelling(plan), sources, rename, tables)
-    started = [False] * plan.n_outputs
+    started = [False] * plan.n_margins
     parts = []
     for start in range(0, len(split.groups), PART_TERMS):
         lines = []
@@ -193,7 +193,10 @@ def context(plan: Plan, name: str) -> dict:
         "outputs": ", ".join(string(o) for o in outputs),
         "n_outputs": plan.n_outputs,
         "n_classes": plan.n_probabilities,
+        "n_margins": plan.n_margins,
+        "has_rate": plan.offset is not None,
         "n_program_outputs": len(outputs),
+        "probabilities": plan.has_probabilities,
         "levels": levels,
         "tables": [(t.split(".")[0], _array([literal(x) for x in values], "a level table"))
                    for t, values in r.table_list],

@@ -11,8 +11,10 @@ Contract of the graph (also written into its doc string):
   numeric models only): one input `features` [N, F] in feature order. A caller
   feeding a float graph from doubles saturates out-of-range values to +-FLT_MAX
   (a plain cast makes them inf, which the graph reads as missing).
-- Outputs: margin [N, K]; classification: probability [N, C] in class order and
-  class_index [N] int64; regression: predicted_value [N, 1].
+- Outputs: margin [N, K]; classification: probability [N, C] in class order (not
+  for a "decision" head, whose margins are its decision function) and class_index
+  [N] int64; regression: predicted_value [N, 1], and with an offset or exposure
+  predicted_rate [N, 1] (the value of the margin without it).
 
 The graph renders the scoring program (`program.lower`) from `NODES`, the table of
 op -> node, and decides no semantics: every guard, scaling step, missing or unseen
@@ -57,14 +59,14 @@ from .. import __version__
 from ..errors import ScorewrightError
 from ..model import FrozenModel
 from ..plan import Plan, build_plan
-from ..program import CODE, FLAG, REAL, Const, Op, fold, lower
+from ..program import CODE, FLAG, REAL, Const, Op, exp_in_primitives, fold, lower
 from ..values import MISSING_CODE, UNSEEN_CODE
 from . import Artifact, reject_options
 
 OPSET = 28
 IR_VERSION = 10  # below onnx 1.23's default 14; the checker and onnxruntime 1.32 accept it
 LAYOUTS = ("per-feature", "matrix")
-OPTIONS = ("precision", "inputs")
+OPTIONS = ("precision", "inputs", "portable_exp")
 MATRIX_INPUT = "features"
 OUTPUTS = ("margin", "probability", "class_index", "predicted_value")
 N = "N"  # the symbolic batch dimension
@@ -93,7 +95,11 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
         raise ScorewrightError(f"--precision {precision!r}: expected double or float")
     if layout not in LAYOUTS:
         raise ScorewrightError(f"--inputs {layout!r}: expected per-feature or matrix")
-    plan = build_plan(model, precision)
+    portable = bool(options.get("portable_exp"))
+    if portable and precision != "double":
+        raise ScorewrightError("target onnx cannot express the portable exp in float (it "
+                               "computes in double): use --precision double")
+    plan = build_plan(model, precision, exp="portable" if portable else "libm")
     graph_model = build_model(plan, layout)
     return [Artifact(f"{plan.stem}.onnx", graph_model.SerializeToString())]
 
@@ -101,7 +107,7 @@ def emit(model: FrozenModel, options: dict | None = None) -> list[Artifact]:
 def build_model(plan: Plan, layout: str):
     elem = ELEMENT_TYPES[plan.precision.name]
     _check_names(plan, layout)
-    g = _Graph(elem, reserved=set(plan.feature_names) | set(OUTPUTS) | {MATRIX_INPUT})
+    g = _Graph(elem, reserved=set(plan.feature_names) | set(_reserved(plan)) | {MATRIX_INPUT})
     inputs = _declare_inputs(g, plan, layout)
     outputs = _Renderer(g, plan, layout).render()
     doc = _doc_string(plan, layout)
@@ -153,14 +159,23 @@ def _check_names(plan: Plan, layout: str) -> None:
                                        f"feature {inp.name!r} is categorical")
         return
     for name in plan.feature_names:
-        if name in OUTPUTS:
+        if name in _reserved(plan):
             raise ScorewrightError(f"feature {name!r} has the name of an ONNX output of the "
                                    f"graph; per-feature inputs cannot take it")
 
 
+def _reserved(plan: Plan) -> tuple[str, ...]:
+    """The graph's output names a feature cannot take."""
+    return OUTPUTS + (("predicted_rate",) if plan.offset is not None else ())
+
+
 def _output_names(plan: Plan) -> tuple[str, ...]:
     if plan.task == "regression":
+        if plan.offset is not None:
+            return ("margin", "predicted_value", "predicted_rate")
         return ("margin", "predicted_value")
+    if not plan.has_probabilities:
+        return ("margin", "class_index")
     return ("margin", "probability", "class_index")
 
 
@@ -168,7 +183,8 @@ def _output_names(plan: Plan) -> tuple[str, ...]:
 # The graph outputs (the contract above), each with the program outputs it holds: the
 # one named, or those named with the prefix, in order.
 GRAPH_OUTPUTS = (("margin", "margin_"), ("probability", "probability_"),
-                 ("class_index", "class_index"), ("predicted_value", "value"))
+                 ("class_index", "class_index"), ("predicted_value", "value"),
+                 ("predicted_rate", "rate"))
 
 # An operation with a constant on the right that a lane of a vectorized chain may lack:
 # the node, the constant that leaves every value (even -0.0) unchanged, and the sign the
@@ -304,7 +320,10 @@ class _Renderer:
         self.dtype = g.elem.numpy
         self.at: dict[str, tuple[_Vec, int]] = {}   # program name -> (tensor, lane)
         self._cached: dict = {}
-        self.ops = _one_comparison_per_tie(self._constant_margins(lower(plan).ops), self.dtype)
+        program = lower(plan)
+        if plan.exp_kind == "portable":  # no routine to call: its steps are the program's
+            program = exp_in_primitives(program)
+        self.ops = _one_comparison_per_tie(self._constant_margins(program.ops), self.dtype)
         self.by_dest = {op.dest: op for op in self.ops}
         self.consumers: dict[str, list[Op]] = {}
         for op in self.ops:
@@ -899,6 +918,8 @@ class _Renderer:
         infos = []
         for graph_name, key in GRAPH_OUTPUTS:
             names = [n for n in values if n == key or (key.endswith("_") and n.startswith(key))]
+            if graph_name == "margin":  # the rate's margin (no offset) is the program's own
+                names = names[:self.plan.n_outputs]
             if not names:
                 continue
             args = [values[n] for n in names]

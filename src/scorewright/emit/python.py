@@ -50,6 +50,12 @@ PYTHON = Spelling(
 )
 
 
+def _role(plan: Plan) -> str:
+    """"offset" or "exposure": an exposure's input has the log step."""
+    steps = plan.inputs[plan.offset].steps
+    return "exposure" if steps and steps[0].op == "log" else "offset"
+
+
 def _read_code(src: str, inp) -> str:
     """_code's result; a non-empty str read against text levels is looked up directly
     (what _code does with it, without the call)."""
@@ -93,7 +99,10 @@ def context(plan: Plan) -> dict:
         "program_lines": code.lines,
         "outputs": [(name, code.outputs[name]) for name in output_names(plan)],
         "n_outputs": plan.n_outputs,
+        "has_rate": plan.offset is not None,
+        "role": None if plan.offset is None else _role(plan),
         "n_classes": 0 if plan.classes is None else len(plan.classes),
+        "probabilities": plan.has_probabilities,
     }
 
 

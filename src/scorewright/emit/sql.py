@@ -417,8 +417,10 @@ def header_lines(plan: Plan, s: Settings) -> list[str]:
                              f"NUL, which {d.name} text cannot: no value can match it")
     outputs = ", ".join(output_columns(plan))
     lines.append(f"Outputs: {outputs}")
-    if plan.task == "binary":
+    if plan.task == "binary" and plan.has_probabilities:
         lines.append(f"probability is that of class {comment_text(str(plan.classes[1]))}")
+    elif plan.task != "regression" and not plan.has_probabilities:
+        lines.append("the margins are the decision function; the model gives no probabilities")
     lines.append("Numbers may be held in any number, boolean or text column; text is read as "
                  "a decimal number.")
     lines.append("Missing: NULL, NaN and +-inf numbers and text that is no number; NULL or '' "

@@ -101,16 +101,23 @@ class Query:
 
 def sql_outputs(plan: Plan) -> list[tuple[str, str]]:
     """(output column of the query, the program output it shows)."""
+    probs = plan.has_probabilities  # a "decision" head shows its margins and class alone
+    # a calibrated head of several members: each member's decision value is a margin
     if plan.task == "binary" and plan.n_outputs == 1:
-        return [("margin", "margin_0"), ("probability", "probability_1"),
-                ("predicted_class", "class_index")]
-    if plan.task == "binary":  # a calibrated head of several members
+        return [("margin", "margin_0")] + [("probability", "probability_1")] * probs \
+            + [("predicted_class", "class_index")]
+    if plan.task == "binary":
         return ([(f"margin_{j}", f"margin_{j}") for j in range(plan.n_outputs)]
-                + [("probability", "probability_1"), ("predicted_class", "class_index")])
+                + [("probability", "probability_1")] * probs
+                + [("predicted_class", "class_index")])
     if plan.task == "multiclass":
         return ([(f"margin_{j}", f"margin_{j}") for j in range(plan.n_outputs)]
-                + [(f"probability_{j}", f"probability_{j}") for j in range(len(plan.classes))]
+                + [(f"probability_{j}", f"probability_{j}")
+                   for j in range(plan.n_probabilities)]
                 + [("predicted_class", "class_index")])
+    if plan.offset is not None:  # the expected count, then the rate (no offset)
+        return [("margin", "margin_0"), ("predicted_value", "value"),
+                ("predicted_rate", "rate")]
     return [("margin", "margin_0"), ("predicted_value", "value")]
 
 
@@ -278,7 +285,8 @@ class Renderer:
             reads_ = frozenset().union(*[leaves[a] if a in inline else {alias[a]}
                                          for a in names])
             dp = 1 + max([depth.get(a, 0) for a in names] + [0])
-            atomic = not any(a in inline for a in names)
+            # a guarded op is long: written out at each of its uses it multiplies
+            atomic = not any(a in inline for a in names) and op.dest not in self.risky
             if (op.attr and op.op == "sum") or dp > MAX_DEPTH or (
                     uses.get(op.dest, 0) > 1 and not atomic):
                 level = 1 + max([cols[a].level for a in reads_] + [-1])

@@ -135,7 +135,7 @@ def split_margins(program: Program, part_size: int | None = None) -> MarginSplit
     its own (a function, a class): an operation several terms need (an input's value
     that a product and its own term share) is in the cone of its first group in every
     part that needs it, so no part reads a name another part computed."""
-    n = program.plan.n_outputs
+    n = program.plan.n_margins
     by_dest = {op.dest: op for op in program.ops}
     margin_ops = [by_dest.get(_output_arg(program, f"margin_{k}")) for k in range(n)]
     sums = [op if op is not None and op.op == "sum" else None for op in margin_ops]

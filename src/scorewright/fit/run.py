@@ -204,7 +204,8 @@ def _use_extra_columns(extra: dict, label: Label, x, frame):
     if "exposure" in columns or "offset" in columns:
         kind = "exposure" if "exposure" in columns else "offset"
         lines.append(f"{kind} {dict((v, k) for k, v in extra.items())[kind]!r}: the model "
-                     "fits the rate and outputs the expected count")
+                     "fits the rate and outputs the expected count (predicted_value) and "
+                     "the rate (predicted_rate)")
     return columns, label, x, lines
 
 

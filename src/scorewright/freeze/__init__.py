@@ -39,10 +39,12 @@ def freeze(estimator, feature_names=None, name=None, check_rows=None, preprocess
 
     statsmodels results fitted with an `offset=` or `exposure=` array take the name of
     the column that holds it (`offset="..."`, `exposure="..."`): an input of the frozen
-    model, whose artifacts then output the expected count. A scikit-learn log-link
+    model, whose artifacts then output the expected count and the rate (the value without
+    the offset; statsmodels' predict with exposure 1 or offset 0). A scikit-learn log-link
     regressor fitted on rates (y / exposure, with sample_weight exposure for Poisson) takes
     `exposure="..."` (or `offset="..."`, the log of one) the same way: its prediction
-    times the exposure is the expected count the artifacts output."""
+    times the exposure is the expected count the artifacts output, its prediction itself
+    the rate."""
     model, result = freeze_checked(estimator, feature_names=feature_names, name=name,
                                    check_rows=check_rows, preprocessor=preprocessor,
                                    task=task, classes=classes, offset=offset,
@@ -172,7 +174,8 @@ def mark_booleans(model: FrozenModel, frame) -> FrozenModel:
 def mark_boolean_features(model: FrozenModel, names) -> FrozenModel:
     """The model with the named numeric features marked boolean (fitted on booleans)."""
     features = tuple(replace(f, boolean=True) if isinstance(f, NumericFeature)
-                     and f.name in names and not f.boolean else f for f in model.features)
+                     and f.name in names and not f.boolean and f.role is None else f
+                     for f in model.features)  # an offset or exposure is a number
     if features == model.features:
         return model
     return replace(model, features=features).sealed()

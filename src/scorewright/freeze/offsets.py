@@ -2,10 +2,15 @@
 
 A count model fitted with an exposure (years insured, machine hours) predicts a rate; the
 frozen model takes the exposure column as one more input, added to the margin through its
-log with weight 1, so every artifact outputs the expected count. An offset is added to the
-margin as it is. The rule where the column gives nothing usable is stated once, here, and
-every target follows it through the scoring program: a missing offset counts as 0; a
-missing or non-positive exposure as 1 (the count is then the rate per unit of exposure).
+log with weight 1, and marks it as the exposure (the feature's `role`, format version 4).
+An offset is added to the margin as it is. Every artifact outputs the expected count (the
+`value`: the inverse link of the margin with the offset) and the rate (the `rate`: the
+inverse link of the margin without it; for an exposure, the rate per unit of exposure).
+The rule where the column gives nothing usable is stated once, here, and every target
+follows it through the scoring program: a missing offset counts as 0; a missing or
+non-positive exposure (0, negative, NaN, +-inf, absent) as 1, so the count is then the
+rate. A huge exposure is clamped to the input guard like every numeric input (the count's
+margin stays finite; the rate does not read it).
 """
 
 from __future__ import annotations
@@ -49,7 +54,8 @@ def with_offset(model: FrozenModel, attr: str, column: str) -> FrozenModel:
         inputs["feature_names"] = list(inputs["feature_names"]) + [column]
     prov["inputs"] = inputs
     prov["notes"] = list(prov.get("notes", [])) + [rule(attr, column)]
-    return replace(model, features=model.features + (NumericFeature(column, None, steps),),
+    return replace(model, features=model.features + (NumericFeature(column, None, steps,
+                                                                    role=attr),),
                    design=model.design + (DesignColumn(column),), head=head,
                    provenance=prov).sealed()
 
@@ -63,9 +69,9 @@ def factor(values, attr: str) -> np.ndarray:
 
 
 class RateSource:
-    """A scikit-learn regressor fitted on rates, as the self-check calls a source: the
-    expected count is its prediction times the exposure (or exp of the offset) of each
-    row, under the stated rule."""
+    """A scikit-learn regressor fitted on rates, as the self-check calls a source: per
+    row, the expected count, its prediction times the exposure (or exp of the offset)
+    under the stated rule, and the rate, its prediction itself (`estimator.predict`)."""
 
     def __init__(self, estimator, attr: str, column: str, names):
         self.estimator = estimator
@@ -76,4 +82,4 @@ class RateSource:
         rate = np.asarray(self.estimator.predict(frame.drop(columns=[self.column])),
                           dtype=np.float64)
         values = frame[self.column].to_numpy(dtype=np.float64, na_value=np.nan)
-        return rate * factor(values, self.attr)
+        return np.column_stack([rate * factor(values, self.attr), rate])

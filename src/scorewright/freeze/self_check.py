@@ -7,6 +7,11 @@ extremes) are scored by the source estimator itself (predict_proba / predict)
 and by the frozen model's reference evaluator. Any probability that differs by
 more than 1e-12 (absolute), or any value by more than 1e-12 (relative, see
 `_differs` for values near zero), refuses the model, naming the first differing row.
+A "decision" head (a classifier without probabilities) is held to the source's
+decision_function (1e-12 relative, as a value) and to its predict exactly; the one
+excuse is a row whose margin (binary) or gap between the two largest margins lies
+within that rounding of the boundary, where the source's matrix product, summing in
+its own order, may land on the other side (counted as `boundary`).
 
 Rows the source estimator cannot score (it raises, e.g. on an unseen level with
 handle_unknown='error' or on a missing value with no imputer, or it overflows)
@@ -28,7 +33,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import (TRANSFORM_DOMAIN, CategoricalFeature, FrozenModel,
+from ..model import (DECISION, TRANSFORM_DOMAIN, CategoricalFeature, FrozenModel,
                      NumericFeature)
 
 TOLERANCE = 1e-12
@@ -52,6 +57,7 @@ class CheckResult:
     derived: int = 0         # of which rows derived from the model
     unscored: int = 0        # rows the source estimator could not score
     guarded: int = 0         # rows whose log-link margin meets the frozen exp guard
+    boundary: int = 0        # decision rows within rounding of a tie whose class differs
     none_rules: dict = field(default_factory=dict)  # column -> the frozen model's rule
     rules: list = field(default_factory=list)  # rules the frozen model states for what
     #                                            the source cannot score
@@ -74,6 +80,9 @@ class CheckResult:
         if self.unscored:
             line += (f"; {_rows(self.unscored)} the source estimator cannot score "
                      f"{'were' if self.unscored > 1 else 'was'} skipped")
+        if self.boundary:
+            line += (f"; {_rows(self.boundary)} whose decision function is within rounding "
+                     "of the class boundary gave the other class")
         if self.guarded:
             line += (f"; {_rows(self.guarded)} whose margin is beyond the frozen model's exp "
                      "guard (where it clamps by design) not compared")
@@ -156,10 +165,12 @@ def _extremes(feat: NumericFeature) -> list[float]:
     a hundred spreads out, beyond any clip, yet inside the range where neither side
     saturates (the frozen model's guards then change nothing)."""
     size = max([abs(s.value) for s in feat.scaling if s.value is not None]
-               + [abs(e) for s in feat.scaling for e in (s.edges or s.knots or ())] + [1.0])
+               + [abs(e) for s in feat.scaling
+                  for e in (s.edges or s.knots or s.quantiles or ())] + [1.0])
     out = [EXTREME * size, -EXTREME * size]
-    edges = feat.scaling[0].edges or feat.scaling[0].knots if feat.scaling else None
-    if edges is not None:  # every bin edge or spline knot, either side
+    edges = feat.scaling[0].edges or feat.scaling[0].knots or feat.scaling[0].quantiles \
+        if feat.scaling else None
+    if edges is not None:  # every bin edge, spline knot or quantile, either side
         out += [x for e in edges
                 for x in (e, math.nextafter(e, math.inf), math.nextafter(e, -math.inf))]
     elif feat.scaling and feat.scaling[0].op in TRANSFORM_DOMAIN:
@@ -245,18 +256,33 @@ def _records(frame) -> list[dict]:
 def _reference(model: FrozenModel, records):
     """The reference outputs (n, outputs), each row's margin scale (n,), and which
     rows meet the log link's guard (n,): there the frozen model clamps the exp
-    argument by design, where scikit-learn underflows to 0 or overflows."""
+    argument by design, where scikit-learn underflows to 0 or overflows. A model with an
+    offset or exposure has two outputs, the expected count and the rate, and a row is
+    guarded where either margin is."""
     from ..plan import build_plan
-    from ..reference import encode_rows, margin_scale, score_matrix
+    from ..program import run_matrix
+    from ..reference import encode_rows, margin_scale, program_of, score_matrix
 
     plan = build_plan(model)
     matrix = encode_rows(plan, records)
     out = score_matrix(plan, matrix)
     scale = margin_scale(plan, matrix).max(axis=1)
+    if model.head.link == DECISION:  # the margins, then the class index
+        return (np.column_stack([out["margins"], out["class_index"].astype(np.float64)]),
+                scale, np.zeros(len(records), dtype=bool))
     if model.head.task != "regression":
         return out["probabilities"], scale, np.zeros(len(records), dtype=bool)
-    m = out["margins"][:, 0]
-    guarded = np.zeros(len(records), dtype=bool)
+    guarded = _guarded(plan, out["margins"][:, 0])
+    if plan.offset is None:
+        return out["value"].reshape(-1, 1), scale, guarded
+    rate_margin = run_matrix(program_of(plan), matrix)["margin_1"]
+    guarded = guarded | _guarded(plan, rate_margin)
+    return np.column_stack([out["value"], out["rate"]]), scale, guarded
+
+
+def _guarded(plan, m) -> np.ndarray:
+    """Rows whose regression margin meets the link's guard."""
+    guarded = np.zeros(len(m), dtype=bool)
     if plan.link in ("log", "log1p"):
         guarded = (m < -plan.precision.exp_guard) | (m > plan.precision.log_link_max)
     elif plan.link == "sqrt":
@@ -264,20 +290,25 @@ def _reference(model: FrozenModel, records):
     elif plan.link == "inverse":
         from ..program import inverse_floor
         guarded = np.abs(m) < inverse_floor(plan)
-    return out["value"].reshape(-1, 1), scale, guarded
+    return guarded
 
 
-def _source(estimator, frame, classifier: bool, errors: list | None = None) -> np.ndarray:
+def _source(estimator, frame, classifier, errors: list | None = None) -> np.ndarray:
     """The source estimator's outputs, one row per input row; NaN rows where it
     cannot score a row (found by halving a batch that raises). The first error
-    of a row it refuses is appended to `errors`."""
+    of a row it refuses is appended to `errors`. `classifier`: False (predict), True
+    (predict_proba) or a decision head's classes (decision_function, then the index of
+    predict's class)."""
     n = len(frame)
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # unseen levels: warned about, then encoded
             x = frame if getattr(estimator, "feature_names_in_", None) is not None \
                 else frame.to_numpy()
-            out = estimator.predict_proba(x) if classifier else estimator.predict(x)
+            if isinstance(classifier, tuple):
+                out = _decisions(estimator, x, classifier)
+            else:
+                out = estimator.predict_proba(x) if classifier else estimator.predict(x)
         out = np.asarray(out, dtype=np.float64)
         return out.reshape(n, -1)
     except Exception as exc:  # the estimator may refuse a row in any way it likes
@@ -294,6 +325,18 @@ def _source(estimator, frame, classifier: bool, errors: list | None = None) -> n
         return np.vstack([_widen(first, width), _widen(second, width)])
 
 
+def _decisions(estimator, x, classes: tuple) -> np.ndarray:
+    """decision_function's margins (n, K) beside the index in `classes` of predict's
+    class (the frozen model's class_index; -1, which differs from every index, for a
+    label the frozen model does not have)."""
+    from .sklearn import _class_label
+
+    margins = np.asarray(estimator.decision_function(x), dtype=np.float64)
+    index = {c: i for i, c in enumerate(classes)}
+    labels = [index.get(_class_label(v, "predict"), -1) for v in estimator.predict(x)]
+    return np.column_stack([margins.reshape(len(labels), -1), np.asarray(labels, float)])
+
+
 def _widen(block, width):
     if block.shape[1] == width:
         return block
@@ -308,6 +351,8 @@ def _differs(model: FrozenModel, source: np.ndarray, ref: np.ndarray,
     to the value: an identity-link value near zero may come from terms of size 10,
     and a log-link value carries the margin's absolute rounding as relative error."""
     gap = np.abs(source - ref)
+    if model.head.link == DECISION:
+        return _decision_differs(source, ref, work)
     if model.head.task != "regression":
         return np.any(gap > TOLERANCE, axis=1)
     size = np.maximum(np.abs(source), np.abs(ref))
@@ -322,8 +367,31 @@ def _differs(model: FrozenModel, source: np.ndarray, ref: np.ndarray,
     return np.any(gap > TOLERANCE * size, axis=1)
 
 
+def _decision_differs(source, ref, work) -> np.ndarray:
+    """A decision head's rows that differ: a margin by more than TOLERANCE relative to
+    its terms' size (as an identity-link value), or the class at all."""
+    gap = np.abs(source[:, :-1] - ref[:, :-1])
+    size = np.maximum(np.maximum(np.abs(source[:, :-1]), np.abs(ref[:, :-1])), work[:, None])
+    return np.any(gap > TOLERANCE * size, axis=1) | (source[:, -1] != ref[:, -1])
+
+
+def _near_boundary(ref, work) -> np.ndarray:
+    """A decision head's rows whose frozen margin (binary) or gap between its two largest
+    margins lies within TOLERANCE of the terms' size: a sum in another order may take the
+    other side there."""
+    m = ref[:, :-1]
+    if m.shape[1] == 1:
+        gap = np.abs(m[:, 0])
+    else:
+        top = np.sort(m, axis=1)
+        gap = top[:, -1] - top[:, -2]
+    return gap <= TOLERANCE * work
+
+
 def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> None:
     classifier = model.head.task != "regression"
+    if model.head.link == DECISION:
+        classifier = tuple(model.head.classes)
     records = _records(frame)
     ref, work, guarded = _reference(model, records)
     errors: list = []
@@ -344,7 +412,13 @@ def _check_batch(estimator, model, names, frame, what, result: CheckResult) -> N
     scored = scored & ~guarded
     result.compared += int(scored.sum())
     bad = scored & _differs(model, source, ref, work)
-    if classifier and not bad.any():
+    if model.head.link == DECISION:  # a class flipped by rounding at a tie: counted
+        margins_agree = ~_decision_differs(source, np.column_stack([ref[:, :-1],
+                                                                    source[:, -1]]), work)
+        excused = bad & margins_agree & _near_boundary(ref, work)
+        result.boundary += int(excused.sum())
+        bad = bad & ~excused
+    elif classifier and not bad.any():  # a decision head's class is compared above
         _check_decisions(estimator, model, frame, records, ref, scored, what)
     for i in np.flatnonzero(bad):
         cols = _none_spelling(estimator, model, frame.iloc[[int(i)]], ref[i], work[i],
@@ -438,8 +512,18 @@ def _mismatch_message(model, what, index, record, source, ref) -> str:
     shown = ", ".join(f"{k}={v!r}" for k, v in list(record.items())[:8])
     if len(record) > 8:
         shown += ", ..."
-    if model.head.task == "regression":
-        outputs = f"source {float(source[0])!r}, frozen {float(ref[0])!r}"
+    if model.head.link == DECISION:
+        k = int(np.argmax(np.abs(source[:-1] - ref[:-1])))
+        outputs = (f"decision function {k}: source {float(source[k])!r}, frozen "
+                   f"{float(ref[k])!r}")
+        if source[-1] != ref[-1]:
+            label = model.head.classes[int(source[-1])] if source[-1] >= 0 else "another"
+            outputs = (f"class: source {label!r}, frozen "
+                       f"{model.head.classes[int(ref[-1])]!r} ({outputs})")
+    elif model.head.task == "regression":
+        k = int(np.argmax(np.abs(source - ref) / np.maximum(np.abs(ref), 1e-300)))
+        what_out = ("the expected count: " if k == 0 else "the rate: ") if len(ref) > 1 else ""
+        outputs = f"{what_out}source {float(source[k])!r}, frozen {float(ref[k])!r}"
     else:
         k = int(np.argmax(np.abs(source - ref)))
         outputs = (f"probability of class {model.head.classes[k]!r}: source "

@@ -19,9 +19,10 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import ScorewrightError
-from ..model import (BINS, SPLINE, SPLINE_DEGREES, TRANSFORM_DOMAIN, TRANSFORM_OPS,
-                     Calibration, Calibrator, CategoricalFeature, DesignColumn, FrozenModel,
-                     Head, NumericFeature, ScalingStep, in_domain, outside_text)
+from ..model import (BINS, DECISION, QUANTILE, SPLINE, SPLINE_DEGREES, TRANSFORM_DOMAIN,
+                     TRANSFORM_OPS, Calibration, Calibrator,
+                     CategoricalFeature, DesignColumn, FrozenModel, Head, NumericFeature,
+                     ScalingStep, in_domain, outside_text, quantile_pieces_finite)
 from .provenance import provenance
 
 
@@ -43,6 +44,9 @@ class Chain:
     encoding: tuple | None = None        # ordinal/target encoded: (values, unseen, missing)
     constant: bool = False               # PolynomialFeatures' bias column (then steps)
     basis: int | None = None             # SplineTransformer: the basis index (steps[0]: it)
+    # Normalizer: (norm, the chains normalized together, this column's position); then
+    # steps are the column's own
+    normalized: tuple | None = None
 
 
 class Unsupported(ScorewrightError):
@@ -150,9 +154,10 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
     from sklearn.impute import MissingIndicator, SimpleImputer
     from sklearn.pipeline import Pipeline
     from sklearn.preprocessing import (FunctionTransformer, KBinsDiscretizer, MaxAbsScaler,
-                                       MinMaxScaler, OneHotEncoder, OrdinalEncoder,
-                                       PolynomialFeatures, PowerTransformer, RobustScaler,
-                                       SplineTransformer, StandardScaler, TargetEncoder)
+                                       MinMaxScaler, Normalizer, OneHotEncoder,
+                                       OrdinalEncoder, PolynomialFeatures, PowerTransformer,
+                                       QuantileTransformer, RobustScaler, SplineTransformer,
+                                       StandardScaler, TargetEncoder)
 
     if step in (None, "passthrough"):
         return chains
@@ -175,6 +180,10 @@ def _apply(step, chains: list[Chain], path: str) -> list[Chain]:
         return _splines(step, chains, path)
     if kind is PowerTransformer:
         return _power(step, chains, path)
+    if kind is QuantileTransformer:
+        return _quantile(step, chains, path)
+    if kind is Normalizer:
+        return _normalizer(step, chains, path)
     if kind is OrdinalEncoder:
         return _ordinal(step, chains, path)
     if kind is TargetEncoder:
@@ -230,7 +239,8 @@ def _column_transformer(ct, chains, path):
 def _copy(chain: Chain) -> Chain:
     return Chain(chain.feature, chain.fill, list(chain.steps), chain.clip, chain.levels,
                  chain.categories, chain.unknown_level, chain.encoded, chain.indicator,
-                 chain.binned, chain.product, chain.encoding, chain.constant, chain.basis)
+                 chain.binned, chain.product, chain.encoding, chain.constant, chain.basis,
+                 chain.normalized)
 
 
 def _indicator_features(ind, path) -> list[int]:
@@ -399,6 +409,47 @@ def _power(pt, chains, path):
     return chains
 
 
+def _quantile(qt, chains, path):
+    """QuantileTransformer: per column, its fitted quantiles and references and the output
+    distribution (uniform or normal)."""
+    if qt.output_distribution not in ("uniform", "normal"):
+        raise Unsupported(f"QuantileTransformer(output_distribution="
+                          f"{qt.output_distribution!r}) at {path}: not frozen")
+    quantiles = np.asarray(qt.quantiles_, dtype=np.float64)
+    references = tuple(float(v) for v in np.asarray(qt.references_, dtype=np.float64))
+    for i, chain in enumerate(chains):
+        _require_raw(chain, path, "QuantileTransformer")
+        _require_first(chain, path, "QuantileTransformer")
+        step = ScalingStep(QUANTILE, quantiles=tuple(float(v) for v in quantiles[:, i]),
+                           references=references, output=qt.output_distribution)
+        if not quantile_pieces_finite(step):
+            raise Unsupported(f"QuantileTransformer at {path}: feature column {i} has two "
+                              "quantiles too close together for a finite slope; not frozen")
+        chain.steps.append(step)
+    return chains
+
+
+def _normalizer(nz, chains, path):
+    """Normalizer: each column divided by its row's norm over every column the Normalizer
+    takes (numeric columns, each as it stands now)."""
+    if nz.norm not in ("l2", "l1", "max"):
+        raise Unsupported(f"Normalizer(norm={nz.norm!r}) at {path}: not frozen")
+    members = []
+    for chain in chains:
+        if (chain.encoded or chain.indicator or chain.binned or chain.product is not None
+                or chain.constant or chain.basis is not None or chain.encoding is not None
+                or chain.normalized is not None or chain.clip is not None
+                or isinstance(chain.fill, str)
+                or any(s.op in (BINS, SPLINE) for s in chain.steps)):
+            raise Unsupported(f"Normalizer at {path} takes a column that is not a plain "
+                              "numeric value (an encoded, indicator, bin, spline, product, "
+                              "clipped or already normalized column); only numeric columns "
+                              "(imputed, transformed or scaled) are frozen")
+        members.append(_copy(chain))
+    return [Chain(c.feature, fill=c.fill, normalized=(nz.norm, tuple(members), j))
+            for j, c in enumerate(members)]
+
+
 def _spline_notes(features) -> list[str]:
     notes = []
     for f in features:
@@ -527,9 +578,10 @@ def _polynomial(poly, chains, path):
 def _factor(chain, path) -> DesignColumn:
     """A column as a factor of a product, as it stands now (a later scaler changes the
     column, not the factor)."""
-    if chain.product is not None or chain.constant or chain.binned or chain.basis is not None:
+    if chain.product is not None or chain.constant or chain.binned or chain.basis is not None \
+            or chain.normalized is not None:
         raise Unsupported(f"PolynomialFeatures at {path} takes a column that is already a "
-                          "product, a constant, a bin or a spline")
+                          "product, a constant, a bin or a spline (or a Normalizer's column)")
     if chain.clip is not None:
         raise Unsupported(f"PolynomialFeatures at {path} takes a clipped column")
     if chain.indicator:
@@ -553,6 +605,10 @@ def _require_first(chain, path, what):
 
 
 def _require_raw(chain, path, what):
+    if chain.normalized is not None:
+        if not what.endswith("Scaler") or chain.clip is not None:
+            raise Unsupported(f"{what} at {path} takes Normalizer's columns; only scalers may")
+        return
     if chain.basis is not None:
         if not what.endswith("Scaler") or what == "MinMaxScaler" and chain.clip is not None:
             raise Unsupported(f"{what} at {path} takes SplineTransformer's columns; only "
@@ -685,9 +741,14 @@ def _features_and_design(chains, raw_names):
     indicated: set[int] = set()
     binned: dict[int, Chain] = {}
     splined: dict[int, Chain] = {}
+    normed: dict[int, Chain] = {}
     constants: dict[int, float] = {}
     for position, chain in enumerate(chains):
         name = raw_names[chain.feature]
+        if chain.normalized is not None:
+            design.append(_normalized_column(chain, raw_names, normed, (
+                numeric, categorical, binned, splined)))
+            continue
         if chain.basis is not None:
             if chain.clip is not None:
                 raise Unsupported(f"feature {name!r}: a clipping MinMaxScaler after "
@@ -736,7 +797,8 @@ def _features_and_design(chains, raw_names):
             design.append(DesignColumn(name, tuple(chain.levels)))
         else:
             if chain.feature in numeric or chain.feature in categorical or \
-                    chain.feature in binned or chain.feature in splined:
+                    chain.feature in binned or chain.feature in splined or \
+                    chain.feature in normed:
                 raise Unsupported(f"feature {name!r} reaches the estimator twice")
             if isinstance(chain.fill, str):
                 raise Unsupported(f"feature {name!r} is imputed with text but not encoded")
@@ -756,12 +818,35 @@ def _features_and_design(chains, raw_names):
             c = binned[i]
             fill = None if c.fill is None else float(c.fill)
             features.append(NumericFeature(name, fill, tuple(c.steps)))
+        elif i in normed:
+            c = normed[i]
+            features.append(NumericFeature(name, None if c.fill is None else float(c.fill)))
         elif i in categorical:
             c = categorical[i][0]
             features.append(CategoricalFeature(name, c.categories, c.fill, c.unknown_level))
         elif i in indicated:
             features.append(NumericFeature(name, None))  # its indicator alone
     return tuple(features), tuple(design), constants
+
+
+def _normalized_column(chain, raw_names, normed, others) -> DesignColumn:
+    """A Normalizer's column; each feature it normalizes is recorded in `normed` (a
+    feature that also reaches the estimator another way is refused)."""
+    norm, members, position = chain.normalized
+    if chain.clip is not None:
+        raise Unsupported(f"feature {raw_names[chain.feature]!r}: a clipping MinMaxScaler "
+                          "after Normalizer is not frozen")
+    for m in members:
+        name = raw_names[m.feature]
+        if any(m.feature in seen for seen in others) or (
+                m.feature in normed and (normed[m.feature].fill, normed[m.feature].steps)
+                != (m.fill, m.steps)):
+            raise Unsupported(f"feature {name!r} reaches the estimator twice")
+        normed[m.feature] = m
+    columns = tuple(DesignColumn(raw_names[m.feature], scaling=tuple(m.steps))
+                    for m in members)
+    return DesignColumn(columns[position].feature, normalized=(norm, columns, position),
+                        scaling=tuple(chain.steps))
 
 
 def _unscored(value):
@@ -978,9 +1063,7 @@ def _linear_head(est, path) -> Head:
     if kind in (LogisticRegression, LogisticRegressionCV, SGDClassifier,
                 LinearDiscriminantAnalysis):
         if kind is SGDClassifier and est.loss != "log_loss":
-            raise Unsupported(f"SGDClassifier(loss={est.loss!r}) at {path}: only loss='log_loss' "
-                              "gives probabilities; wrap it in CalibratedClassifierCV("
-                              "method='sigmoid' or 'isotonic'), which is frozen")
+            return _decision_head(est, path)
         classes = tuple(_class_label(c, path) for c in est.classes_)
         coef = np.asarray(est.coef_, dtype=np.float64)
         intercept = np.atleast_1d(np.asarray(est.intercept_, dtype=np.float64))
@@ -1016,13 +1099,46 @@ def _linear_head(est, path) -> Head:
         # fit's negative binomial model: the mean is exp(intercept_ + x coef_)
         return Head("regression", "log", None, (float(est.intercept_),),
                     (tuple(map(float, est.coef_)),), None)
-    if kind.__name__ in ("RidgeClassifier", "RidgeClassifierCV", "LinearSVC", "Perceptron",
-                         "PassiveAggressiveClassifier"):
-        raise Unsupported(f"{kind.__name__} at {path} gives a decision function but no "
-                          "probabilities, and every frozen classifier outputs probabilities; "
-                          "wrap it in CalibratedClassifierCV(method='sigmoid' or "
-                          "'isotonic'), which is frozen")
+    if kind.__name__ in DECISION_KINDS and kind.__module__.startswith("sklearn."):
+        return _decision_head(est, path)
     raise Unsupported(f"unsupported estimator {kind.__name__} at {path}")
+
+
+# Linear classifiers with a decision function and no probabilities (with SGDClassifier of
+# any loss but log_loss): frozen as "decision" heads, their margins and class alone.
+DECISION_KINDS = ("RidgeClassifier", "RidgeClassifierCV", "LinearSVC", "Perceptron",
+                  "PassiveAggressiveClassifier")
+
+
+def _decision_head(est, path) -> Head:
+    """A linear classifier frozen as its decision function (scikit-learn's
+    LinearClassifierMixin: X coef_.T + intercept_, one column for two classes) and its
+    class (predict: classes_[1] where the one margin is > 0, else the first largest
+    margin, as np.argmax). SGDClassifier(loss='modified_huber') has a predict_proba too,
+    (clip(margin, -1, 1) + 1) / 2 normalised across classes, which no frozen link states;
+    it is frozen decision-only like the others: its predict is this rule on the margins,
+    and where two margins clip to the same value predict_proba's largest probability does
+    not even name predict's class."""
+    binarizer = getattr(est, "_label_binarizer", None)  # RidgeClassifier's
+    if str(getattr(binarizer, "y_type_", "")).startswith("multilabel"):
+        raise Unsupported(f"{type(est).__name__} at {path} is multilabel; only single-label "
+                          "models are frozen")
+    classes = tuple(_class_label(c, path) for c in est.classes_)
+    coef = np.atleast_2d(np.asarray(est.coef_, dtype=np.float64))
+    intercept = np.atleast_1d(np.asarray(est.intercept_, dtype=np.float64))
+    if intercept.shape == (1,) and coef.shape[0] > 1:  # fit_intercept=False gives 0.0
+        intercept = np.repeat(intercept, coef.shape[0])
+    rows = 1 if len(classes) == 2 else len(classes)
+    if coef.shape[0] != rows or intercept.shape != (rows,):
+        raise Unsupported(f"{type(est).__name__} at {path} has {coef.shape[0]} decision "
+                          f"function columns for {len(classes)} classes; only single-label "
+                          "models (one column for two classes, one per class otherwise) "
+                          "are frozen")
+    intercepts = tuple(map(float, intercept))
+    coefs = tuple(tuple(map(float, row)) for row in coef)
+    if rows == 1:
+        return Head("binary", DECISION, classes, intercepts, coefs, 0.0)
+    return Head("multiclass", DECISION, classes, intercepts, coefs, None)
 
 
 def _one_vs_rest(est) -> bool:

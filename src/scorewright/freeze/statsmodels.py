@@ -82,9 +82,10 @@ def freeze_results(results, feature_names=None, name=None, offset=None,
 
     A model fitted with an `offset=` or `exposure=` array needs the name of the column
     that holds it when scoring (`offset="..."`, `exposure="..."`): it becomes an input
-    added to the margin with weight 1 (the exposure through its log), so the artifacts
-    output the expected count. A missing offset counts as 0; a missing or non-positive
-    exposure as 1 (the count is then the rate per unit of exposure)."""
+    added to the margin with weight 1 (the exposure through its log), marked as the offset
+    or exposure, so the artifacts output the expected count and the rate (without it). A
+    missing offset counts as 0; a missing or non-positive exposure as 1 (the count is
+    then the rate per unit of exposure)."""
     model = getattr(results, "model", None)
     if model is None or not hasattr(results, "params"):
         raise Unsupported(f"{type(results).__name__}: freeze takes fitted statsmodels results "
@@ -633,6 +634,8 @@ class ResultsSource:
         self.results = results
         inputs = model.provenance["inputs"]
         self.offsets = {attr: inputs[attr] for attr in ("offset", "exposure") if attr in inputs}
+        # a format 4 model outputs the rate beside the count (a role feature)
+        self.rate = any(getattr(f, "role", None) for f in model.features)
         self.formula = getattr(results.model.data, "model_spec", None) is not None
         self.feature_names_in_ = np.array(model.provenance["inputs"]["feature_names"],
                                           dtype=object)
@@ -655,8 +658,20 @@ class ResultsSource:
         return x
 
     def predict(self, frame):
+        """The mean; with an offset or exposure, the expected count and the rate. For the
+        rate, statsmodels' own rule (statsmodels 0.15 GLM.predict, generalized_linear_
+        model.py: given exog, linpred = exog @ params + offset + log(exposure)) is asked
+        with exposure 1 (log 1 = 0) or offset 0: the mean without them."""
         given = {attr: np.asarray(frame[column], dtype=np.float64)
                  for attr, column in self.offsets.items()}
+        out = self._mean(frame, given)
+        if self.rate:
+            unit = {attr: np.full(len(frame), 1.0 if attr == "exposure" else 0.0)
+                    for attr in self.offsets}
+            out = np.column_stack([out, self._mean(frame, unit)])
+        return out
+
+    def _mean(self, frame, given):
         with np.errstate(all="ignore"):
             out = np.asarray(self.results.predict(self._exog(frame), **given),
                              dtype=np.float64)

@@ -15,7 +15,7 @@ import struct
 from pathlib import Path
 
 from ..errors import ScorewrightError
-from ..model import TRANSFORM_DOMAIN
+from ..model import QUANTILE_BOUNDS, TRANSFORM_DOMAIN
 from ..plan import Plan
 from ..reference import score_row
 from ..values import MISSING_CODE, category_code, numeric_value
@@ -35,9 +35,13 @@ MARGIN_TARGETS = (0.0, 1.0, -1.0, 36.0, -36.0, 87.0, -87.0, 88.0, -88.0, 708.0, 
 
 def inverse_affine(inp, z: float) -> float | None:
     """The raw value whose scaling steps give design value z (None if not invertible)."""
+    return _inverse_steps(inp.steps, z)
+
+
+def _inverse_steps(steps, z: float) -> float | None:
     x = z
-    for step in reversed(inp.steps):
-        if step.op in ("bins", "spline"):
+    for step in reversed(steps):
+        if step.op in ("bins", "spline", "quantile"):
             return None
         if step.op in ("log", "log1p"):
             if x > 700.0:
@@ -64,8 +68,8 @@ def inverse_affine(inp, z: float) -> float | None:
 
 def typical_value(inp) -> float:
     x = inverse_affine(inp, 0.0)
-    if x is None and inp.steps and inp.steps[0].op in ("bins", "spline"):
-        edges = inp.steps[0].edges or inp.steps[0].knots
+    if x is None and inp.steps and inp.steps[0].op in ("bins", "spline", "quantile"):
+        edges = inp.steps[0].edges or inp.steps[0].knots or inp.steps[0].quantiles
         x = edges[len(edges) // 2]
     if x is None:
         x = inp.fill if inp.fill is not None else 0.0
@@ -103,11 +107,17 @@ def edge_rows(plan: Plan) -> list[tuple[str, dict]]:
                                               math.nextafter(-inp.bound, -math.inf)]
             if inp.fill is not None:
                 values.append(inp.fill)
+            if inp.index == plan.offset:
+                # an offset or exposure of 1 and around it (0, negative, NaN, +-inf, the
+                # subnormals and the huge values are SPECIAL_NUMBERS)
+                values += [1.0, -1.0, 0.5, 2.0]
             if inp.steps and inp.steps[0].op in ("bins", "spline"):
                 # every bin edge or spline knot, and one double either side
                 for edge in inp.steps[0].edges or inp.steps[0].knots:
                     values += [edge, math.nextafter(edge, math.inf),
                                math.nextafter(edge, -math.inf)]
+            elif inp.steps and inp.steps[0].op == "quantile":
+                values += _quantile_values(inp.steps[0])
             elif inp.steps and inp.steps[0].op in TRANSFORM_DOMAIN:  # a transform's domain edge
                 edge = TRANSFORM_DOMAIN[inp.steps[0].op][0]
                 values += [edge, math.nextafter(edge, math.inf),
@@ -125,8 +135,90 @@ def edge_rows(plan: Plan) -> list[tuple[str, dict]]:
             row = dict(base)
             row[inp.name] = value
             out.append((f"{inp.name!r} = {value!r}", row))
+    out.extend(_norm_rows(plan, base))
     out.extend(_margin_rows(plan, base))
+    if plan.task == "multiclass" and not plan.has_probabilities:
+        out.extend(_tie_rows(plan, base))
     out.extend(_threshold_rows(plan, base))
+    return out
+
+
+def _tie_rows(plan: Plan, base: dict) -> list[tuple[str, dict]]:
+    """A multiclass decision head's ties: for each pair of neighbouring classes, the
+    doubles either side of where their margins cross (an exact tie where one exists),
+    moving the numeric input that separates them the most."""
+    out = []
+    for a in range(plan.n_outputs - 1):
+        best, best_w = None, 0.0
+        for term in plan.terms:
+            if term.kind != "numeric":
+                continue
+            inp = plan.inputs[term.input]
+            gap = abs(term.weights[a] - term.weights[a + 1])
+            if inp.clip is None and gap > best_w:
+                best, best_w = inp, gap
+        if best is None:
+            continue
+
+        def gap_at(x: float, lever=best, k=a) -> float:
+            m = score_row(plan, dict(base, **{lever.name: x})).margins
+            return m[k] - m[k + 1]
+
+        lo, hi = _ordered(-best.bound), _ordered(best.bound)
+        low_side = gap_at(-best.bound) <= 0.0
+        if (gap_at(best.bound) <= 0.0) == low_side:  # the margins do not cross
+            continue
+        while hi - lo > 1:  # the last x on the side of 0 the gap starts on
+            mid = (lo + hi) // 2
+            if (gap_at(_from_ordered(mid)) <= 0.0) == low_side:
+                lo = mid
+            else:
+                hi = mid
+        for i in (lo - 1, lo, hi, hi + 1):
+            x = _from_ordered(i)
+            if -best.bound <= x <= best.bound:
+                out.append((f"classes {a} and {a + 1} near a tie ({best.name!r} = {x!r})",
+                            dict(base, **{best.name: x})))
+    return out
+
+
+def _quantile_values(step) -> list[float]:
+    """Every quantile and one double either side; the normal output's bounds (an end
+    quantile -+ 1e-7) and one double either side; values beyond both ends."""
+    q = step.quantiles
+    values = [x for e in q for x in (e, math.nextafter(e, math.inf),
+                                     math.nextafter(e, -math.inf))]
+    span = max(q[-1] - q[0], 1.0)
+    values += [q[0] - span, q[-1] + span]
+    if step.output == "normal":
+        for edge in (q[0] + QUANTILE_BOUNDS, q[-1] - QUANTILE_BOUNDS):
+            values += [edge, math.nextafter(edge, math.inf), math.nextafter(edge, -math.inf)]
+    return values
+
+
+def _norm_rows(plan: Plan, base: dict) -> list[tuple[str, dict]]:
+    """Per set of normalized columns: every column 0 (a zero norm, taken as 1), every
+    column near the norm's floor, and one column alone."""
+    out = []
+    seen = set()
+    for term in plan.terms:
+        if term.kind != "normalized" or (term.norm, term.factors) in seen:
+            continue
+        seen.add((term.norm, term.factors))
+        for label, z in (("0", 0.0), ("1e-16", 1e-16), ("2e-15", 2e-15), ("1", 1.0)):
+            row = dict(base)
+            for i, _, steps in term.factors:
+                x = _inverse_steps(steps, z)
+                if x is not None:
+                    row[plan.inputs[i].name] = x
+            out.append((f"every column of a {term.norm} norm at {label}", row))
+        i, _, steps = term.factors[0]
+        row = dict(base)
+        for j, _, other in term.factors[1:]:
+            x = _inverse_steps(other, 0.0)
+            if x is not None:
+                row[plan.inputs[j].name] = x
+        out.append((f"one column of a {term.norm} norm alone", row))
     return out
 
 
@@ -283,8 +375,10 @@ def random_rows(plan: Plan, n: int, seed: int = 0) -> list[dict]:
                     row[inp.name] = None
                 elif u < 0.05:
                     row[inp.name] = math.nan
-                elif inp.steps and inp.steps[0].op == "spline":
-                    lo, hi = inp.steps[0].spline_range()  # the knots and past either end
+                elif inp.steps and inp.steps[0].op in ("spline", "quantile"):
+                    # the knots or quantiles and past either end
+                    lo, hi = (inp.steps[0].spline_range() if inp.steps[0].op == "spline"
+                              else (inp.steps[0].quantiles[0], inp.steps[0].quantiles[-1]))
                     x = rng.uniform(lo - (hi - lo) / 4, hi + (hi - lo) / 4)
                     row[inp.name] = x
                 else:

@@ -121,7 +121,7 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
     if "probabilities" in expected and not decisions_only:
         check("probability", expected["probabilities"], got.probabilities,
               tol.probability_ulps, tol.probability_abs)
-    if "probabilities" in expected:
+    if "class_index" in expected:
         labels_exp = expected["class_index"]
         labels_got = np.asarray(got.class_index)
         mismatch = labels_exp != labels_got if labels_got.shape == labels_exp.shape else \
@@ -136,6 +136,11 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
         value_abs = tol.margin_abs if expected.get("link") == "identity" else 0.0
         check("predicted_value", expected["value"], got.value, tol.value_ulps, value_abs,
               tol.value_rel)
+    if "rate" in expected and not decisions_only:
+        # the rate is the value of the margin without the offset: held to the value's bound
+        value_abs = tol.margin_abs if expected.get("link") == "identity" else 0.0
+        check("predicted_rate", expected["rate"], got.rate, tol.value_ulps, value_abs,
+              tol.value_rel)
     result.failing_rows = sorted(bad)[:limit]
     result.reasons = {r: bad[r] for r in result.failing_rows}
     result.failing_count = len(bad)
@@ -144,11 +149,17 @@ def compare(expected: dict, got, tol: Tolerance, limit: int = 20) -> Comparison:
 
 def _near_decision(expected: dict, tol: Tolerance) -> np.ndarray:
     """Rows whose decision is within the target's stated margin tolerance of flipping (a
-    calibrated head decides on its probabilities: within their stated tolerance)."""
+    calibrated head decides on its probabilities: within their stated tolerance). A
+    target stated exact (no margin tolerance) is excused nothing: a margin exactly at the
+    cut, or an exact tie, must give the program's class."""
     if expected.get("link") == "calibrated":
+        if not (tol.probability_abs > 0 or tol.probability_ulps > 0):
+            return np.zeros(expected["probabilities"].shape[0], dtype=bool)
         return _near_tie(expected["probabilities"], tol.probability_abs,
                          tol.probability_ulps, tol.precision)
     margins = expected["margins"]
+    if not (tol.margin_abs > 0 or tol.margin_ulps > 0):
+        return np.zeros(margins.shape[0], dtype=bool)
     slack = np.maximum(tol.margin_abs, 0.0)
     if tol.margin_ulps:
         dtype = np.float32 if tol.precision == "float" else np.float64

@@ -129,8 +129,12 @@ def expected_outputs(plan: Plan, rows: list[dict]) -> dict:
            .reshape(len(rows), plan.n_outputs), "cut": plan.cut, "link": plan.link}
     if plan.task == "regression":
         out["value"] = np.array([s.value for s in scores], dtype=np.float64)
+        if plan.offset is not None:
+            out["rate"] = np.array([s.rate for s in scores], dtype=np.float64)
     else:
-        out["probabilities"] = np.array([s.probabilities for s in scores], dtype=np.float64)
+        if plan.has_probabilities:
+            out["probabilities"] = np.array([s.probabilities for s in scores],
+                                            dtype=np.float64)
         out["class_index"] = np.array([s.class_index for s in scores], dtype=np.int64)
     return out
 
@@ -321,6 +325,8 @@ def _row_ulps(expected, got, precision) -> np.ndarray | None:
                                       precision).max(axis=1))
         if "value" in expected:
             parts.append(ulp_distance(expected["value"], got.value, precision))
+        if "rate" in expected:
+            parts.append(ulp_distance(expected["rate"], got.rate, precision))
         return np.max(np.stack(parts), axis=0)
     except (ValueError, TypeError):
         return None
@@ -347,12 +353,16 @@ def _show_row(i, labels, rows, expected, got, comparison) -> dict:
     shown["got"]["margins"] = [_plain(v) for v in np.asarray(got.margins)[i]]
     if "probabilities" in expected:
         shown["expected"]["probabilities"] = [_plain(v) for v in expected["probabilities"][i]]
-        shown["expected"]["class_index"] = int(expected["class_index"][i])
         shown["got"]["probabilities"] = [_plain(v) for v in np.asarray(got.probabilities)[i]]
+    if "class_index" in expected:
+        shown["expected"]["class_index"] = int(expected["class_index"][i])
         shown["got"]["class_index"] = _plain(np.asarray(got.class_index)[i])
     if "value" in expected:
         shown["expected"]["value"] = _plain(expected["value"][i])
         shown["got"]["value"] = _plain(np.asarray(got.value)[i])
+    if "rate" in expected:
+        shown["expected"]["rate"] = _plain(expected["rate"][i])
+        shown["got"]["rate"] = _plain(np.asarray(got.rate)[i])
     return shown
 
 
@@ -426,7 +436,7 @@ def summary_lines(report: AgreementReport) -> list[str]:
 
 
 ULP_BOUNDS = {"margin": "margin_ulps", "probability": "probability_ulps",
-              "predicted_value": "value_ulps"}
+              "predicted_value": "value_ulps", "predicted_rate": "value_ulps"}
 
 
 def passed_on_abs(r: TargetResult) -> bool:

@@ -54,9 +54,12 @@ def make_vectors(model) -> dict:
         item = {"margins": [_hex(v) for v in exp["margins"][i]]}
         if "probabilities" in exp:
             item["probabilities"] = [_hex(v) for v in exp["probabilities"][i]]
+        if "class_index" in exp:
             item["class_index"] = int(exp["class_index"][i])
         else:
             item["value"] = _hex(exp["value"][i])
+            if "rate" in exp:
+                item["rate"] = _hex(exp["rate"][i])
         expected.append(item)
     return {"format": FORMAT, "model": model.name, "model_sha256": model.sha256,
             "labels": labels, "rows": [_encode_row(plan, r) for r in rows],
@@ -74,9 +77,12 @@ def load_vectors(path: Path, plan: Plan):
            "cut": plan.cut, "link": plan.link}
     if plan.task == "regression":
         out["value"] = np.array([float.fromhex(e["value"]) for e in exp])
+        if plan.offset is not None:
+            out["rate"] = np.array([float.fromhex(e["rate"]) for e in exp])
     else:
-        out["probabilities"] = np.array([[float.fromhex(v) for v in e["probabilities"]]
-                                         for e in exp])
+        if plan.has_probabilities:
+            out["probabilities"] = np.array([[float.fromhex(v) for v in e["probabilities"]]
+                                             for e in exp])
         out["class_index"] = np.array([e["class_index"] for e in exp], dtype=np.int64)
     return doc["labels"], rows, out
 

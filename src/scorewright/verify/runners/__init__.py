@@ -24,9 +24,10 @@ import numpy as np
 class RunOutput:
     runtime: str                           # e.g. "SQLite 3.40.1", "gcc 12.2.0 -O2"
     margins: np.ndarray | None             # (n, K); None: a decision-only artifact
-    probabilities: np.ndarray | None = None  # (n, C), classification
+    probabilities: np.ndarray | None = None  # (n, C), classification with probabilities
     class_index: np.ndarray | None = None    # (n,), classification
     value: np.ndarray | None = None          # (n,), regression
+    rate: np.ndarray | None = None           # (n,), regression with an offset or exposure
 
 
 def emitted(artifact_dir, model, options: dict, family: str, suffix: str) -> Path:
@@ -55,17 +56,22 @@ def class_by_label(plan):
 def outputs_from_table(plan, table, runtime: str, number=float, class_of=None) -> RunOutput:
     """The one reader of a runtime's output table: rows of cells in the order of
     `plan.output_columns` (binary: margin, positive-class probability, class;
-    multiclass: K margins, K probabilities, class; regression: margin, value).
+    multiclass: K margins, K probabilities, class; a "decision" head: the margins and
+    the class; regression: margin, value, and the rate with an offset or exposure).
     `number` reads a real cell (text, a hex float, a hex word...), `class_of` a class
     cell (default: the class label, `class_by_label`). A short or unreadable row
     raises IndexError or ValueError, which each runner words for its runtime."""
     n, k = len(table), plan.n_outputs
     if plan.task == "regression":
         m = np.array([number(r[0]) for r in table]).reshape(n, 1)
-        return RunOutput(runtime, m, value=np.array([number(r[1]) for r in table]))
+        rate = None if plan.offset is None else np.array([number(r[2]) for r in table])
+        return RunOutput(runtime, m, value=np.array([number(r[1]) for r in table]), rate=rate)
     class_of = class_of or class_by_label(plan)
-    width = 1 if plan.task == "binary" else len(plan.classes)
     m = np.array([[number(x) for x in r[:k]] for r in table]).reshape(n, k)
+    if not plan.has_probabilities:  # a decision head: the margins, then the class
+        return RunOutput(runtime, m, None, np.array([class_of(r[k]) for r in table],
+                                                    dtype=np.int64))
+    width = 1 if plan.task == "binary" else plan.n_probabilities
     p = np.array([[number(x) for x in r[k:k + width]] for r in table]).reshape(n, width)
     if plan.task == "binary":
         p = np.concatenate([1.0 - p, p], axis=1)

@@ -94,6 +94,11 @@ def measured_calls(plan: Plan, prefix: str, decision_only: bool) -> list[tuple[s
         calls = [(f"{P}_margin", f"m = {P}_margin(&in)"),
                  (f"{P}_predict_value", f"v = {P}_predict_value(&in)")]
         batch = f"{P}_predict_batch(row, 1, &b)"
+        if plan.offset is not None:  # the batch row holds the value and the rate
+            calls.append((f"{P}_predict_rate", f"r = {P}_predict_rate(&in)"))
+            batch = f"{P}_predict_batch(row, 1, b)"
+    if plan.task != "regression" and not plan.has_probabilities:
+        calls = [calls[0], calls[2]]  # a "decision" head: its batch gives the margins
     return calls + [(f"{P}_predict_batch", batch)]
 
 

@@ -158,7 +158,10 @@ def _run_output(plan: Plan, runtime: str, outputs: dict) -> RunOutput:
     margins = np.asarray(outputs["margin"], dtype=np.float64)
     if plan.task == "regression":
         value = np.asarray(outputs["predicted_value"], dtype=np.float64)[:, 0]
-        return RunOutput(runtime, margins, value=value)
-    probabilities = np.asarray(outputs["probability"], dtype=np.float64)
+        rate = None if plan.offset is None else \
+            np.asarray(outputs["predicted_rate"], dtype=np.float64)[:, 0]
+        return RunOutput(runtime, margins, value=value, rate=rate)
+    probabilities = np.asarray(outputs["probability"], dtype=np.float64) \
+        if plan.has_probabilities else None
     class_index = np.asarray(outputs["class_index"], dtype=np.int64)
     return RunOutput(runtime, margins, probabilities, class_index)
