@@ -44,6 +44,17 @@ def _readings(n=1500):
     return compressor_readings(n=n, seed=20261201)
 
 
+def _scaled_and_one_hot(categorical: list[str]):
+    """The readings' numeric columns median-imputed and standardized, `categorical` one-hot
+    with unseen levels ignored."""
+    compose, impute, _, pl, pp = _sk()
+    return compose.ColumnTransformer([
+        ("num", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
+                                 pp.StandardScaler()), NUMERIC),
+        ("cat", pp.OneHotEncoder(handle_unknown="ignore"), categorical),
+    ])
+
+
 def fault_binary() -> TestModel:
     """Imputation, standardization and one-hot categories, binary logistic (the demo's shape)."""
     compose, impute, lm, pl, pp = _sk()
@@ -247,15 +258,11 @@ def fault_type_ovr() -> TestModel:
     version 3: each class's sigmoid divided by their sum)."""
     from sklearn.multiclass import OneVsRestClassifier
 
-    compose, impute, lm, pl, pp = _sk()
+    _, _, lm, pl, _ = _sk()
     df = _readings()
     X, y = df[NUMERIC + CATEGORICAL], df["fault_type"]
-    prep = compose.ColumnTransformer([
-        ("num", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
-                                 pp.StandardScaler()), NUMERIC),
-        ("cat", pp.OneHotEncoder(handle_unknown="ignore"), ["site_zone"]),
-    ])
-    est = pl.make_pipeline(prep, OneVsRestClassifier(lm.LogisticRegression(max_iter=5000)))
+    est = pl.make_pipeline(_scaled_and_one_hot(["site_zone"]),
+                           OneVsRestClassifier(lm.LogisticRegression(max_iter=5000)))
     est.fit(X, y)
     return TestModel("fault_type_ovr", est, X, y,
                      scorewright.freeze(est, name="fault_type_ovr", check_rows=X))
@@ -315,15 +322,11 @@ def diabetes_log1p() -> TestModel:
 def fault_type_decision() -> TestModel:
     """A decision head (format version 4): RidgeClassifier over the four fault types, its
     margins and class with no probabilities."""
-    compose, impute, lm, pl, pp = _sk()
+    _, _, lm, pl, _ = _sk()
     df = _readings()
     X, y = df[NUMERIC + CATEGORICAL], df["fault_type"]
-    prep = compose.ColumnTransformer([
-        ("num", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
-                                 pp.StandardScaler()), NUMERIC),
-        ("cat", pp.OneHotEncoder(handle_unknown="ignore"), ["refrigerant", "site_zone"]),
-    ])
-    est = pl.make_pipeline(prep, lm.RidgeClassifier(alpha=1.0)).fit(X, y)
+    est = pl.make_pipeline(_scaled_and_one_hot(CATEGORICAL),
+                           lm.RidgeClassifier(alpha=1.0)).fit(X, y)
     return TestModel("fault_type_decision", est, X, y,
                      scorewright.freeze(est, name="fault_type_decision", check_rows=X))
 
