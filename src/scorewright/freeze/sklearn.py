@@ -702,19 +702,19 @@ def _one_hot(enc, chains, path):
                 raise Unsupported(f"OneHotEncoder at {path}, column {i}: the infrequent group "
                                   "holds only the missing value and unseen levels join it; "
                                   "use handle_unknown='ignore' or a lower min_frequency")
+        present_only = False
         if learned_missing:
             # a missing value is the level NaN: it takes its group's column (its fill is
             # another member of the group) or, alone in its group, a missing indicator (or
-            # nothing when dropped), which needs an unseen level to set no other column
+            # nothing when dropped); the frozen model reads a missing value as unseen, so
+            # when unseen levels join the infrequent group, that group's column is its
+            # indicator times "present" (1 when present, 0 when missing)
             home = next(g for g in groups + [dropped_group] if g is not None and None in g)
             others = [c for c in home if c is not None]
             if others:
                 fill = others[0]
-            elif unknown is not None:
-                raise Unsupported(f"OneHotEncoder at {path}, column {i}: the missing value "
-                                  "has a column of its own (or is dropped) while unseen levels "
-                                  "join the infrequent group; use handle_unknown='ignore' or "
-                                  "drop the missing value's column with the infrequent ones")
+            else:
+                present_only = unknown is not None
         if learned_missing and all(g == (None,) for g in groups) and groups:
             raise Unsupported(f"OneHotEncoder at {path}, column {i}: only the missing value's "
                               "column is left after the drop; drop another category")
@@ -723,9 +723,12 @@ def _one_hot(enc, chains, path):
             if group == (None,):  # the missing value's own column
                 out.append(Chain(chain.feature, indicator=True, categories=tuple(cats)))
                 continue
-            out.append(Chain(chain.feature, fill=fill, levels=tuple(
-                c for c in group if c is not None), categories=tuple(cats),
-                unknown_level=unknown, encoded=True))
+            levels = tuple(c for c in group if c is not None)
+            product = None
+            if present_only and group == tuple(rare):
+                product = (_named(chain, levels=levels), _named(chain, missing=(1.0, 0.0)))
+            out.append(Chain(chain.feature, fill=fill, levels=levels, categories=tuple(cats),
+                             unknown_level=unknown, encoded=True, product=product))
     return out
 
 
