@@ -44,6 +44,17 @@ def _readings(n=1500):
     return compressor_readings(n=n, seed=20261201)
 
 
+def _scaled_and_one_hot(categorical: list[str]):
+    """The readings' numeric columns median-imputed and standardized, `categorical` one-hot
+    with unseen levels ignored."""
+    compose, impute, _, pl, pp = _sk()
+    return compose.ColumnTransformer([
+        ("num", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
+                                 pp.StandardScaler()), NUMERIC),
+        ("cat", pp.OneHotEncoder(handle_unknown="ignore"), categorical),
+    ])
+
+
 def fault_binary() -> TestModel:
     """Imputation, standardization and one-hot categories, binary logistic (the demo's shape)."""
     compose, impute, lm, pl, pp = _sk()
@@ -247,15 +258,11 @@ def fault_type_ovr() -> TestModel:
     version 3: each class's sigmoid divided by their sum)."""
     from sklearn.multiclass import OneVsRestClassifier
 
-    compose, impute, lm, pl, pp = _sk()
+    _, _, lm, pl, _ = _sk()
     df = _readings()
     X, y = df[NUMERIC + CATEGORICAL], df["fault_type"]
-    prep = compose.ColumnTransformer([
-        ("num", pl.make_pipeline(impute.SimpleImputer(strategy="median"),
-                                 pp.StandardScaler()), NUMERIC),
-        ("cat", pp.OneHotEncoder(handle_unknown="ignore"), ["site_zone"]),
-    ])
-    est = pl.make_pipeline(prep, OneVsRestClassifier(lm.LogisticRegression(max_iter=5000)))
+    est = pl.make_pipeline(_scaled_and_one_hot(["site_zone"]),
+                           OneVsRestClassifier(lm.LogisticRegression(max_iter=5000)))
     est.fit(X, y)
     return TestModel("fault_type_ovr", est, X, y,
                      scorewright.freeze(est, name="fault_type_ovr", check_rows=X))
@@ -312,6 +319,55 @@ def diabetes_log1p() -> TestModel:
                      scorewright.freeze(est, name="diabetes_log1p", check_rows=X))
 
 
+def fault_type_decision() -> TestModel:
+    """A decision head (format version 4): RidgeClassifier over the four fault types, its
+    margins and class with no probabilities."""
+    _, _, lm, pl, _ = _sk()
+    df = _readings()
+    X, y = df[NUMERIC + CATEGORICAL], df["fault_type"]
+    est = pl.make_pipeline(_scaled_and_one_hot(CATEGORICAL),
+                           lm.RidgeClassifier(alpha=1.0)).fit(X, y)
+    return TestModel("fault_type_decision", est, X, y,
+                     scorewright.freeze(est, name="fault_type_decision", check_rows=X))
+
+
+def committee_exposure() -> TestModel:
+    """An exposure (format version 4: the feature's role): a Poisson GLM of bills per House
+    committee with the committee's size as the exposure, through a formula (statsmodels
+    ships the data); the artifacts output the expected count and the rate."""
+    import statsmodels.api as sm
+    import statsmodels.formula.api as smf
+    from scorewright.freeze.statsmodels import ResultsSource
+
+    d = sm.datasets.committee.load_pandas().data
+    results = smf.glm("BILLS104 ~ SUBS + STAFF + PRESTIGE + np.log1p(BILLS103)", data=d,
+                      family=sm.families.Poisson(), exposure=d.SIZE).fit()
+    X = d.drop(columns=["BILLS104"])
+    model = scorewright.freeze(results, name="committee_exposure", check_rows=X,
+                               exposure="SIZE")
+    return TestModel("committee_exposure", ResultsSource(results, model), X, d.BILLS104, model)
+
+
+def compressor_quantiles() -> TestModel:
+    """Format version 4's design kinds (the compressor readings): QuantileTransformer with
+    normal and uniform output, and an l2 Normalizer over three imputed, scaled readings."""
+    compose, impute, lm, pl, pp = _sk()
+    df = _readings()
+    X, y = df[NUMERIC + CATEGORICAL], df["fault_30d"]
+    prep = compose.ColumnTransformer([
+        ("qn", pl.make_pipeline(impute.SimpleImputer(strategy="median"), pp.QuantileTransformer(
+            n_quantiles=40, output_distribution="normal")), ["vibration_mm_s"]),
+        ("qu", pl.make_pipeline(impute.SimpleImputer(), pp.QuantileTransformer(
+            n_quantiles=25)), ["hours_since_service"]),
+        ("nz", pl.make_pipeline(impute.SimpleImputer(), pp.StandardScaler(), pp.Normalizer()),
+         ["discharge_temp_c", "suction_pressure_kpa", "motor_current_a"]),
+        ("cat", pp.OneHotEncoder(handle_unknown="ignore"), ["site_zone"]),
+    ])
+    est = pl.make_pipeline(prep, lm.LogisticRegression(max_iter=5000)).fit(X, y)
+    return TestModel("compressor_quantiles", est, X, y,
+                     scorewright.freeze(est, name="compressor_quantiles", check_rows=X))
+
+
 class _Classifier:
     """statsmodels results as a scikit-learn classifier (predict_proba; predict: the class
     of probability above 0.5), for the tests that compare with one."""
@@ -349,15 +405,19 @@ BUILDERS |= {
     "spector_cloglog": spector_cloglog,
     "diabetes_gamma_inverse": diabetes_gamma_inverse,
     "diabetes_log1p": diabetes_log1p,
+    "fault_type_decision": fault_type_decision,
+    "committee_exposure": committee_exposure,
+    "compressor_quantiles": compressor_quantiles,
 }
 
 
-# Format version 3's splines, power transforms, log1p and inverse links are scored in
-# double precision only: a single-precision target refuses the model in one line, and
-# that refusal is what it is held to.
+# Format version 3's splines, power transforms, log1p and inverse links, and format 4's
+# quantiles and norms, are scored in double precision only: a single-precision target
+# refuses the model in one line, and that refusal is what it is held to.
 DOUBLE_ONLY = {"compressor_shapes": "not scored in single precision",
                "diabetes_log1p": "not scored in single precision",
-               "diabetes_gamma_inverse": "not scored in single precision"}
+               "diabetes_gamma_inverse": "not scored in single precision",
+               "compressor_quantiles": "not scored in single precision"}
 
 
 # The models the per-target suites walk one by one (ONNX graph checks, firmware images in

@@ -141,21 +141,31 @@ import sys
 from scorewright.emit import emitter
 from scorewright.model import load_model
 from scorewright.verify.profiles import load_profile
+from scorewright.errors import ScorewrightError
 profile = load_profile(sys.argv[1])
-model = load_model(sys.argv[2])
-for art in emitter(profile.emitter)(model, dict(profile.emit)):
-    sys.stdout.buffer.write(art.name.encode() + b"\\0" + art.content + b"\\0")
+for path in sys.argv[2:]:
+    try:
+        arts = emitter(profile.emitter)(load_model(path), dict(profile.emit))
+    except ScorewrightError as err:  # a refusal is output too, and must be the same
+        sys.stdout.buffer.write(str(err).encode() + b"\\0")
+        continue
+    for art in arts:
+        sys.stdout.buffer.write(art.name.encode() + b"\\0" + art.content + b"\\0")
 """
+# the hostile names, and one model of each term kind format versions 3 and 4 added
+DETERMINISM_MODELS = ("hostile", "compressor_shapes", "fault_type_ovr", "compressor_quantiles",
+                      "fault_type_decision", "committee_exposure")
 
 
 @pytest.mark.parametrize("profile_name", PROFILES)
 def test_emit_is_byte_identical_across_processes(profile_name):
-    """Same model, two processes with different hash seeds and locales: same bytes."""
+    """Same models, two processes with different hash seeds and locales: same bytes."""
     outputs = []
     for seed, locale in (("1", "C"), ("4242", "C.UTF-8")):
         env = dict(os.environ, PYTHONHASHSEED=seed, LC_ALL=locale, LANG=locale)
         proc = subprocess.run([sys.executable, "-c", EMIT_SNIPPET, profile_name,
-                               str(VECTORS / "hostile.model.json")], env=env,
+                               *(str(VECTORS / f"{n}.model.json") for n in DETERMINISM_MODELS)],
+                              env=env,
                               capture_output=True, check=True)
         outputs.append(proc.stdout)
     assert outputs[0] == outputs[1] and outputs[0]

@@ -43,10 +43,10 @@ BREAKERS = ['"', "'", "`", "\u2019", "\u201c", "\\", "\\\\", "*/", "/*", "--", "
             "\U0001d518", "温度", "\u202e", " ", "x" * 300]
 EXAMPLES = 128
 # The default run's models per profile, by its cost tag (the draw is fixed; --runslow draws
-# 1,280 new ones on every profile): 128, 48 on the compiled and server targets, and 16 on
+# 1,280 new ones on every profile): 64, 32 on the compiled and server targets, and 8 on
 # Spark and Java, whose every run is a JVM job of about 0.5-1.5 s (the default tier's 15
 # minutes). Each SQL model runs twice (typed and text columns).
-DEFAULT_EXAMPLES = {"low": EXAMPLES, "medium": 48, "high": 16}
+DEFAULT_EXAMPLES = {"low": 64, "medium": 32, "high": 8}
 
 text = st.one_of(
     st.text(min_size=1, max_size=16),

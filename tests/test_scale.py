@@ -48,8 +48,14 @@ BOUNDARY_MODELS = {"numeric features": lambda n: models.wide_model(n, prefix="ed
                    "categorical levels": models.many_levels_model}
 
 
-@pytest.mark.parametrize("profile_name", builtin_names())
-@pytest.mark.parametrize("kind", sorted(BOUNDARY_MODELS))
+# The two slowest pairs (a wide model on the long layouts of Spark and SQLite, 10-12 s each
+# here) run under --runslow; their wide layouts and their many-level models run by default.
+SLOW_PAIRS = {("numeric features", "sql-spark-long"), ("numeric features", "sql-sqlite-long")}
+
+
+@pytest.mark.parametrize("kind,profile_name", [
+    pytest.param(kind, name, marks=pytest.mark.slow if (kind, name) in SLOW_PAIRS else ())
+    for name in builtin_names() for kind in sorted(BOUNDARY_MODELS)])
 def test_models_past_the_layer_boundaries_run_on_every_target(kind, profile_name, tmp_path,
                                                               request):
     """Every profile (its runtime too: a board's flash and stack, Spark's planner), with a

@@ -658,6 +658,9 @@ def _scale(chains, path, what, *ops):
 
 def _one_hot(enc, chains, path):
     drop_idx = getattr(enc, "drop_idx_", None)
+    # scikit-learn drops after grouping the infrequent levels: `_drop_idx_after_grouping`
+    # indexes the grouped columns (the frequent levels in order, then the group)
+    grouped_drop = getattr(enc, "_drop_idx_after_grouping", drop_idx)
     infrequent = getattr(enc, "infrequent_categories_", None) if getattr(
         enc, "_infrequent_enabled", False) else None
     out: list[Chain] = []
@@ -665,14 +668,12 @@ def _one_hot(enc, chains, path):
         _require_raw(chain, path, "OneHotEncoder")
         if chain.steps:
             raise Unsupported(f"OneHotEncoder at {path} encodes a scaled column")
-        cats = [_level(v, path) for v in enc.categories_[i]]
-        learned_missing = any(c is None for c in cats)
-        if learned_missing and (chain.fill is not None or drop_idx is not None or (
-                infrequent is not None and infrequent[i] is not None)):
+        all_cats = [_level(v, path) for v in enc.categories_[i]]
+        learned_missing = any(c is None for c in all_cats)
+        if learned_missing and chain.fill is not None:
             raise Unsupported(f"OneHotEncoder at {path} learned a missing value as a category "
-                              "together with an imputer, drop or infrequent grouping; not "
-                              "frozen")
-        cats = [c for c in cats if c is not None]
+                              "together with an imputer; not frozen")
+        cats = [c for c in all_cats if c is not None]
         if len({type(c) for c in cats}) > 1:
             raise Unsupported(f"OneHotEncoder at {path}: a column mixes text and number "
                               "categories")
@@ -680,29 +681,54 @@ def _one_hot(enc, chains, path):
         if fill is not None and fill not in cats:
             raise Unsupported(f"imputed value {fill!r} is not a category of the OneHotEncoder "
                               f"at {path}")
-        dropped = None if drop_idx is None or drop_idx[i] is None else int(drop_idx[i])
+        dropped = None if grouped_drop is None or grouped_drop[i] is None else int(
+            grouped_drop[i])
         rare = None if infrequent is None or infrequent[i] is None else [
             _level(v, path) for v in infrequent[i]]
-        if rare and dropped is not None:
-            raise Unsupported(f"OneHotEncoder at {path} drops a category and groups infrequent "
-                              "ones; use one of the two")
-        groups: list[tuple] = []
+        # OneHotEncoder.transform's columns: the frequent levels in order (a learned
+        # missing value is a level, last), then the infrequent group; the dropped one goes
+        groups: list[tuple] = [(c,) for c in all_cats if not rare or c not in rare]
         if rare:
-            groups = [(c,) for c in cats if c not in rare] + [tuple(rare)]
-        else:
-            groups = [(c,) for j, c in enumerate(cats) if j != dropped]
+            groups.append(tuple(rare))
+        dropped_group = None if dropped is None else groups.pop(dropped)
         # scikit-learn >= 1.6 transforms with handle_unknown='warn' exactly as with
         # 'infrequent_if_exist' (OneHotEncoder.transform swaps it in): an unseen level
-        # joins the infrequent group when the column has one, else its indicators are 0.
+        # joins the infrequent group when the column has one (all zeros when that group is
+        # the dropped one), else its indicators are 0.
         unknown = None
         if enc.handle_unknown in ("infrequent_if_exist", "warn") and rare:
-            unknown = rare[0]
+            unknown = next((c for c in rare if c is not None), None)
+            if unknown is None:
+                raise Unsupported(f"OneHotEncoder at {path}, column {i}: the infrequent group "
+                                  "holds only the missing value and unseen levels join it; "
+                                  "use handle_unknown='ignore' or a lower min_frequency")
+        present_only = False
+        if learned_missing:
+            # a missing value is the level NaN: it takes its group's column (its fill is
+            # another member of the group) or, alone in its group, a missing indicator (or
+            # nothing when dropped); the frozen model reads a missing value as unseen, so
+            # when unseen levels join the infrequent group, that group's column is its
+            # indicator times "present" (1 when present, 0 when missing)
+            home = next(g for g in groups + [dropped_group] if g is not None and None in g)
+            others = [c for c in home if c is not None]
+            if others:
+                fill = others[0]
+            else:
+                present_only = unknown is not None
+        if learned_missing and all(g == (None,) for g in groups) and groups:
+            raise Unsupported(f"OneHotEncoder at {path}, column {i}: only the missing value's "
+                              "column is left after the drop; drop another category")
         # A feature whose only category was dropped yields no column: it is left out.
         for group in groups:
-            out.append(Chain(chain.feature, fill=fill, levels=group, categories=tuple(cats),
-                             unknown_level=unknown, encoded=True))
-        if learned_missing:  # its column, last (scikit-learn sorts a missing value last)
-            out.append(Chain(chain.feature, indicator=True, categories=tuple(cats)))
+            if group == (None,):  # the missing value's own column
+                out.append(Chain(chain.feature, indicator=True, categories=tuple(cats)))
+                continue
+            levels = tuple(c for c in group if c is not None)
+            product = None
+            if present_only and group == tuple(rare):
+                product = (_named(chain, levels=levels), _named(chain, missing=(1.0, 0.0)))
+            out.append(Chain(chain.feature, fill=fill, levels=levels, categories=tuple(cats),
+                             unknown_level=unknown, encoded=True, product=product))
     return out
 
 
