@@ -368,6 +368,20 @@ def compressor_quantiles() -> TestModel:
                      scorewright.freeze(est, name="compressor_quantiles", check_rows=X))
 
 
+def fault_calibrated() -> TestModel:
+    """A calibrated head (format version 4): CalibratedClassifierCV over a LinearSVC,
+    isotonic, the three folds' probabilities averaged (ensemble=True)."""
+    from sklearn.calibration import CalibratedClassifierCV
+    from sklearn.svm import LinearSVC
+
+    _, _, _, pl, _ = _sk()
+    df = _readings()
+    X, y = df[NUMERIC + CATEGORICAL], df["fault_30d"]
+    est = pl.make_pipeline(_scaled_and_one_hot(["site_zone"]), CalibratedClassifierCV(
+        LinearSVC(C=0.5), method="isotonic", cv=3, ensemble=True)).fit(X, y)
+    return TestModel("fault_calibrated", est, X, y,
+                     scorewright.freeze(est, name="fault_calibrated", check_rows=X))
+
 class _Classifier:
     """statsmodels results as a scikit-learn classifier (predict_proba; predict: the class
     of probability above 0.5), for the tests that compare with one."""
@@ -408,16 +422,18 @@ BUILDERS |= {
     "fault_type_decision": fault_type_decision,
     "committee_exposure": committee_exposure,
     "compressor_quantiles": compressor_quantiles,
+    "fault_calibrated": fault_calibrated,
 }
 
 
 # Format version 3's splines, power transforms, log1p and inverse links, and format 4's
-# quantiles and norms, are scored in double precision only: a single-precision target
+# quantiles, norms and isotonic calibrators, are scored in double precision only: a single-precision target
 # refuses the model in one line, and that refusal is what it is held to.
 DOUBLE_ONLY = {"compressor_shapes": "not scored in single precision",
                "diabetes_log1p": "not scored in single precision",
                "diabetes_gamma_inverse": "not scored in single precision",
-               "compressor_quantiles": "not scored in single precision"}
+               "compressor_quantiles": "not scored in single precision",
+               "fault_calibrated": "not scored in single precision"}
 
 
 # The models the per-target suites walk one by one (ONNX graph checks, firmware images in

@@ -154,6 +154,7 @@ for path in sys.argv[2:]:
 """
 # the hostile names, and one model of each term kind format versions 3 and 4 added
 DETERMINISM_MODELS = ("hostile", "compressor_shapes", "fault_type_ovr", "compressor_quantiles",
+                      "fault_calibrated",
                       "fault_type_decision", "committee_exposure")
 
 
