@@ -43,10 +43,10 @@ BREAKERS = ['"', "'", "`", "\u2019", "\u201c", "\\", "\\\\", "*/", "/*", "--", "
             "\U0001d518", "温度", "\u202e", " ", "x" * 300]
 EXAMPLES = 128
 # The default run's models per profile, by its cost tag (the draw is fixed; --runslow draws
-# 1,280 new ones on every profile): 64, 32 on the compiled and server targets, and 8 on
+# 1,280 new ones on every profile): 64, 16 on the compiled and server targets, and 8 on
 # Spark and Java, whose every run is a JVM job of about 0.5-1.5 s (the default tier's 15
 # minutes). Each SQL model runs twice (typed and text columns).
-DEFAULT_EXAMPLES = {"low": 64, "medium": 32, "high": 8}
+DEFAULT_EXAMPLES = {"low": 64, "medium": 16, "high": 8}
 
 text = st.one_of(
     st.text(min_size=1, max_size=16),
@@ -57,7 +57,7 @@ text = st.one_of(
 
 @st.composite
 def hostile_models(draw):
-    names = draw(st.lists(text, min_size=3, max_size=3, unique=True))
+    names = draw(st.lists(text, min_size=4, max_size=4, unique=True))
     if draw(st.booleans()):
         names[1] = names[0].swapcase() if names[0].swapcase() not in names else names[1]
     levels = draw(st.lists(text.filter(lambda s: s != ""), min_size=2, max_size=3,
@@ -70,8 +70,10 @@ def hostile_models(draw):
                                       max_size=n_out if n_out > 1 else 2, unique=True)))
     coef = st.floats(-3, 3, allow_nan=False, allow_infinity=False)
     # half the models carry format 2's term kinds: a log1p transform, a missing indicator,
-    # a product, an encoded category, the probit or cloglog link (or format 4's decision)
+    # a product, an encoded category, the probit or cloglog link (or format 4's decision,
+    # or format 4's exposure, a fourth input, with the rate output beside the count)
     v2 = draw(st.booleans())
+    exposure = v2 and task == "regression" and draw(st.booleans())
     features = (
         NumericFeature(names[0], draw(st.one_of(st.none(), coef))),
         NumericFeature(names[1], None, (ScalingStep("log1p"),) if v2 else ()),
@@ -86,15 +88,20 @@ def hostile_models(draw):
                        DesignColumn(names[2], (levels[0],))), scaling=()),
                    DesignColumn(names[2], encoded=(tuple(float(i) for i in range(len(levels))),
                                                    -1.0, -2.0)))
+    if exposure:
+        features += (NumericFeature(names[3], None, (ScalingStep("log"),), role="exposure"),)
+        design += (DesignColumn(names[3]),)
     n_design = len(design)
     link = "logit" if task == "binary" else ("softmax" if task == "multiclass" else "identity")
     if v2 and task == "binary":
         link = draw(st.sampled_from(["logit", "probit", "cloglog", "decision"]))
     elif v2 and task == "multiclass":
         link = draw(st.sampled_from(["softmax", "decision"]))
-    head = Head(task, link, classes,
-                tuple(draw(coef) for _ in range(n_out)),
-                tuple(tuple(draw(coef) for _ in range(n_design)) for _ in range(n_out)),
+    elif exposure:
+        link = "log"
+    weights = tuple(tuple(draw(coef) for _ in range(n_design - exposure)) + (1.0,) * exposure
+                    for _ in range(n_out))
+    head = Head(task, link, classes, tuple(draw(coef) for _ in range(n_out)), weights,
                 0.0 if task == "binary" else None)
     model = FrozenModel(draw(text), features, design, head,
                         {"scorewright_version": "test", "source": "hypothesis"}).sealed()
@@ -103,11 +110,14 @@ def hostile_models(draw):
 
 def _rows(model):
     plan = build_plan(model)
-    num0, num1, cat = (i.name for i in plan.inputs)
+    num0, num1, cat = (i.name for i in plan.inputs[:3])
     rows = []
     for level in list(plan.inputs[2].levels) + [None, "<not a level>"]:
         rows.append({num0: 1.25, num1: -0.5, cat: level})
     rows += [{num0: None, num1: math.nan, cat: None}, {num0: 1e308, num1: -1e308, cat: None}]
+    if len(plan.inputs) > 3:  # the exposure: ordinary, unusable (counts as 1) and extreme
+        for row, value in zip(rows, [2.5, None, 0.0, -1.0, 1e300, 5e-324] * len(rows)):
+            row[plan.inputs[3].name] = value
     return rows
 
 

@@ -308,11 +308,10 @@ def test_trap_postgres_jit_gives_the_same_bits(tmp_path, postgres_dsn, request):
         assert "JIT:" in plan and "Inlining true, Optimization true" in plan, plan
     # The deep programs (a log's reduction, the probit series: the same + - * / and
     # selects, only many) take LLVM minutes to compile: --runslow only. The default tier
-    # compiles one model per head kind (binary with categoricals, multiclass, count);
-    # --runslow every test model.
+    # compiles one model (binary, with categoricals) besides the wide and long models
+    # below; --runslow every test model.
     slow = request.config.getoption("--runslow")
-    for name in [n for n in MODEL_NAMES
-                 if slow or n in ("fault_binary", "wine", "alarms_poisson")]:
+    for name in [n for n in MODEL_NAMES if slow or n == "fault_binary"]:
         tm = models.build(name)
         rows = edge_rows(name, n_frame=50)
         # JIT's bits are the question here; the text pass is tested on its own.

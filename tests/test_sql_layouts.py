@@ -31,7 +31,8 @@ from test_sql import assert_agrees, run_sql
 
 # DuckDB has no column limit to reach: its 2,600 features (35 s here) run in the slow tier;
 # the default run takes DuckDB past its layer boundary (251, 260: tests/test_scale.py, below).
-@pytest.mark.parametrize("dialect,n", [("sqlite", 1_990), ("postgres", 1_000),
+@pytest.mark.parametrize("dialect,n", [pytest.param("sqlite", 1_990, marks=pytest.mark.slow),
+                                       ("postgres", 1_000),
                                        pytest.param("duckdb", 2_600, marks=pytest.mark.slow),
                                        ("sqlite", 99), ("sqlite", 101)])
 def test_a_model_as_wide_as_the_table_allows(tmp_path, postgres_dsn, dialect, n):
