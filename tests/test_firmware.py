@@ -432,8 +432,8 @@ def test_edge_rows_run_on_the_board_without_a_fault(tmp_path):
     assert "mps2-an385" in got.runtime and "Cortex-M3" in got.runtime
 
 
-@pytest.mark.parametrize("profile_name", ["c-cortex-m4f",
-                                          pytest.param("c-cortex-m3", marks=pytest.mark.slow)])
+@pytest.mark.slow  # 14 s a board; by default tests/test_scale.py runs 251 terms on both
+@pytest.mark.parametrize("profile_name", BOARDS)
 def test_a_wide_models_row_scorer_in_parts_keeps_the_bits(profile_name, tmp_path):
     """Past ROW_PART_TERMS terms the row scorer is cut into functions (one giant function
     takes GCC minutes, and at -Os its Thumb-2 branches overflow): same bits as the

@@ -149,7 +149,7 @@ def test_identifiers_fold_case_over_unicode(tmp_path, spark):
     assert bits(got.margins[:, 0]).tolist() == bits([s.margins[0] for s in ref]).tolist()
 
 
-@pytest.mark.slow  # 28 s; by default tests/test_scale.py runs Spark at 1,001 features
+@pytest.mark.slow  # 28 s; by default tests/test_scale.py takes Spark past 250 terms
 def test_a_model_of_many_terms_sums_flat(tmp_path, spark):
     """Past 250 terms a margin is one aggregate() over an array of its terms, added left
     to right (the same additions in the same order), not a chain of `+` 250 deep per
