@@ -110,3 +110,24 @@ def test_boolean_flag_round_trips_and_is_absent_when_false(tmp_path):
     doc["features"][[f["name"] for f in doc["features"]].index(first.name)]["boolean"] = "yes"
     with pytest.raises(ModelFileError, match=r"\.boolean: expected true"):
         parse_model(json.dumps(_resealed(doc)))
+
+
+def test_a_model_is_written_in_the_highest_version_any_of_its_parts_needs():
+    """A spline (format 3) under a decision head (format 4) is a format 4 file: a version 3
+    reader would not know the link. (Before, the first construct found set the version.)"""
+    import numpy as np
+    import pandas as pd
+    from sklearn.linear_model import RidgeClassifier
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import SplineTransformer
+
+    import scorewright
+
+    rng = np.random.default_rng(3)
+    x = pd.DataFrame({"load": rng.uniform(0, 10, 200)})
+    y = (x.load + rng.normal(0, 2, 200) > 5).astype(int)
+    model = scorewright.freeze(make_pipeline(SplineTransformer(n_knots=4), RidgeClassifier())
+                               .fit(x, y), check_rows=x)
+    doc = json.loads(model.to_json())
+    assert doc["format_version"] == 4 and doc["head"]["link"] == "decision"
+    assert parse_model(model.to_json()).sha256 == model.sha256
