@@ -251,8 +251,8 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
             if any(v != 0.0 for t in tables for v in t):
                 terms.append(Term(i, "categorical", tables=tuple(tables)))
         for j in all_cols:
+            weights = tuple(head.coefficients[k][j] for k in range(n_out))
             if model.design[j].normalized is not None:
-                weights = tuple(head.coefficients[k][j] for k in range(n_out))
                 if any(w != 0.0 for w in weights):
                     terms.append(_normalized_term(model, index_of, model.design[j], weights,
                                                   prec))
@@ -261,7 +261,6 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
                 if prec.name == "float":
                     raise ScorewrightError(f"feature {feat.name!r}: a spline is not scored in "
                                            "single precision; use a double target")
-                weights = tuple(head.coefficients[k][j] for k in range(n_out))
                 if any(w != 0.0 for w in weights):
                     terms.append(Term(i, "basis", weights=weights, basis=model.design[j].basis,
                                       steps=tuple(model.design[j].scaling or ())))
@@ -275,7 +274,6 @@ def build_plan(model: FrozenModel, precision: str = "double", exp: str = "libm")
                     terms.append(Term(i, "encoded", tables=tables))
                 continue
             if model.design[j].product is not None:
-                weights = tuple(head.coefficients[k][j] for k in range(n_out))
                 if any(w != 0.0 for w in weights):
                     terms.append(_product_term(model, index_of, model.design[j], weights,
                                                prec))
