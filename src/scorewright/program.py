@@ -372,37 +372,9 @@ def _lower_l2(b: _Builder, xs):
     return b.emit("sqrt", total, hint="v")
 
 
-def _pairwise(b: _Builder, xs):
-    """numpy's pairwise sum (its add reduction along a contiguous row): below 8 terms in
-    order; up to 128, eight running sums combined as ((r0 + r1) + (r2 + r3)) + ((r4 + r5)
-    + (r6 + r7)), then the rest in order; beyond, the two halves (the first a multiple
-    of 8) summed apart."""
-    n = len(xs)
-    if n < 8:
-        s = xs[0]
-        for x in xs[1:]:
-            s = b.emit("add", s, x, hint="v")
-        return s
-    if n <= 128:
-        r = list(xs[:8])
-        i = 8
-        while i < n - n % 8:
-            r = [b.emit("add", r[j], xs[i + j], hint="v") for j in range(8)]
-            i += 8
-
-        def add(u, v):
-            return b.emit("add", u, v, hint="v")
-        s = add(add(add(r[0], r[1]), add(r[2], r[3])), add(add(r[4], r[5]), add(r[6], r[7])))
-        for x in xs[i:]:
-            s = add(s, x)
-        return s
-    half = n // 2
-    half -= half % 8
-    return b.emit("add", _pairwise(b, xs[:half]), _pairwise(b, xs[half:]), hint="v")
-
-
 def _lower_l1(b: _Builder, xs):
-    return _pairwise(b, [b.emit("abs", x, hint="v") for x in xs])
+    # numpy's pairwise sum of the magnitudes; its 0.0 start changes no sum of them
+    return _pairwise_sum(b, [b.emit("abs", x, hint="v") for x in xs])
 
 
 def _lower_max_norm(b: _Builder, xs):
