@@ -160,3 +160,24 @@ def test_a_missing_value_the_fit_never_saw_is_encoded_as_unseen():
         warnings.simplefilter("ignore")
         probe = pd.DataFrame({"grade": pd.Series([None], dtype=object), "load": [0.0]})
         assert pipe[0].transform(probe)[0, 0] == -1
+
+
+def test_equal_tables_of_one_input_compile_once_in_c(tmp_path):
+    """An input's level indicator and its encoding may give equal contribution tables
+    (found by tests/test_hostile_names.py: a one-hot column and an ordinal code of the
+    same category, both weight 1). The C file holds one table for both; gcc, with unused
+    constants an error, compiles it and the artifacts agree with the reference."""
+    from scorewright.model import (CategoricalFeature, DesignColumn, FrozenModel, Head,
+                                   NumericFeature)
+    from scorewright.verify.harness import build_targets
+
+    model = FrozenModel(
+        "grade_twice", (NumericFeature("load", None),
+                        CategoricalFeature("grade", ("A", "B"), None, None)),
+        (DesignColumn("load"), DesignColumn("grade", ("B",)),
+         DesignColumn("grade", encoded=((0.0, 1.0), -1.0, -2.0))),
+        Head("regression", "identity", None, (0.0,), ((0.5, 1.0, 1.0),), None),
+        {"source": "test"}).sealed()
+    report = build_targets(model, tmp_path, data=None, n_random=100,
+                           targets=["c-double", "java", "python", "sql-sqlite"])
+    assert report.ok, [(r.profile.name, r.message) for r in report.results]

@@ -296,6 +296,41 @@ def test_onnxruntime_graph_optimizations_change_no_bit(tmp_path):
             assert a.tobytes() == b.tobytes()
 
 
+def test_constants_near_an_identity_keep_their_bits_under_the_runtime_optimizer(tmp_path):
+    """onnxruntime 1.32 (measured here): its default graph optimizations delete a Mul or Div
+    by a one-element double constant that rounds to 1.0 in float, and an Add or Sub of one
+    that rounds to 0.0, as identities. A standardized product's scale is such a constant
+    (1.0000000000000007 in tests/test_products.py). The graph declares those constants as
+    inputs with defaults, which the optimizer leaves alone; removing that declaration makes
+    onnxruntime give other bits, so this test exercises the trap."""
+    from scorewright.model import DesignColumn, FrozenModel, Head, NumericFeature, ScalingStep
+
+    steps = (ScalingStep("subtract", 0.25), ScalingStep("divide", 1.0 + 2.0 ** -40),
+             ScalingStep("multiply", 1.0 - 2.0 ** -30), ScalingStep("add", 1e-300))
+    model = FrozenModel("near_identity", (NumericFeature("load_pct", None, steps),),
+                        (DesignColumn("load_pct"),),
+                        Head("regression", "identity", None, (0.0,), ((1.0 + 2.0 ** -44,),),
+                             None), {"source": "test"}).sealed()
+    path = emitted(model, tmp_path)
+    graph_model = onnx.load(path)
+    pinned = [i.name for i in graph_model.graph.input[1:]]
+    assert pinned, "no constant declared"
+    plan = build_plan(model)
+    rows = [{"load_pct": v} for v in (0.25, 0.25 + 2.0 ** -50, 1.0, -3.5, 1e-300, 0.75)]
+    feeds = input_feeds(plan, rows, "per-feature")
+    want = [score_row(plan, r).value for r in rows]
+
+    def value(proto) -> list:
+        session = onnxruntime.InferenceSession(proto.SerializeToString(),
+                                               providers=["CPUExecutionProvider"])
+        assert [i.name for i in session.get_inputs()] == ["load_pct"]
+        return session.run(["predicted_value"], feeds)[0][:, 0].tolist()
+
+    assert value(graph_model) == want
+    del graph_model.graph.input[1:]
+    assert value(graph_model) != want, "onnxruntime keeps such constants now"
+
+
 def test_float_graph_saturates_huge_doubles_instead_of_reading_them_as_missing(tmp_path):
     """float32(1e308) is inf, which the graph reads as missing; the runner saturates so
     the plan's clamp applies, as it does in the reference."""

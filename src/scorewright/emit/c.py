@@ -144,7 +144,7 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         # else the probability or value (and the rate)
         "batch_width": ((plan.n_probabilities if plan.has_probabilities else plan.n_outputs)
                         if plan.task == "multiclass" else 1 + (plan.offset is not None)),
-        "tables": _tables(plan, prec, prefix),
+        "tables": _tables(plan, prec, prefix, tables),
         **program_code(program, split, spelling, names, prefix, tables, decision_only),
         **({} if decision_only else _batch(program, spelling, prec, prefix, tables)),
     }
@@ -184,11 +184,15 @@ def block_spelling(row: Spelling, prec: CPrecision, prefix: str) -> Spelling:
     })
 
 
-def _tables(plan: Plan, prec: CPrecision, prefix: str) -> list[dict]:
+def _tables(plan: Plan, prec: CPrecision, prefix: str, names: dict) -> list[dict]:
     """Categorical contribution tables: per output, one value per level code plus a
-    final 0.0 for "no level"."""
+    final 0.0 for "no level". A term whose every row another term's table holds already
+    (`_table_names`) has none: it would be unused, which C compilers warn of."""
     out = []
+    used = {name.split("[")[0] for name in names.values()}
     for nth, term in lookup_terms(plan):
+        if table_name(prefix, term.input, nth) not in used:
+            continue
         rows = [[prec.literal(x) for x in table] + [prec.literal(0.0)] for table in term.lookups]
         out.append({"name": table_name(prefix, term.input, nth), "rows": rows,
                     "width": len(rows[0]),
@@ -275,6 +279,11 @@ def _accumulate(k: int, term: str, started: list[bool]) -> str:
 
 
 def _table_names(plan: Plan, prefix: str) -> dict[tuple, str]:
-    """Each lookup table of the program as a row of the categorical term's table."""
-    return {table: f"{table_name(prefix, term.input, nth)}[{k}]"
-            for nth, term in lookup_terms(plan) for k, table in enumerate(term.lookups)}
+    """Each lookup table of the program as a row of the first categorical term's table
+    that holds it (two terms of one input may have equal tables: a level's indicator and
+    its encoding with equal weights)."""
+    names: dict[tuple, str] = {}
+    for nth, term in lookup_terms(plan):
+        for k, table in enumerate(term.lookups):
+            names.setdefault(table, f"{table_name(prefix, term.input, nth)}[{k}]")
+    return names
