@@ -110,7 +110,7 @@ def build_model(plan: Plan, layout: str):
     g = _Graph(elem, reserved=set(plan.feature_names) | set(_reserved(plan)) | {MATRIX_INPUT})
     inputs = _declare_inputs(g, plan, layout)
     outputs = _Renderer(g, plan, layout).render()
-    inputs += _near_identities_pinned(g)
+    _near_identities_kept(g)
     doc = _doc_string(plan, layout)
     graph = helper.make_graph(g.nodes, f"scorewright_{plan.stem}", inputs, outputs,
                               initializer=g.initializers, doc_string=doc)
@@ -268,34 +268,34 @@ class _Graph:
 
 # Measured (onnxruntime 1.32, tests/test_onnx.py): its graph optimizations, on by default,
 # delete a Mul or Div by a one-element constant that rounds to 1.0 in single precision,
-# and an Add or Sub of one that rounds to 0.0, as if each were the identity, wherever the
-# node's input comes from another node and its output feeds one. In double such a
-# constant is not the identity (x / 1.0000000000000007, the scale of a standardized
-# product; x + 1e-300; -0.0 + 0.0). Those constants are declared graph inputs with their
-# value as default (overridable initializers, which onnxruntime lists as no input and its
-# optimizer does not take for constants). The exact identities (* 1.0, / 1.0, + -0.0,
-# - 0.0) stay constants: removing them changes nothing.
+# and an Add or Sub of one that rounds to 0.0, as if each were the identity (its noop
+# elimination reads a double constant as a float). In double such a constant is not the
+# identity (x / 1.0000000000000007, the scale of a standardized product; x + 1e-300;
+# -0.0 + 0.0). Such a constant reaches its node through Expand to the other operand's
+# shape, which the optimizer cannot fold (the batch size is not known): the same value,
+# one node more for each. The exact identities (* 1.0, / 1.0, + -0.0, - 0.0) stay plain
+# constants: deleting them changes nothing.
 NEAR_IDENTITY = {"Mul": (0, 1), "Div": (1,), "Add": (0, 1), "Sub": (1,)}  # constant positions
 EXACT_IDENTITY = {"Mul": 1.0, "Div": 1.0, "Add": -0.0, "Sub": 0.0}
 
 
-def _near_identities_pinned(g: _Graph) -> list:
+def _near_identities_kept(g: _Graph) -> None:
     values = {t.name: numpy_helper.to_array(t) for t in g.initializers
               if t.data_type in (TensorProto.DOUBLE, TensorProto.FLOAT)}
-    pinned = {}
-    for node in g.nodes:
+    nodes, g.nodes = g.nodes, []
+    for node in nodes:
         for k in NEAR_IDENTITY.get(node.op_type, ()):
-            name = node.input[k]
-            if name not in values or values[name].size != 1:
+            name, other = node.input[k], node.input[1 - k]
+            if name not in values or values[name].size != 1 or other in values:
                 continue
             c = values[name].ravel()[0]
             unit = EXACT_IDENTITY[node.op_type]
             with np.errstate(over="ignore"):
                 taken_for_identity = np.float32(c) == unit
             if taken_for_identity and c.tobytes() != np.array(unit, c.dtype).tobytes():
-                pinned[name] = values[name]
-    return [helper.make_tensor_value_info(name, helper.np_dtype_to_tensor_dtype(v.dtype),
-                                          list(v.shape)) for name, v in pinned.items()]
+                node.input[k] = g.op("Expand", [name, g.op("Shape", [other], "shape")],
+                                     f"{name}_kept")
+        g.nodes.append(node)
 
 
 def _declare_inputs(g: _Graph, plan: Plan, layout: str) -> list:

@@ -127,12 +127,8 @@ def _run_reference(path: Path, feeds: dict) -> tuple[str, dict]:
     from onnx.reference import ReferenceEvaluator
 
     try:
-        graph_model = onnx.load(str(path))
-        evaluator = ReferenceEvaluator(graph_model)
-        # a graph input with an initializer of its name has a default (onnxruntime lists
-        # only the others as inputs)
-        defaults = {t.name for t in graph_model.graph.initializer}
-        inputs = [_Named(n) for n in evaluator.input_names if n not in defaults]
+        evaluator = ReferenceEvaluator(str(path))
+        inputs = [_Named(n) for n in evaluator.input_names]
         values = evaluator.run(None, _graph_feeds(inputs, feeds))
     except Exception as exc:
         raise ScorewrightError(f"onnx: the reference evaluator failed: {_one_line(exc)}"
