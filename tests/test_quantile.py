@@ -387,3 +387,59 @@ def test_every_mode_verifies_on_the_boards(tmp_path):
     report = build_targets(model, tmp_path, data=None, n_random=100,
                            targets=["c-cortex-m3", "c-cortex-m4f"], progress=None)
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
+
+
+@pytest.mark.parametrize("output", ["uniform", "normal"])
+def test_default_quantile_count_runs_on_sqlite(output, tmp_path):
+    """scikit-learn's default 1,000 quantiles on SQLite (the real engine, the standard
+    library's): the step's selection trees nest as deep as its SQL gets, and SQLite's
+    parser stack overflowed on 100 quantiles before a CASE counted double in the
+    emitter's depth. Bit for bit against the program on every tenth quantile, one double
+    either side, and values outside the quantiles."""
+    from scorewright.emit import emitter
+    from scorewright.verify.runners import sql as sql_runner
+
+    rng = np.random.default_rng(5)
+    x = pd.DataFrame({"load": rng.lognormal(2, 1, 1500)})
+    y = (np.log(x.load) - 2 + rng.logistic(size=1500) > 0).astype(int)
+    pipe = make_pipeline(QuantileTransformer(output_distribution=output),
+                         LogisticRegression()).fit(x, y)
+    model, _ = freeze_checked(pipe, check_rows=x)
+    q = pipe[0].quantiles_[::10, 0]
+    values = np.concatenate([q, np.nextafter(q, -np.inf), np.nextafter(q, np.inf),
+                             [-1.0, 0.0, 1e6, q[-1] + 1.0]])
+    rows = [{"load": float(v)} for v in values]
+    art = emitter("sql")(model, {"dialect": "sqlite"})[0]
+    (tmp_path / art.name).write_bytes(art.content)
+    got = sql_runner.run(tmp_path, model, rows, {"dialect": "sqlite"})
+    want = score_matrix(build_plan(model), encode_rows(build_plan(model), rows))
+    assert np.array_equal(got.probabilities.view(np.uint64),
+                          want["probabilities"].view(np.uint64))
+
+
+@pytest.mark.parametrize("output", ["uniform", "normal"])
+def test_a_constant_column_transforms_as_scikit_learn_does(output, tmp_path):
+    """All quantiles one value (a constant training column): scikit-learn's transform gives
+    the bottom reference below it and the top one above (numpy's interp at its ends), and
+    "uniform" 0.0 on it; the program gave 0.5 below it in "uniform" (the freeze self-check
+    refused such a model). Held here to QuantileTransformer.transform bit for bit, with a
+    weight of 1 on the column so the value is the transform, then verified on the
+    targets."""
+    from scorewright.verify.harness import build_targets
+
+    x = pd.DataFrame({"setpoint": np.full(60, 3.0), "load": np.arange(60.0)})
+    pipe = make_pipeline(QuantileTransformer(n_quantiles=20, output_distribution=output),
+                         Ridge()).fit(x, np.arange(60.0))
+    pipe[-1].coef_ = np.array([1.0, 0.0])
+    pipe[-1].intercept_ = 0.0
+    probe = pd.DataFrame({"setpoint": [-1e9, 2.0, 3.0 - 1e-7, np.nextafter(3.0, 0), 3.0,
+                                       np.nextafter(3.0, 4), 3.0 + 1e-7, 4.0, 1e9],
+                          "load": 10.0})
+    model, _ = freeze_checked(pipe, check_rows=probe)
+    plan = build_plan(model)
+    got = score_matrix(plan, encode_rows(plan, probe.to_dict("records")))["value"]
+    want = pipe[0].transform(probe)[:, 0]
+    assert np.array_equal(got, want), (got, want)
+    report = build_targets(model, tmp_path, data=None, n_random=100,
+                           targets=["python", "c-double", "sql-sqlite", "onnx-double"])
+    assert report.ok, [(r.profile.name, r.message) for r in report.results]

@@ -392,10 +392,12 @@ def _lower_interp(b: _Builder, x, q, ref):
     ref[0] below q[0]; ref[-1] at or above q[-1]; else slope_j * (x - q[j]) + ref[j] for
     the last j with q[j] <= x (`quantile_pieces`; a value on q[j] gives ref[j] exactly,
     as numpy's own rule there). The piece is chosen by a balanced tree of selections on x
-    clamped into [q[0], q[-1]], so no piece meets a far x."""
+    clamped into [q[0], q[-1]], so no piece meets a far x. No piece (all quantiles one
+    value, a constant column): ref[0] below it, ref[-1] from it on, as numpy's ends."""
     pieces = quantile_pieces(q, ref)
     if not pieces:
-        return Const(ref[-1])
+        return b.emit("select", b.emit("gt", Const(q[0]), x, hint="f"), Const(ref[0]),
+                      Const(ref[-1]), hint="v")
     xc = b.emit("min", b.emit("max", x, Const(q[0]), hint="v"), Const(q[-1]), hint="v")
     leaves = [b.emit("add", b.emit("mul", Const(slope), b.emit("sub", xc, Const(qj))),
                      Const(rj), hint="v") for qj, rj, slope in pieces]
@@ -969,7 +971,7 @@ def _lower_calibrator(b: _Builder, plan: Plan, f, cal):
     def by_segment(values, lo=0, hi=len(xs) - 1):
         """values[j] of c's segment among segments lo .. hi - 1: a balanced tree of
         selections on the flags (the thresholds increase, so it picks what a chain of
-        them would, log2(n) deep: SQLite's parser nests about 100 levels)."""
+        them would, log2(n) deep: SQLite's parser holds 15 nested CASEs)."""
         if hi - lo == 1:
             return Const(values[lo])
         mid = (lo + hi) // 2

@@ -143,6 +143,11 @@ class Dialect:
     # of such layers over 1,000,000 rows: 10 layers 0.24 s, 12 layers 2.0 s, 16 layers
     # 21 s; the same chain joined by rowid 0.3 s).
     lateral_layers: int | None = None
+    # How much deeper an inlined CASE nests than a binary operation, in the units of
+    # sql_program's MAX_DEPTH: SQLite's parser stack (100 entries) took 15 nested CASEs
+    # and overflowed at 16, against 31 nested parenthesized additions; counted as one
+    # level, the selections of a quantile step of 100 quantiles overflowed it.
+    select_depth: int = 1
     # Spellings of primitives that differ from sql_program.spellings (a function of the
     # spelled operands); None: the dialect cannot express that op.
     ops: dict = field(default_factory=dict)
@@ -223,6 +228,7 @@ SQLITE = Dialect(
     text_double_rule="staged",
     flat_layers=True,
     read_width=250,
+    select_depth=2,
     function_form=None,
     nul_char="char(0)",
     # A column of one of these names shadows the rowid the query joins on.

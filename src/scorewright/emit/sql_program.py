@@ -9,7 +9,8 @@ WITH). An op becomes a column when inlining it would repeat work or nest too dee
 - its name is spelled more than once by the ops that use it (a CASE names its
   operand in each arm), unless all its own operands are columns or constants, so
   repeating it repeats one operation;
-- its expression would nest deeper than `MAX_DEPTH`;
+- its expression would nest deeper than `MAX_DEPTH` (a CASE counting as the dialect's
+  `select_depth` levels);
 - it is a block of a long margin sum: a sum of more operands than the dialect's
   terms_per_layer is cut into partial sums, each a column adding the next block to
   the one below (the same additions in the same order), so no `+` chain nests
@@ -284,7 +285,8 @@ class Renderer:
             names = [a for a in op.args if isinstance(a, str)]
             reads_ = frozenset().union(*[leaves[a] if a in inline else {alias[a]}
                                          for a in names])
-            dp = 1 + max([depth.get(a, 0) for a in names] + [0])
+            dp = (self.d.select_depth if op.op == "select" else 1) + max(
+                [depth.get(a, 0) for a in names] + [0])
             # a guarded op is long: written out at each of its uses it multiplies
             atomic = not any(a in inline for a in names) and op.dest not in self.risky
             if (op.attr and op.op == "sum") or dp > MAX_DEPTH or (
