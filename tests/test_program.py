@@ -125,3 +125,25 @@ def test_fold_computes_what_it_can_in_the_given_precision():
     single = fold(ops, {"f": True}, np.float32)
     assert single["b"] == np.float32(0.1) + np.float32(0.2) and single["b"] != double["b"]
     assert "a" not in fold(ops, {"f": False}) and "a" not in fold(ops, {})
+
+
+def test_the_oracle_holds_its_numpy_table_to_the_scalar_one(monkeypatch):
+    """verify's oracle scores with the numpy table and checks rows against the scalar one
+    (every row of a small program); a numpy result one ULP off is an internal error."""
+    import numpy as np
+
+    from scorewright.verify import harness
+
+    plan = build_plan(models.build("fault_binary").model)
+    rows = random_rows(plan, 50, seed=1)
+    harness.expected_outputs(plan, rows)
+    real = harness.score_matrix
+
+    def one_ulp_off(plan, matrix):
+        out = real(plan, matrix)
+        out["margins"][7, 0] = np.nextafter(out["margins"][7, 0], np.inf)
+        return out
+
+    monkeypatch.setattr(harness, "score_matrix", one_ulp_off)
+    with pytest.raises(ScorewrightError, match="disagree on check row 7"):
+        harness.expected_outputs(plan, rows)
