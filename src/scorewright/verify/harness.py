@@ -154,7 +154,7 @@ def _same_as_scalar(plan: Plan, row: dict, out: dict, i: int) -> None:
         pairs += [((float(s.class_index),), out["class_index"][i:i + 1].astype(np.float64))]
     for scalar, vector in pairs:
         a, b = np.asarray(scalar, dtype=np.float64), np.asarray(vector, dtype=np.float64)
-        if a.tobytes() != b.tobytes() and not (np.isnan(a) & np.isnan(b)).all():
+        if ((a.view(np.uint64) != b.view(np.uint64)) & ~(np.isnan(a) & np.isnan(b))).any():
             raise ScorewrightError(f"internal error: the reference evaluator's scalar and "
                                    f"numpy tables disagree on check row {i}; please report it")
 
