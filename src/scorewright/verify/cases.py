@@ -11,7 +11,6 @@ from __future__ import annotations
 import csv
 import math
 import random
-import struct
 from pathlib import Path
 
 from ..errors import ScorewrightError
@@ -287,6 +286,8 @@ def _threshold_rows(plan: Plan, base: dict) -> list[tuple[str, dict]]:
 
 
 def _to_ordered(x):
+    """Doubles as int64s in their order (-0.0 and 0.0 both 0): consecutive doubles are
+    consecutive integers, so bisecting the integers bisects the doubles."""
     import numpy as np
 
     i = np.asarray(x, dtype=np.float64).view(np.int64)
@@ -311,14 +312,11 @@ def _lever(plan: Plan, k: int = 0):
 
 
 def _ordered(x: float) -> int:
-    i = struct.unpack("<q", struct.pack("<d", x))[0]
-    return i if i >= 0 else -(1 << 63) - i
+    return int(_to_ordered(x))
 
 
 def _from_ordered(i: int) -> float:
-    if i < 0:
-        i = -(1 << 63) - i
-    return struct.unpack("<d", struct.pack("<q", i))[0]
+    return float(_from_ordered_array(i))
 
 
 def _margin_rows(plan: Plan, base: dict) -> list[tuple[str, dict]]:
