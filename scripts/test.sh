@@ -27,4 +27,6 @@ python3 -m pip install --quiet --disable-pip-version-check -e '.[test]'
 # torch, for the PyTorch freeze tests: the CPU build (no GPU libraries)
 python3 -c "import torch" 2>/dev/null || python3 -m pip install --quiet \
   --disable-pip-version-check --index-url https://download.pytorch.org/whl/cpu torch==2.13.0
-python3 -m pytest -q --durations=15 "$@"
+# two worker processes (the 2-core machine the 15-minute budget is set on); tests of one
+# xdist_group (the Spark ones, tests/conftest.py) stay on one worker
+python3 -m pytest -q --durations=15 -n 2 --dist loadgroup "$@"

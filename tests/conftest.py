@@ -1,6 +1,11 @@
-"""Shared set-up, made once per test session: a real PostgreSQL server (postgres_dsn) and
+"""Shared set-up, made once per test process: a real PostgreSQL server (postgres_dsn) and
 a local Spark session (spark). The test tiers: the default run, and --runslow for the
-tests marked slow (DEVELOPERS.md, Tests)."""
+tests marked slow (DEVELOPERS.md, Tests).
+
+`scripts/test.sh` runs the tests in two worker processes (pytest-xdist, `--dist
+loadgroup`): every test whose id names Spark is in one group, so one worker starts the
+one Spark JVM; each worker that needs PostgreSQL starts its own server. The counts of
+what the fault suites tried are sent from each worker to the process that prints them."""
 
 from __future__ import annotations
 
@@ -12,6 +17,9 @@ def pytest_addoption(parser):
 
 
 def pytest_collection_modifyitems(config, items):
+    for item in items:
+        if "spark" in item.nodeid.lower():
+            item.add_marker(pytest.mark.xdist_group("spark"))  # one worker, one JVM
     if config.getoption("--runslow"):
         return
     skip = pytest.mark.skip(reason="opt-in long run: pass --runslow")
@@ -31,7 +39,8 @@ def pytest_configure(config):
         return
 
     def counted_start(self, *args, **kwargs):
-        tally.add("PostgreSQL servers started by the test process (1 expected)", 1)
+        tally.add("PostgreSQL servers started by the test processes (one a worker expected)",
+                  1)
         return start(self, *args, **kwargs)
 
     counted_start.counted = True
@@ -61,6 +70,22 @@ def postgres_dsn(tmp_path_factory):
         yield server.dsn
     finally:
         server.stop()
+
+
+def pytest_sessionfinish(session):
+    """In a worker: hand its counts to the controlling process."""
+    from tally import COUNTS
+
+    if hasattr(session.config, "workeroutput"):
+        session.config.workeroutput["tally"] = dict(COUNTS)
+
+
+@pytest.hookimpl(optionalhook=True)
+def pytest_testnodedown(node, error):
+    """In the controlling process: add a finished worker's counts to its own."""
+    from tally import COUNTS
+
+    COUNTS.update(getattr(node, "workeroutput", {}).get("tally", {}))
 
 
 def pytest_terminal_summary(terminalreporter):
