@@ -22,6 +22,10 @@ Primitives (`PRIMITIVES` lists each with its operand and result types):
   select(f, a, b)         a if f else b (either type)
   exp(x)                  the plan's exp (libm or portable), argument already guarded
   lookup(c, table)        table[c] for 0 <= c < len(table), else 0.0 (no level)
+  bucket(x, edges)        the number of edges at or below x, a code (edges ascending, x
+                          never NaN): Python's bisect_right, numpy's searchsorted(side=
+                          "right"); a target may search the edges any way it likes, for
+                          only comparisons decide the code
   sum(t0, t1, ...)        ((t0 + t1) + t2) + ...: the ordered sum, never regrouped
   output(x)               names an output column (the op's `attr`)
 
@@ -36,6 +40,7 @@ a numpy op table, and the tests hold both to `reference.score_row` and
 
 from __future__ import annotations
 
+import bisect
 import math
 from dataclasses import dataclass, field
 from typing import Any, Mapping
@@ -60,6 +65,7 @@ PRIMITIVES: dict[str, tuple[tuple[str, ...] | str, str]] = {
     "gt": ("same", FLAG), "ge": ("same", FLAG), "eq": ("same", FLAG),
     "or": ((FLAG, FLAG), FLAG),
     "select": ("select", "any"), "exp": ((REAL,), REAL), "lookup": ((CODE,), REAL),
+    "bucket": ((REAL,), CODE),
     "sum": ("reals", REAL), "output": ("one", "any"),
 }
 
@@ -81,7 +87,8 @@ class Op:
     op: str
     args: tuple = ()
     type: str = REAL
-    attr: Any = None  # read_*: the input index; lookup: the table; output: the column name
+    attr: Any = None  # read_*: the input index; lookup: the table; bucket: the edges;
+    #                   output: the column name
 
 
 @dataclass(frozen=True)
@@ -391,24 +398,23 @@ def _lower_interp(b: _Builder, x, q, ref):
     """numpy's interp(x, q, ref) for a finite x, operation for operation (its C arr_interp):
     ref[0] below q[0]; ref[-1] at or above q[-1]; else slope_j * (x - q[j]) + ref[j] for
     the last j with q[j] <= x (`quantile_pieces`; a value on q[j] gives ref[j] exactly,
-    as numpy's own rule there). The piece is chosen by a balanced tree of selections on x
-    clamped into [q[0], q[-1]], so no piece meets a far x. No piece (all quantiles one
-    value, a constant column): ref[0] below it, ref[-1] from it on, as numpy's ends."""
+    as numpy's own rule there). x is clamped into [q[0], q[-1]] (so no piece meets a far
+    x), its piece found by `bucket` over the pieces' starts and its three constants looked
+    up: a handful of operations a value however many quantiles (scikit-learn's default is
+    1,000). No piece (all quantiles one value, a constant column): ref[0] below it,
+    ref[-1] from it on, as numpy's ends."""
     pieces = quantile_pieces(q, ref)
     if not pieces:
         return b.emit("select", b.emit("gt", Const(q[0]), x, hint="f"), Const(ref[0]),
                       Const(ref[-1]), hint="v")
     xc = b.emit("min", b.emit("max", x, Const(q[0]), hint="v"), Const(q[-1]), hint="v")
-    leaves = [b.emit("add", b.emit("mul", Const(slope), b.emit("sub", xc, Const(qj))),
-                     Const(rj), hint="v") for qj, rj, slope in pieces]
-
-    def tree(lo, hi):
-        if lo == hi:
-            return leaves[lo]
-        mid = (lo + hi + 1) // 2
-        return b.emit("select", b.emit("ge", xc, Const(pieces[mid][0]), hint="f"),
-                      tree(mid, hi), tree(lo, mid - 1), hint="v")
-    v = tree(0, len(pieces) - 1)
+    starts, refs, slopes = (tuple(float(p[i]) for p in pieces) for i in range(3))
+    if len(pieces) == 1:
+        at = [Const(starts[0]), Const(refs[0]), Const(slopes[0])]
+    else:
+        j = b.emit("bucket", xc, attr=starts[1:], hint="j")
+        at = [b.emit("lookup", j, attr=t, hint="v") for t in (starts, refs, slopes)]
+    v = b.emit("add", b.emit("mul", at[2], b.emit("sub", xc, at[0])), at[1], hint="v")
     v = b.emit("select", b.emit("ge", x, Const(q[-1]), hint="f"), Const(ref[-1]), v, hint="v")
     return b.emit("select", b.emit("gt", Const(q[0]), x, hint="f"), Const(ref[0]), v, hint="v")
 
@@ -1292,6 +1298,10 @@ def _lookup(code, table):
     return table[code] if 0 <= code < len(table) else 0.0
 
 
+def _bucket(x, edges):
+    return bisect.bisect_right(edges, x)
+
+
 SCALAR = {
     "is_missing": lambda x: not math.isfinite(x),
     "add": lambda a, b: a + b, "sub": lambda a, b: a - b,
@@ -1334,6 +1344,8 @@ def run_row(program: Program, row: Mapping) -> dict[str, Any]:
             value = exp(args[0])
         elif op.op == "lookup":
             value = _lookup(args[0], op.attr)
+        elif op.op == "bucket":
+            value = _bucket(args[0], op.attr)
         elif op.op == "output":
             out[op.attr] = args[0]
             continue
@@ -1415,6 +1427,9 @@ def _run_matrix(program: Program, matrix: np.ndarray):
                                dtype=np.float64)
         elif op.op == "lookup":
             value = _np_lookup(args[0], op.attr)
+        elif op.op == "bucket":
+            value = np.searchsorted(np.asarray(op.attr, dtype=np.float64), args[0],
+                                    side="right").astype(np.int64)
         elif op.op == "output":
             out[op.attr] = np.broadcast_to(np.asarray(args[0]), (n,)).copy()
             continue
@@ -1435,7 +1450,7 @@ def fold(ops, env: Mapping[str, Any], dtype=np.float64) -> dict[str, Any]:
     out = dict(env)
     with np.errstate(all="ignore"):
         for op in ops:
-            if op.dest in out or (op.op not in SCALAR and op.op != "lookup"):
+            if op.dest in out or (op.op not in SCALAR and op.op not in ("lookup", "bucket")):
                 continue
             args = [_fold_const(a, dtype) if isinstance(a, Const) else out.get(a, _UNKNOWN)
                     for a in op.args]
@@ -1445,6 +1460,8 @@ def fold(ops, env: Mapping[str, Any], dtype=np.float64) -> dict[str, Any]:
                 continue
             elif op.op == "lookup":
                 value = dtype(_lookup(int(args[0]), op.attr))
+            elif op.op == "bucket":
+                value = _bucket(args[0], op.attr)
             else:
                 value = SCALAR[op.op](*args)
             if value is not _UNKNOWN:

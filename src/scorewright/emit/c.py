@@ -116,8 +116,9 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
     else:
         exp_fn = prec.exp
     split = split_margins(program, ROW_PART_TERMS)
-    spelling = c_spelling(prec, exp_fn)
+    spelling = c_spelling(prec, exp_fn, prefix)
     tables = _table_names(plan, prefix)
+    values = _program_tables(program, prefix, tables)
     return {
         "prefix": prefix,
         "pick": pick_name(prefix, PRECISIONS["double"]),
@@ -145,6 +146,8 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         "batch_width": ((plan.n_probabilities if plan.has_probabilities else plan.n_outputs)
                         if plan.task == "multiclass" else 1 + (plan.offset is not None)),
         "tables": _tables(plan, prec, prefix, tables),
+        "value_tables": [(name, [prec.literal(x) for x in t]) for name, t in values],
+        "bucket": f"{prefix}_bucket" if any(op.op == "bucket" for op in program.ops) else None,
         **program_code(program, split, spelling, names, prefix, tables, decision_only),
         **({} if decision_only else _batch(program, spelling, prec, prefix, tables)),
     }
@@ -200,7 +203,7 @@ def _tables(plan: Plan, prec: CPrecision, prefix: str, names: dict) -> list[dict
     return out
 
 
-def c_spelling(prec: CPrecision, exp_fn: str) -> Spelling:
+def c_spelling(prec: CPrecision, exp_fn: str, prefix: str) -> Spelling:
     """C's spellings of the program's primitives in one precision."""
     types = {"real": prec.real, "code": "int", "flag": "int"}
     return Spelling(
@@ -228,6 +231,7 @@ def c_spelling(prec: CPrecision, exp_fn: str) -> Spelling:
             "select": "({0} ? {1} : {2})",
             "exp": exp_fn + "({0})",
             "lookup": "(({0} >= 0) ? {table}[{0}] : " + prec.literal(0.0) + ")",
+            "bucket": prefix + "_bucket({table}, {n}, {0})",
             "sum": " + ",
         },
     )
@@ -287,3 +291,14 @@ def _table_names(plan: Plan, prefix: str) -> dict[tuple, str]:
         for k, table in enumerate(term.lookups):
             names.setdefault(table, f"{table_name(prefix, term.input, nth)}[{k}]")
     return names
+
+
+def _program_tables(program: Program, prefix: str, names: dict) -> list[tuple[str, tuple]]:
+    """The tables the program's other lookups and buckets read (a quantile step's
+    pieces), named in `names` beside the categorical ones: (name, values) of each."""
+    out = []
+    for op in program.ops:
+        if op.op in ("lookup", "bucket") and op.attr not in names:
+            names[op.attr] = f"{prefix}_values{len(out)}"
+            out.append((names[op.attr], op.attr))
+    return out

@@ -209,11 +209,11 @@ def _chunk_sums(order: list[int], K: int, R: str) -> tuple[list[str], bool]:
 
 def _shape(cone: list[Op], terms) -> tuple | None:
     """What a term's operations are, but for their constants and the column they read;
-    None for a term no loop can take (a level lookup)."""
+    None for a term no loop can take (a level lookup, a bucket)."""
     local = {op.dest: i for i, op in enumerate(cone)}
     shape = []
     for op in cone:
-        if op.op in ("lookup", "read_code"):
+        if op.op in ("lookup", "read_code", "bucket"):
             return None
         args = tuple(("const", a.type) if isinstance(a, Const) else ("name", local.get(a, a))
                      for a in op.args)

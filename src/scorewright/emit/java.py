@@ -102,11 +102,13 @@ JAVA = Spelling(
         "select": "({0} ? {1} : {2})",
         "exp": "StrictMath.exp({0})",
         "lookup": "(({0} >= 0) ? {table}[{0}] : 0.0d)",  # a negative code: no level
+        "bucket": "Values.bucket({table}, {0})",
         "sum": " + ",  # left to right, as the program's ordered sum
     },
+    table_name="Lookup{n}.T",  # a table no categorical term holds (a quantile step's)
 )
 # the nested classes' names, which the public class must not take
-NESTED = re.compile(r"Values|PortableExp|Part\d+|Levels\d+|Table\d+(?:x\d+)?_\d+")
+NESTED = re.compile(r"Values|PortableExp|Part\d+|Levels\d+|Table\d+(?:x\d+)?_\d+|Lookup\d+")
 TYPES = {"real": "double", "code": "int", "flag": "boolean"}
 
 
@@ -198,7 +200,7 @@ def context(plan: Plan, name: str) -> dict:
         "n_program_outputs": len(outputs),
         "probabilities": plan.has_probabilities,
         "levels": levels,
-        "tables": [(t.split(".")[0], _array([literal(x) for x in values], "a level table"))
+        "tables": [(t.split(".")[0], _array([literal(x) for x in values], "a table"))
                    for t, values in r.table_list],
         "parts": parts,
         "part_terms": PART_TERMS,

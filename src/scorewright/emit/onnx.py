@@ -944,6 +944,16 @@ class _Renderer:
         return _Vec(g.op("Gather", [padded, index], op.dest, axis=0), "col", (op.dest,), REAL,
                     c.rows)
 
+    def _bucket(self, op: Op) -> _Vec:
+        """The number of edges at or below x: x compared with the [1, E] row of edges,
+        the truths counted (one node each; E comparisons a row, none of them rounded)."""
+        g, x = self.g, self.column(op.args[0])
+        edges = g.const("edges", np.asarray([op.attr], dtype=self.dtype))
+        at_or_below = g.op("GreaterOrEqual", [x.tensor, edges], f"{op.dest}_ge")
+        ones = g.op("Cast", [at_or_below], f"{op.dest}_ones", to=TensorProto.INT64)
+        return _Vec(g.op("ReduceSum", [ones, g.axes(1)], op.dest, keepdims=1), "col",
+                    (op.dest,), CODE, x.rows)
+
     # ------------------------------------------------------------ outputs
 
     def _outputs(self) -> list:
@@ -1091,4 +1101,5 @@ NODES = {
     "select": "Where", "exp": "Exp", "sum": "Sum",
     "read_real": _Renderer._read_real, "read_code": _Renderer._read_code,
     "is_missing": _Renderer._is_missing, "lookup": _Renderer._lookup,
+    "bucket": _Renderer._bucket,
 }

@@ -45,6 +45,7 @@ PYTHON = Spelling(
         "select": "({1} if {0} else {2})",
         "exp": "math.exp({0})",
         "lookup": "({table}[{0}] if {0} >= 0 else 0.0)",  # a negative code: no level
+        "bucket": "_bisect_right({table}, {0})",  # the standard library's bisect
         "sum": " + ",  # left to right, as the program's ordered sum
     },
 )

@@ -83,6 +83,27 @@ def _lookup(d: Dialect, table, code: str) -> str:
     return f"CASE {code} {' '.join(whens)} ELSE {zero} END"
 
 
+BUCKET_FAN = 4  # WHENs of one CASE of a bucket's tree: 1,000 edges nest 5 deep
+
+
+def _bucket(d: Dialect, edges, x: str) -> tuple[str, int]:
+    """The number of edges at or below x, as integer-valued CASEs: each tests x against
+    at most BUCKET_FAN edges, highest first, and descends into the range it found; (the
+    text, its number of nested CASEs)."""
+    def tree(lo: int, hi: int) -> tuple[str, int]:   # the count is in lo..hi
+        if lo == hi:
+            return str(lo), 0
+        step = -(-(hi - lo + 1) // BUCKET_FAN)
+        starts = list(range(lo, hi + 1, step))
+        arms = [(f"{x} >= {literal(d, edges[b - 1])}", tree(b, min(b + step - 1, hi)))
+                for b in reversed(starts[1:])]
+        rest = tree(lo, starts[1] - 1 if len(starts) > 1 else hi)
+        whens = " ".join(f"WHEN {test} THEN {text}" for test, (text, _) in arms)
+        return (f"CASE {whens} ELSE {rest[0]} END",
+                1 + max([depth for _, (_, depth) in arms] + [rest[1]]))
+    return tree(0, len(edges))
+
+
 # ---------------------------------------------------------------- layering
 
 @dataclass
@@ -209,6 +230,8 @@ class Renderer:
         d = self.d
         if op.op == "lookup":
             return lambda a: _lookup(d, op.attr, a[0])
+        if op.op == "bucket":
+            return lambda a: _bucket(d, op.attr, a[0])[0]
         if op.op == "sum":
             if self.flat and len(op.args) > 2 and d.sum_list is not None:
                 return lambda a: d.sum_list.format(start=a[0], rest=", ".join(a[1:]))
@@ -285,7 +308,9 @@ class Renderer:
             names = [a for a in op.args if isinstance(a, str)]
             reads_ = frozenset().union(*[leaves[a] if a in inline else {alias[a]}
                                          for a in names])
-            dp = (self.d.select_depth if op.op == "select" else 1) + max(
+            cases = (1 if op.op == "select" else
+                     _bucket(self.d, op.attr, "x")[1] if op.op == "bucket" else 0)
+            dp = (cases * self.d.select_depth or 1) + max(
                 [depth.get(a, 0) for a in names] + [0])
             # a guarded op is long: written out at each of its uses it multiplies
             atomic = not any(a in inline for a in names) and op.dest not in self.risky

@@ -3,8 +3,8 @@ operation, spelled from a language's record.
 
 A language is data: a `Spelling` of literals, names, the assignment forms and one text
 per primitive (`{0}`, `{1}`... are the operands, already spelled; `{src}` the text a
-read takes its raw value from; `{n}` a read's number of levels; `{table}` the name the
-renderer gave a lookup table; for the ordered sum, the text that joins its operands
+read takes its raw value from; `{n}` a read's number of levels, or a table's length;
+`{table}` the name the renderer gave a lookup table or a bucket's edges; for the ordered sum, the text that joins its operands
 left to right; a key "op:type" spells the op for that result type alone, before
 "op"). The walk over the program is written once here; a primitive a language has
 no spelling for is one error that names both.
@@ -84,10 +84,10 @@ class Renderer:
             inp = self.program.plan.inputs[op.attr]
             return {"src": self.sources[op.attr], "inp": inp,
                     "n": len(inp.levels) if inp.kind == "categorical" else 0}
-        if op.op == "lookup":
+        if op.op in ("lookup", "bucket"):  # a table of reals: the values, or the edges
             if op.attr not in self.tables:
                 self.tables[op.attr] = self.spelling.table_name.format(n=len(self.tables))
-            return {"table": self.tables[op.attr]}
+            return {"table": self.tables[op.attr], "n": len(op.attr)}
         return {}
 
     def _sum_lines(self, op, args: list[str], joiner: str) -> list[str]:
