@@ -313,7 +313,9 @@ class Renderer:
             dp = (cases * self.d.select_depth or 1) + max(
                 [depth.get(a, 0) for a in names] + [0])
             # a guarded op is long: written out at each of its uses it multiplies
-            atomic = not any(a in inline for a in names) and op.dest not in self.risky
+            # and a bucket is a tree of CASEs: one column, however many lookups read it
+            atomic = not any(a in inline for a in names) and op.dest not in self.risky \
+                and op.op != "bucket"
             if (op.attr and op.op == "sum") or dp > MAX_DEPTH or (
                     uses.get(op.dest, 0) > 1 and not atomic):
                 level = 1 + max([cols[a].level for a in reads_] + [-1])
