@@ -443,3 +443,44 @@ def test_a_constant_column_transforms_as_scikit_learn_does(output, tmp_path):
     report = build_targets(model, tmp_path, data=None, n_random=100,
                            targets=["python", "c-double", "sql-sqlite", "onnx-double"])
     assert report.ok, [(r.profile.name, r.message) for r in report.results]
+
+
+def _default_quantiles_model(output: str, n_quantiles: int = 1000):
+    """Two columns through scikit-learn's QuantileTransformer (its default 1,000 quantiles)
+    into a logistic regression."""
+    rng = np.random.default_rng(11)
+    x = pd.DataFrame({"load": rng.lognormal(2, 1, 3000), "temp": rng.normal(5, 3, 3000)})
+    y = (np.log(x.load) - 2 + 0.3 * x.temp - 1.5 + rng.logistic(size=3000) > 0).astype(int)
+    pipe = make_pipeline(QuantileTransformer(n_quantiles=n_quantiles,
+                                             output_distribution=output),
+                         LogisticRegression()).fit(x, y)
+    model, _ = freeze_checked(pipe, check_rows=x)
+    return model, x
+
+
+def test_a_quantile_step_costs_the_same_operations_at_any_quantile_count():
+    """The step finds its piece with one bucket and three lookups (program.py's
+    _lower_interp): the program of a model of 1,000 quantiles a column is as long as one
+    of 50, where a tree of selections over every piece took about 10,000 operations a
+    column."""
+    from scorewright.program import lower
+
+    lengths = {}
+    for n in (50, 1000):
+        model, _ = _default_quantiles_model("normal", n)
+        program = lower(build_plan(model))
+        assert sum(op.op == "bucket" for op in program.ops) == 4  # two interps a column
+        lengths[n] = len(program.ops)
+    assert lengths[1000] == lengths[50] < 500, lengths
+
+
+def test_default_quantile_count_verifies_on_java_and_c(tmp_path):
+    """Two columns of 1,000 quantiles: javac refused the old lowering's margin method
+    ("code too large", the 64 KB limit of a method) past about 150 quantiles a column, and
+    gcc took a minute over its C. Built and verified on the real compilers, bit for bit."""
+    from scorewright.verify.harness import build_targets
+
+    model, x = _default_quantiles_model("uniform")
+    report = build_targets(model, tmp_path, data=None, n_random=100,
+                           targets=["java", "c-double"], progress=None)
+    assert report.ok, [(r.profile.name, r.message) for r in report.results]
