@@ -960,10 +960,11 @@ def _lower_calibrator(b: _Builder, plan: Plan, f, cal):
     """One class's calibrated probability from its decision value f. Sigmoid: scikit-
     learn's expit(-(a f + b)) (the stable sigmoid of the program, its exp guarded).
     Isotonic: scikit-learn clips f to [t_0, t_n], then numpy's interp gives, on the
-    segment t_j <= f < t_j+1 (found by comparisons, as `_select_by_bin`), slope_j * (f -
-    t_j) + v_j with slope_j = (v_j+1 - v_j) / (t_j+1 - t_j) (the model's constants, one
-    IEEE division each), and v_n at f = t_n exactly; at f = t_j the product is 0 and the
-    value v_j, which is interp's own special case."""
+    segment t_j <= f < t_j+1 (j found by a bucket over t_1 .. t_n-1, its constants by
+    lookups, as the quantile step's pieces), slope_j * (f - t_j) + v_j with slope_j =
+    (v_j+1 - v_j) / (t_j+1 - t_j) (the model's constants, one IEEE division each), and v_n
+    at f = t_n exactly; at f = t_j the product is 0 and the value v_j, which is interp's
+    own special case."""
     if cal.method == "sigmoid":
         z = b.emit("neg", b.emit("add", b.emit("mul", Const(cal.a), f), Const(cal.b)))
         return _lower_logit(b, plan, z)[1]
@@ -971,22 +972,13 @@ def _lower_calibrator(b: _Builder, plan: Plan, f, cal):
     if len(xs) == 1:  # scikit-learn's constant prediction
         return Const(ys[0])
     c = b.emit("min", b.emit("max", f, Const(xs[0])), Const(xs[-1]), hint="v")
-    # flag j: c is at or past threshold j (segment j starts there), j = 1 .. n - 2
-    flags = {j: b.emit("ge", c, Const(xs[j]), hint="f") for j in range(1, len(xs) - 1)}
-
-    def by_segment(values, lo=0, hi=len(xs) - 1):
-        """values[j] of c's segment among segments lo .. hi - 1: a balanced tree of
-        selections on the flags (the thresholds increase, so it picks what a chain of
-        them would, log2(n) deep: SQLite's parser holds 15 nested CASEs)."""
-        if hi - lo == 1:
-            return Const(values[lo])
-        mid = (lo + hi) // 2
-        return b.emit("select", flags[mid], by_segment(values, mid, hi),
-                      by_segment(values, lo, mid), hint="v")
-
-    slopes = cal.slopes()
-    inner = b.emit("add", b.emit("mul", by_segment(slopes), b.emit("sub", c, by_segment(xs))),
-                   by_segment(ys), hint="v")
+    tables = [tuple(float(v) for v in t) for t in (cal.slopes(), xs[:-1], ys[:-1])]
+    if len(xs) == 2:
+        at = [Const(t[0]) for t in tables]
+    else:
+        j = b.emit("bucket", c, attr=tuple(float(v) for v in xs[1:-1]), hint="j")
+        at = [b.emit("lookup", j, attr=t, hint="v") for t in tables]
+    inner = b.emit("add", b.emit("mul", at[0], b.emit("sub", c, at[1])), at[2], hint="v")
     return b.emit("select", b.emit("ge", c, Const(xs[-1]), hint="f"), Const(ys[-1]), inner,
                   hint="p")
 
