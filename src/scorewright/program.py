@@ -191,7 +191,12 @@ def lower(plan: Plan) -> Program:
     values = _lower_link(b, plan, margins)
     for name, value in zip(names, values, strict=True):
         b.emit("output", value, attr=name, hint="o")
-    return Program(plan, _live(b.ops), names)
+    ops = _live(b.ops)
+    if plan.precision.name == "float" and any(op.op == "bucket" for op in ops):
+        # its edges are doubles; a float target would compare against rounded ones
+        raise ScorewrightError("a bucket (a quantile step, an isotonic calibrator) is for "
+                               "double-precision targets only")
+    return Program(plan, ops, names)
 
 
 def output_names(plan: Plan) -> tuple[str, ...]:

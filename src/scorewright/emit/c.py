@@ -119,7 +119,9 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
     spelling = c_spelling(prec, exp_fn, prefix)
     tables = _table_names(plan, prefix)
     values = _program_tables(program, prefix, tables)
-    return {
+    code = {**program_code(program, split, spelling, names, prefix, tables, decision_only),
+            **({} if decision_only else _batch(program, spelling, prec, prefix, tables))}
+    context = {
         "prefix": prefix,
         "pick": pick_name(prefix, PRECISIONS["double"]),
         "pickf": pick_name(prefix, PRECISIONS["float"]),
@@ -146,11 +148,14 @@ def context(plan: Plan, prefix: str, prec: CPrecision, portable: bool = False,
         "batch_width": ((plan.n_probabilities if plan.has_probabilities else plan.n_outputs)
                         if plan.task == "multiclass" else 1 + (plan.offset is not None)),
         "tables": _tables(plan, prec, prefix, tables),
-        "value_tables": [(name, [prec.literal(x) for x in t]) for name, t in values],
-        "bucket": f"{prefix}_bucket" if any(op.op == "bucket" for op in program.ops) else None,
-        **program_code(program, split, spelling, names, prefix, tables, decision_only),
-        **({} if decision_only else _batch(program, spelling, prec, prefix, tables)),
+        **code,
     }
+    # a table or the search that no rendered statement names would be unused (gcc -Werror)
+    text = repr(code)
+    context["value_tables"] = [(name, [prec.literal(x) for x in t]) for name, t in values
+                               if f"{name}," in text or f"{name}[" in text]
+    context["bucket"] = f"{prefix}_bucket" if f"{prefix}_bucket(" in text else None
+    return context
 
 
 def _batch(program: Program, spelling: Spelling, prec: CPrecision, prefix: str,

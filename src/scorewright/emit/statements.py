@@ -4,8 +4,8 @@ operation, spelled from a language's record.
 A language is data: a `Spelling` of literals, names, the assignment forms and one text
 per primitive (`{0}`, `{1}`... are the operands, already spelled; `{src}` the text a
 read takes its raw value from; `{n}` a read's number of levels, or a table's length;
-`{table}` the name the renderer gave a lookup table or a bucket's edges; for the ordered sum, the text that joins its operands
-left to right; a key "op:type" spells the op for that result type alone, before
+`{table}` the name the renderer gave a lookup table or a bucket's edges; for the ordered
+sum, the text that joins its operands left to right; a key "op:type" spells the op for that result type alone, before
 "op"). The walk over the program is written once here; a primitive a language has
 no spelling for is one error that names both.
 """
