@@ -413,15 +413,23 @@ def _lower_interp(b: _Builder, x, q, ref):
         return b.emit("select", b.emit("gt", Const(q[0]), x, hint="f"), Const(ref[0]),
                       Const(ref[-1]), hint="v")
     xc = b.emit("min", b.emit("max", x, Const(q[0]), hint="v"), Const(q[-1]), hint="v")
-    starts, refs, slopes = (tuple(float(p[i]) for p in pieces) for i in range(3))
-    if len(pieces) == 1:
-        at = [Const(starts[0]), Const(refs[0]), Const(slopes[0])]
-    else:
-        j = b.emit("bucket", xc, attr=starts[1:], hint="j")
-        at = [b.emit("lookup", j, attr=t, hint="v") for t in (starts, refs, slopes)]
-    v = b.emit("add", b.emit("mul", at[2], b.emit("sub", xc, at[0])), at[1], hint="v")
+    v = _linear_piece(b, xc, *zip(*pieces))
     v = b.emit("select", b.emit("ge", x, Const(q[-1]), hint="f"), Const(ref[-1]), v, hint="v")
     return b.emit("select", b.emit("gt", Const(q[0]), x, hint="f"), Const(ref[0]), v, hint="v")
+
+
+def _linear_piece(b: _Builder, x, starts, values, slopes):
+    """slopes[j] * (x - starts[j]) + values[j] for the last j with starts[j] <= x (starts
+    ascending, x not below starts[0]): j by a bucket over starts[1:], the three constants
+    looked up (constants where there is one piece). numpy's interp on one segment, for the
+    quantile step and the isotonic calibrator."""
+    tables = [tuple(float(v) for v in t) for t in (starts, values, slopes)]
+    if len(starts) == 1:
+        at = [Const(t[0]) for t in tables]
+    else:
+        j = b.emit("bucket", x, attr=tables[0][1:], hint="j")
+        at = [b.emit("lookup", j, attr=t, hint="v") for t in tables]
+    return b.emit("add", b.emit("mul", at[2], b.emit("sub", x, at[0])), at[1], hint="v")
 
 
 def _lower_quantile(b: _Builder, x, step):
@@ -977,13 +985,7 @@ def _lower_calibrator(b: _Builder, plan: Plan, f, cal):
     if len(xs) == 1:  # scikit-learn's constant prediction
         return Const(ys[0])
     c = b.emit("min", b.emit("max", f, Const(xs[0])), Const(xs[-1]), hint="v")
-    tables = [tuple(float(v) for v in t) for t in (cal.slopes(), xs[:-1], ys[:-1])]
-    if len(xs) == 2:
-        at = [Const(t[0]) for t in tables]
-    else:
-        j = b.emit("bucket", c, attr=tuple(float(v) for v in xs[1:-1]), hint="j")
-        at = [b.emit("lookup", j, attr=t, hint="v") for t in tables]
-    inner = b.emit("add", b.emit("mul", at[0], b.emit("sub", c, at[1])), at[2], hint="v")
+    inner = _linear_piece(b, c, xs[:-1], ys[:-1], cal.slopes())
     return b.emit("select", b.emit("ge", c, Const(xs[-1]), hint="f"), Const(ys[-1]), inner,
                   hint="p")
 

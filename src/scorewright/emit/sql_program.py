@@ -97,11 +97,17 @@ def _bucket(d: Dialect, edges, x: str) -> tuple[str, int]:
         starts = list(range(lo, hi + 1, step))
         arms = [(f"{x} >= {literal(d, edges[b - 1])}", tree(b, min(b + step - 1, hi)))
                 for b in reversed(starts[1:])]
-        rest = tree(lo, starts[1] - 1 if len(starts) > 1 else hi)
+        rest = tree(lo, starts[1] - 1)
         whens = " ".join(f"WHEN {test} THEN {text}" for test, (text, _) in arms)
         return (f"CASE {whens} ELSE {rest[0]} END",
                 1 + max([depth for _, (_, depth) in arms] + [rest[1]]))
     return tree(0, len(edges))
+
+
+def _bucket_depth(outcomes: int) -> int:
+    """The nested CASEs of `_bucket`'s tree over that many counts (its widest range
+    nests deepest), without writing the text."""
+    return 0 if outcomes <= 1 else 1 + _bucket_depth(-(-outcomes // BUCKET_FAN))
 
 
 # ---------------------------------------------------------------- layering
@@ -309,7 +315,7 @@ class Renderer:
             reads_ = frozenset().union(*[leaves[a] if a in inline else {alias[a]}
                                          for a in names])
             cases = (1 if op.op == "select" else
-                     _bucket(self.d, op.attr, "x")[1] if op.op == "bucket" else 0)
+                     _bucket_depth(len(op.attr) + 1) if op.op == "bucket" else 0)
             dp = (cases * self.d.select_depth or 1) + max(
                 [depth.get(a, 0) for a in names] + [0])
             # a guarded op is long: written out at each of its uses it multiplies
